@@ -1,0 +1,5 @@
+"""Allow ``python -m ringkit``."""
+
+from ringkit.cli import main
+
+raise SystemExit(main())
