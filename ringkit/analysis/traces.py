@@ -1,0 +1,472 @@
+"""Measured magnetoresistance traces: reading text files into clean conductance traces.
+
+Public API
+----------
+Trace(field [T], conductance [e^2/h], label, metadata)
+LoadReport, LoadResult(traces, report)
+load_traces(path, **options) -> LoadResult       (a file or a folder of files)
+TraceFormatError                                  (malformed file: names file, line, problem)
+
+What the loader does (and reports)
+----------------------------------
+* Text with comma, tab, semicolon or whitespace delimiters (detected, or ``delimiter=``),
+  comment lines (``#`` by default; ``# key = value`` lines are kept as metadata), a header
+  line or none (the last comment line is used as header if it names the columns).
+* Columns by name (``"B"`` or the full label ``"B [mT]"``) or 0-based index. Units from the
+  labels (``B (T)``, ``B [mT]``, ``Field (G)``, ``R (Ohm)``, ``R [kOhm]``, ``G (S)``,
+  ``G (e^2/h)``, ...) or from ``field_unit=``/``signal_unit=``; an unknown unit is an error,
+  never a guess.
+* Resistance -> conductance ``G = 1/(R - R_series)`` (two-terminal). Four-terminal data are
+  flagged: ``R_mn,kl`` is not the inverse of a ring conductance, may be negative and is not
+  even in B (physics notes §12.1); ``G = 1/R`` is then only indicative, or, with
+  ``reference_resistance=R_2t``, linearised as ``G = 1/R_2t - (R - R_2t)/R_2t^2``
+  (``dG = -dR/R_2t^2``). The caveat is stored in ``Trace.metadata["caveats"]``.
+* Several traces: one per signal column, per value of a ``group_by`` column (e.g.
+  temperature), per sweep direction (up/down split at turning points where the field
+  reverses by more than ``reversal_fraction`` of its span), per file of a folder.
+* Rows with NaN/empty values, out-of-order fields within a sweep (re-sorted or dropped)
+  and duplicate fields (averaged or dropped) are handled and counted in the
+  :class:`LoadReport` with reasons and example line numbers. Nothing is dropped silently.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ringkit._validation import ParameterError, check_choice, check_range
+from ringkit.analysis._columns import ColumnInfo, parse_label, parse_unit
+from ringkit.analysis._sweeps import Tally, clean_segment, segments, to_conductance
+from ringkit.analysis._textfile import TraceFormatError, read_table, temperature_from_text
+
+__all__ = ["Trace", "LoadReport", "LoadResult", "TraceFormatError", "load_traces"]
+
+_SUFFIXES = (".txt", ".dat", ".csv", ".tsv")
+_CAVEAT_4T = (
+    "four-terminal resistance: G = 1/R is not the conductance of the ring (R_mn,kl may be "
+    "negative and is not even in B; physics notes §12.1); amplitudes are indicative only"
+)
+
+
+@dataclass(frozen=True)
+class Trace:
+    """One magnetoconductance sweep, field increasing.
+
+    Attributes
+    ----------
+    field : ndarray
+        Field in T, strictly increasing.
+    conductance : ndarray
+        Conductance in e^2/h.
+    label : str
+        ``"<file stem>:<column>[ T=<value> K][ up|down]"``.
+    metadata : dict
+        ``source``, ``column``, ``quantity`` (``"R"``/``"G"``), ``units``, ``terminals``,
+        ``series_resistance`` [Ohm], ``direction``, ``temperature`` [K] (if known),
+        ``lines`` (first and last line number), ``caveats``, ``header``.
+    """
+
+    field: np.ndarray
+    conductance: np.ndarray
+    label: str = ""
+    metadata: dict = field(default_factory=dict)
+
+    @property
+    def temperature(self) -> float | None:
+        """Temperature in K if known (group column, header, file name or option)."""
+        return self.metadata.get("temperature")
+
+    @property
+    def direction(self) -> str:
+        """Sweep direction ``"up"``, ``"down"`` or ``"merged"``."""
+        return self.metadata.get("direction", "merged")
+
+    def __len__(self) -> int:
+        return int(self.field.size)
+
+
+@dataclass(frozen=True)
+class LoadReport:
+    """What happened to every data point (a point = one row of one signal column).
+
+    ``n_points == n_used + n_dropped``; ``dropped`` maps each reason to a count,
+    ``adjusted`` counts points kept but changed (re-sorted, averaged), ``examples`` gives
+    up to five ``"file:line"`` per reason.
+    """
+
+    files: tuple[str, ...]
+    n_points: int
+    n_used: int
+    n_dropped: int
+    dropped: dict
+    adjusted: dict
+    examples: dict
+    caveats: tuple[str, ...]
+
+    def summary(self) -> str:
+        """Readable multi-line summary."""
+        lines = [
+            f"read {len(self.files)} file(s): {self.n_points} points, {self.n_used} used, "
+            f"{self.n_dropped} dropped"
+        ]
+        for reason, n in self.dropped.items():
+            ex = ", ".join(self.examples.get(reason, ()))
+            lines.append(f"  dropped {n}: {reason}" + (f" (e.g. {ex})" if ex else ""))
+        for reason, n in self.adjusted.items():
+            ex = ", ".join(self.examples.get(reason, ()))
+            lines.append(f"  kept {n}: {reason}" + (f" (e.g. {ex})" if ex else ""))
+        lines.extend(f"  caveat: {c}" for c in self.caveats)
+        return "\n".join(lines)
+
+
+@dataclass(frozen=True)
+class LoadResult:
+    """Traces read from a file or folder and the :class:`LoadReport`."""
+
+    traces: tuple[Trace, ...]
+    report: LoadReport
+
+    def __iter__(self):
+        return iter(self.traces)
+
+    def __len__(self) -> int:
+        return len(self.traces)
+
+
+def _pick(spec: str | int, infos: list[ColumnInfo], path: Path, what: str) -> int:
+    if isinstance(spec, (int, np.integer)) and not isinstance(spec, bool):
+        if not 0 <= spec < len(infos):
+            raise TraceFormatError(
+                f"{path}: {what} column index {spec} out of range (file has {len(infos)} columns)"
+            )
+        return int(spec)
+    key = str(spec).strip().lower()
+    for i, info in enumerate(infos):
+        if key in (info.label.lower(), info.name.lower()):
+            return i
+    names = ", ".join(repr(c.label) for c in infos)
+    raise TraceFormatError(f"{path}: no {what} column named {spec!r} (columns: {names})")
+
+
+def load_traces(
+    path: str | Path,
+    *,
+    field: str | int | None = None,
+    signal: str | int | list | None = None,
+    field_unit: str | None = None,
+    signal_unit: str | None = None,
+    group_by: str | int | None = None,
+    group_rtol: float = 1e-3,
+    delimiter: str | None = None,
+    comment: str = "#",
+    decimal: str = ".",
+    series_resistance: float = 0.0,
+    terminals: str = "two",
+    reference_resistance: float | None = None,
+    split_sweeps: bool = True,
+    reversal_fraction: float = 0.05,
+    out_of_order: str = "sort",
+    duplicates: str = "average",
+    min_points: int = 8,
+    temperature: float | None = None,
+    pattern: str = "*",
+) -> LoadResult:
+    """Read measured magnetoresistance/conductance traces from a text file or folder.
+
+    Parameters
+    ----------
+    path : str or Path
+        A file, or a folder whose files matching ``pattern`` with suffix .txt, .dat, .csv
+        or .tsv are read in sorted order.
+    field, signal : str or int, optional
+        Field column and signal column(s) by label/name or 0-based index. Defaults: the
+        column whose unit/name says field (else column 0); every resistance/conductance
+        column (else column 1).
+    field_unit, signal_unit : str, optional
+        Units overriding the header (needed when the header has none), e.g. ``"mT"``,
+        ``"kOhm"``, ``"e^2/h"``. The signal unit also says whether it is R or G.
+    group_by : str or int, optional
+        Column (e.g. temperature) whose distinct values (within ``group_rtol``) give
+        separate traces; a column with unit K/mK sets ``metadata["temperature"]``.
+    delimiter, comment, decimal : str
+        Text format; ``delimiter=None`` detects tab, semicolon, comma or whitespace.
+    series_resistance : float
+        Ohm subtracted before inversion (two-terminal: leads, contacts, filters).
+    terminals : {"two", "four"}
+        Measurement configuration; "four" adds the caveat of the module docstring.
+    reference_resistance : float, optional
+        Two-terminal R in Ohm for the linearised four-terminal conversion.
+    split_sweeps : bool
+        Split at field reversals into up and down sweeps (else merge and sort).
+    reversal_fraction : float
+        Reversal (fraction of the field span) that counts as a turning point; smaller
+        backward steps are out-of-order rows.
+    out_of_order : {"sort", "drop"}
+        Re-sort rows whose field goes backwards within a sweep, or drop them.
+    duplicates : {"average", "drop"}
+        Average the signal of rows with the same field, or keep the first.
+    min_points : int
+        Sweep segments with fewer points are dropped (reported).
+    temperature : float, optional
+        Temperature in K for every trace (overrides header and file name).
+    pattern : str
+        Glob pattern for folders.
+
+    Returns
+    -------
+    LoadResult
+
+    Raises
+    ------
+    TraceFormatError
+        Malformed file: one line naming the file, the line and the problem.
+    ParameterError
+        Invalid options. ``OSError`` if the path cannot be read.
+    """
+    check_choice("terminals", terminals, ("two", "four"))
+    check_choice("out_of_order", out_of_order, ("sort", "drop"))
+    check_choice("duplicates", duplicates, ("average", "drop"))
+    check_range("series_resistance", series_resistance, 0.0, None, "Ohm")
+    check_range("reversal_fraction", reversal_fraction, 0.0, 0.5, inclusive=(False, True))
+    if terminals == "four" and series_resistance > 0:
+        raise ParameterError(
+            "series_resistance", series_resistance, "applies to two-terminal data only", "Ohm"
+        )
+    if reference_resistance is not None:
+        check_range(
+            "reference_resistance", reference_resistance, 0.0, None, "Ohm", inclusive=(False, True)
+        )
+    for name, unit in (("field_unit", field_unit), ("signal_unit", signal_unit)):
+        if unit is not None and parse_unit(unit) is None:
+            raise ParameterError(name, unit, "unknown unit (e.g. T, mT, G, Ohm, kOhm, S, e^2/h)")
+    p = Path(path)
+    if p.is_dir():
+        files = sorted(f for f in p.glob(pattern) if f.is_file() and f.suffix.lower() in _SUFFIXES)
+        if not files:
+            raise TraceFormatError(
+                f"{p}: no data files ({', '.join(_SUFFIXES)}) matching {pattern!r}"
+            )
+    else:
+        files = [p]
+    tally = Tally()
+    traces: list[Trace] = []
+    opts = dict(
+        field=field,
+        signal=signal,
+        field_unit=field_unit,
+        signal_unit=signal_unit,
+        group_by=group_by,
+        group_rtol=group_rtol,
+        delimiter=delimiter,
+        comment=comment,
+        decimal=decimal,
+        series=float(series_resistance),
+        terminals=terminals,
+        reference=reference_resistance,
+        split_sweeps=split_sweeps,
+        reversal_fraction=reversal_fraction,
+        out_of_order=out_of_order,
+        duplicates=duplicates,
+        min_points=int(min_points),
+        temperature=temperature,
+    )
+    for f in files:
+        traces.extend(_load_file(f, tally, **opts))
+    if not traces:
+        raise TraceFormatError(f"{p}: no trace with at least {min_points} valid points")
+    return LoadResult(traces=tuple(traces), report=LoadReport(**tally.counts()))
+
+
+def _load_file(path: Path, tally: Tally, **o) -> list[Trace]:
+    labels, data, lines, header = read_table(path, o["delimiter"], o["comment"], o["decimal"])
+    ncol = data.shape[1]
+    infos = (
+        [parse_label(x) for x in labels]
+        if labels is not None
+        else [ColumnInfo(f"column {j}", f"column {j}", None, None, None) for j in range(ncol)]
+    )
+    tally.files.append(str(path))
+    # field column
+    if o["field"] is not None:
+        jf = _pick(o["field"], infos, path, "field")
+    else:
+        cands = [j for j, c in enumerate(infos) if c.quantity == "field"]
+        jf = cands[0] if cands else 0
+    f_factor = parse_unit(o["field_unit"])[1] if o["field_unit"] else infos[jf].factor
+    if f_factor is None or (o["field_unit"] is None and infos[jf].quantity != "field"):
+        raise TraceFormatError(
+            f"{path}: unit of field column {infos[jf].label!r} unknown; give field_unit "
+            "(T, mT, G, ...) or a header like 'B (T)'"
+        )
+    jg = _pick(o["group_by"], infos, path, "group_by") if o["group_by"] is not None else None
+    # signal columns
+    if o["signal"] is None:
+        js = [j for j, c in enumerate(infos) if c.quantity in ("R", "G") and j not in (jf, jg)]
+        if not js:
+            rest = [j for j in range(ncol) if j not in (jf, jg)]
+            if len(rest) != 1:
+                raise TraceFormatError(
+                    f"{path}: cannot tell which column is the signal; give signal= "
+                    f"(columns: {', '.join(repr(c.label) for c in infos)})"
+                )
+            js = rest
+    else:
+        specs = o["signal"] if isinstance(o["signal"], (list, tuple)) else [o["signal"]]
+        js = [_pick(s, infos, path, "signal") for s in specs]
+    file_temp = o["temperature"]
+    if file_temp is None:
+        for key, value in header.items():
+            if key.lower() in ("t", "temp", "temperature", "t_mc", "t_sample"):
+                file_temp = temperature_from_text(value)
+                break
+    if file_temp is None:
+        file_temp = temperature_from_text(path.stem)
+    out: list[Trace] = []
+    for j in js:
+        info = infos[j]
+        if o["signal_unit"]:
+            quantity, s_factor = parse_unit(o["signal_unit"])
+        else:
+            quantity, s_factor = info.quantity, info.factor
+        if quantity not in ("R", "G") or s_factor is None:
+            raise TraceFormatError(
+                f"{path}: unit of signal column {info.label!r} unknown; give signal_unit "
+                "(Ohm, kOhm, S, e^2/h, ...) or a header like 'R (Ohm)'"
+            )
+        out.extend(
+            _column_traces(
+                path,
+                data,
+                lines,
+                jf,
+                j,
+                jg,
+                infos,
+                quantity,
+                f_factor,
+                s_factor,
+                file_temp,
+                header,
+                tally,
+                o,
+            )
+        )
+    return out
+
+
+def _column_traces(
+    path, data, lines, jf, j, jg, infos, quantity, f_factor, s_factor, file_temp, header, tally, o
+) -> list[Trace]:
+    where_all = np.array([f"{path.name}:{n}" for n in lines])
+    tally.n_points += data.shape[0]
+    b_all = data[:, jf] * f_factor
+    v_all = data[:, j]
+    nan_b = ~np.isfinite(b_all)
+    nan_v = ~np.isfinite(v_all) & ~nan_b
+    tally.add("drop", "NaN, empty or infinite field value", list(where_all[nan_b]))
+    tally.add("drop", "NaN, empty or infinite signal value", list(where_all[nan_v]))
+    ok = ~(nan_b | nan_v)
+    if jg is not None:
+        gv = data[:, jg]
+        nan_g = ~np.isfinite(gv) & ok
+        tally.add("drop", "NaN or empty group value", list(where_all[nan_g]))
+        ok &= ~nan_g
+    g_all, bad, reason = to_conductance(
+        v_all, quantity, s_factor, o["series"], o["terminals"], o["reference"]
+    )
+    bad &= ok
+    tally.add("drop", reason, list(where_all[bad]))
+    ok &= ~bad
+    caveats = []
+    if quantity == "R" and o["terminals"] == "four":
+        caveats.append(_CAVEAT_4T)
+        if o["reference"] is not None:
+            caveats.append(
+                f"four-terminal R linearised with reference_resistance = {o['reference']:g} "
+                "Ohm: G = 1/R_ref - (R - R_ref)/R_ref^2"
+            )
+    elif o["terminals"] == "four":
+        caveats.append("four-terminal conductance: not the conductance of the ring alone")
+    tally.caveats.extend(caveats)
+    groups: list[tuple[float | None, np.ndarray]] = []
+    if jg is not None:
+        gvals = data[:, jg]
+        uniq = np.unique(gvals[ok])
+        cluster = np.zeros(uniq.size, dtype=int)
+        start = uniq[0] if uniq.size else 0.0
+        for k in range(1, uniq.size):
+            new = abs(uniq[k] - start) > o["group_rtol"] * max(abs(start), 1e-300)
+            cluster[k] = cluster[k - 1] + int(new)
+            if new:
+                start = uniq[k]
+        row_cluster = np.full(gvals.size, -1)
+        row_cluster[ok] = cluster[np.searchsorted(uniq, gvals[ok])]
+        for c in range(int(cluster[-1]) + 1 if uniq.size else 0):
+            sel = row_cluster == c
+            groups.append((float(np.median(gvals[sel])), sel))
+    else:
+        groups.append((None, ok))
+    ginfo = infos[jg] if jg is not None else None
+    out: list[Trace] = []
+    for gval, sel in groups:
+        idx = np.nonzero(sel)[0]
+        b, g, where = b_all[idx], g_all[idx], where_all[idx]
+        temp = file_temp
+        gl = ""
+        if gval is not None:
+            gl = f" {ginfo.name}={gval:g}" + (f" {ginfo.unit}" if ginfo.unit else "")
+            if ginfo.quantity == "temperature" and ginfo.factor is not None:
+                temp = gval * ginfo.factor
+        if b.size == 0:
+            continue
+        if np.ptp(b) == 0:
+            tally.add("drop", "field does not vary in this trace", list(where))
+            continue
+        segs = segments(b, o["reversal_fraction"])
+        if not o["split_sweeps"]:
+            if len(segs) > 1:
+                msg = (
+                    f"{path.name}: {len(segs)} sweeps merged into one trace (hysteresis "
+                    "and drift between them are averaged)"
+                )
+                caveats.append(msg)
+                tally.caveats.append(msg)
+            segs = [(0, b.size)]
+        for lo, hi in segs:
+            sb, sg, sw = b[lo:hi], g[lo:hi], where[lo:hi]
+            direction = 1 if sb[-1] >= sb[0] else -1
+            if not o["split_sweeps"]:
+                direction = 0
+            if sb.size < o["min_points"]:
+                tally.add("drop", f"sweep segment shorter than {o['min_points']} points", list(sw))
+                continue
+            cb, cg, kept = clean_segment(
+                sb, sg, sw, tally, o["out_of_order"], o["duplicates"], direction
+            )
+            if cb.size < o["min_points"]:
+                tally.add(
+                    "drop", f"sweep segment shorter than {o['min_points']} points", list(kept)
+                )
+                continue
+            dname = {1: "up", -1: "down", 0: "merged"}[direction]
+            label = f"{path.stem}:{infos[j].label}{gl}" + (f" {dname}" if direction else "")
+            meta = {
+                "source": str(path),
+                "column": infos[j].label,
+                "field_column": infos[jf].label,
+                "quantity": quantity,
+                "units": {"field": "T", "conductance": "e^2/h"},
+                "terminals": o["terminals"],
+                "series_resistance": o["series"],
+                "reference_resistance": o["reference"],
+                "direction": dname,
+                "temperature": temp,
+                "group": gval,
+                "lines": (str(sw[0]), str(sw[-1])),
+                "caveats": tuple(caveats),
+                "header": dict(header),
+            }
+            out.append(Trace(field=cb, conductance=cg, label=label, metadata=meta))
+    return out

@@ -1,0 +1,246 @@
+"""Phase-coherence length fits: known parameters recovered, uncertainties that cover them.
+
+Outside references: the kernel identity int cos(aE)(-df/dE) dE = x/sinh(x), x = pi a k_B T,
+with its check values (physics notes §5.4, [C]) and an independent numerical quadrature
+written here; the L_phi ∝ 1/T law (Hansen et al., Phys. Rev. B 64, 045327 (2001)) and the
+T^-1/2 thermal law (Washburn et al. 1985, law verified, reference from memory) as the
+synthetic truth; frequentist coverage of the reported 1-sigma errors.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+from scipy import constants, integrate
+
+from ringkit._validation import ParameterError
+from ringkit.analysis import (
+    extract_oscillations,
+    fit_lphi_size,
+    fit_lphi_temperature,
+    load_traces,
+    lphi_at,
+    thermal_factor,
+)
+
+K_B = constants.k
+DATA = Path(__file__).parent / "data"
+
+
+@pytest.mark.parametrize(
+    ("a_kt", "expected"),
+    [(0.1, 0.983738), (0.5, 0.682569), (1.0, 0.272029), (2.0, 0.0234671), (3.0, 0.00152115)],
+)
+def test_ballistic_thermal_factor_check_values(a_kt, expected):
+    # x = pi a k_B T with a = 1/E_c (physics notes §5.4 table)
+    temperature = 0.7
+    e_c = K_B * temperature / a_kt
+    assert thermal_factor(temperature, "ballistic", e_c) == pytest.approx(expected, rel=1e-5)
+
+
+def test_ballistic_thermal_factor_against_quadrature():
+    """Independent: average cos(E/E_c) over the Fermi window -df/dE numerically."""
+    e_c, temperature = 1.0e-23, 0.9
+    kt = K_B * temperature
+
+    def integrand(u):  # u = (E - mu)/(k_B T)
+        return np.cos(u * kt / e_c) / (4 * np.cosh(u / 2) ** 2)
+
+    ref, _ = integrate.quad(integrand, -60, 60, limit=400)
+    assert thermal_factor(temperature, "ballistic", e_c) == pytest.approx(ref, rel=1e-7)
+    assert thermal_factor(0.0, "ballistic", e_c) == 1.0
+
+
+def test_diffusive_thermal_factor_is_t_to_minus_half():
+    e_th = K_B * 0.1
+    t = np.array([0.2, 0.4, 0.8, 1.6])
+    f = thermal_factor(t, "diffusive", e_th)
+    slope = np.polyfit(np.log(t), np.log(f), 1)[0]
+    assert slope == pytest.approx(-0.5, abs=1e-12)
+    assert thermal_factor(0.05, "diffusive", e_th) == 1.0  # k_B T < E_Th: no averaging
+    with pytest.raises(ParameterError, match="energy"):
+        thermal_factor(1.0, "ballistic")
+
+
+L_PATH = np.pi * 0.63e-6  # h/e path length of a 0.63 um ring
+TRUTH = {"amplitude0": 0.5, "lphi_ref": 2.0e-6, "p": 1.0}
+E_C = K_B * 2.0
+TEMPS = np.array([0.25, 0.4, 0.6, 0.9, 1.4, 2.0, 2.8])
+
+
+def _amp(t):
+    lphi = TRUTH["lphi_ref"] * t ** (-TRUTH["p"])
+    return TRUTH["amplitude0"] * thermal_factor(t, "ballistic", E_C) * np.exp(-L_PATH / lphi)
+
+
+def test_noise_free_log_linear_case_is_exact():
+    # p = 1, no thermal factor: ln A = ln A0 - (L/L_phi,ref) T is linear (physics notes §9.2)
+    t = np.linspace(0.3, 4.0, 8)
+    a = 0.3 * np.exp(-L_PATH * t / 1.5e-6)
+    fit = fit_lphi_temperature(t, a, path_length=L_PATH, p=1.0)
+    assert fit.values["lphi_ref"] == pytest.approx(1.5e-6, rel=1e-9)
+    assert fit.values["amplitude0"] == pytest.approx(0.3, rel=1e-9)
+    assert fit.parameter_names == ("amplitude0", "lphi_ref")
+    assert np.log(a) - np.log(fit.predict(t)) == pytest.approx(0, abs=1e-9)
+
+
+def test_temperature_fit_recovers_truth_with_errors():
+    rng = np.random.default_rng(12)
+    a_true = _amp(TEMPS)
+    a = a_true * (1 + 0.03 * rng.normal(size=TEMPS.size))
+    fit = fit_lphi_temperature(
+        TEMPS,
+        a,
+        radius=0.63e-6,
+        amplitude_err=0.03 * a_true,
+        thermal="ballistic",
+        thermal_energy=E_C,
+    )
+    assert fit.success
+    for name, value in TRUTH.items():
+        assert abs(fit.values[name] - value) < 3 * fit.errors[name], name
+        assert fit.values[name] == pytest.approx(value, rel=0.1), name
+    assert fit.errors["p"] < 0.1 and fit.errors["lphi_ref"] < 0.1 * TRUTH["lphi_ref"]
+    assert fit.dof == TEMPS.size - 3
+    assert 0.1 < fit.reduced_chi2 < 4
+    lphi, err = lphi_at(fit, np.array([0.5, 1.0, 2.0]))
+    truth = TRUTH["lphi_ref"] / np.array([0.5, 1.0, 2.0])
+    assert np.all(np.abs(lphi - truth) < 3 * err)
+    assert err[1] == pytest.approx(fit.errors["lphi_ref"], rel=1e-12)  # T = T_ref
+
+
+def test_lphi_at_error_matches_monte_carlo_of_covariance():
+    rng = np.random.default_rng(2)
+    a = _amp(TEMPS) * (1 + 0.03 * rng.normal(size=TEMPS.size))
+    fit = fit_lphi_temperature(
+        TEMPS,
+        a,
+        path_length=L_PATH,
+        amplitude_err=0.03 * a,
+        thermal="ballistic",
+        thermal_energy=E_C,
+    )
+    i, j = fit.parameter_names.index("lphi_ref"), fit.parameter_names.index("p")
+    mean = [fit.values["lphi_ref"], fit.values["p"]]
+    cov = fit.covariance[np.ix_([i, j], [i, j])]
+    draws = rng.multivariate_normal(mean, cov, size=200000)
+    t = 2.5
+    mc = np.std(draws[:, 0] * t ** (-draws[:, 1]))
+    assert lphi_at(fit, t)[1] == pytest.approx(mc, rel=0.03)  # first-order propagation
+
+
+@pytest.mark.slow
+def test_temperature_fit_coverage():
+    """Reported 1-sigma errors cover the truth ~68 % of the time (300 seeded data sets)."""
+    rng = np.random.default_rng(2024)
+    a_true = _amp(TEMPS)
+    n = 300
+    within1 = dict.fromkeys(TRUTH, 0)
+    within2 = dict.fromkeys(TRUTH, 0)
+    for _ in range(n):
+        a = a_true * (1 + 0.03 * rng.normal(size=TEMPS.size))
+        fit = fit_lphi_temperature(
+            TEMPS,
+            a,
+            path_length=L_PATH,
+            amplitude_err=0.03 * a_true,
+            thermal="ballistic",
+            thermal_energy=E_C,
+        )
+        for k, v in TRUTH.items():
+            z = abs(fit.values[k] - v) / fit.errors[k]
+            within1[k] += z < 1
+            within2[k] += z < 2
+    for k in TRUTH:
+        # binomial sd at n = 300 is 0.027; allow ~4 sd for the nonlinearity of the model
+        assert 0.58 <= within1[k] / n <= 0.80, (k, within1[k] / n)
+        assert within2[k] / n >= 0.90, (k, within2[k] / n)
+
+
+def test_fit_without_errors_scales_by_residuals():
+    rng = np.random.default_rng(5)
+    a = _amp(TEMPS) * (1 + 0.03 * rng.normal(size=TEMPS.size))
+    kw = {"path_length": L_PATH, "thermal": "ballistic", "thermal_energy": E_C}
+    fit = fit_lphi_temperature(TEMPS, a, **kw)
+    assert fit.sigma is None
+    # unit relative errors give the same weights; absolute_sigma=False rescales the
+    # covariance by chi2/dof (scipy.optimize.curve_fit convention)
+    unit = fit_lphi_temperature(TEMPS, a, amplitude_err=a, **kw)
+    for name in TRUTH:
+        assert fit.values[name] == pytest.approx(unit.values[name], rel=1e-6)
+        assert fit.errors[name] == pytest.approx(
+            unit.errors[name] * np.sqrt(unit.chi2 / unit.dof), rel=1e-4
+        )
+    # fitting E_c as well is allowed; its error is reported (weakly constrained here)
+    free = fit_lphi_temperature(
+        TEMPS, a, path_length=L_PATH, amplitude_err=0.03 * a, thermal="ballistic"
+    )
+    assert "thermal_energy" in free.values and np.isfinite(free.errors["thermal_energy"])
+
+
+def test_size_fit_recovers_lphi():
+    rng = np.random.default_rng(8)
+    radius = np.linspace(0.3e-6, 1.5e-6, 8)
+    lphi, lt = 1.5e-6, 1.2e-6
+    for order, thermal_length in ((1, None), (2, None), (1, lt)):
+        length = order * np.pi * radius
+        ft = 1.0 if thermal_length is None else np.minimum(1.0, thermal_length / length)
+        a_true = 0.8 * ft * np.exp(-length / lphi)
+        a = a_true * (1 + 0.05 * rng.normal(size=radius.size))
+        fit = fit_lphi_size(
+            radius, a, order=order, amplitude_err=0.05 * a_true, thermal_length=thermal_length
+        )
+        assert fit.success
+        assert abs(fit.values["lphi"] - lphi) < 3 * fit.errors["lphi"]
+        assert fit.values["lphi"] == pytest.approx(lphi, rel=0.1)
+        assert abs(fit.values["amplitude0"] - 0.8) < 3 * fit.errors["amplitude0"]
+        assert fit.predict(radius) == pytest.approx(a_true, rel=0.15)
+
+
+def test_size_fit_not_decaying_is_reported():
+    radius = np.linspace(0.3e-6, 1.0e-6, 5)
+    fit = fit_lphi_size(radius, np.array([0.1, 0.11, 0.1, 0.12, 0.13]))
+    assert not fit.success and np.isnan(fit.values["lphi"])
+    assert "does not decay" in fit.message
+    assert fit.values["inverse_lphi"] < 0
+
+
+def test_bad_input_names_parameter():
+    with pytest.raises(ParameterError, match="amplitude"):
+        fit_lphi_temperature(TEMPS, np.r_[np.nan, _amp(TEMPS[1:])], path_length=L_PATH)
+    with pytest.raises(ParameterError, match="radius/path_length"):
+        fit_lphi_temperature(TEMPS, _amp(TEMPS))
+    with pytest.raises(ParameterError, match="temperature"):
+        fit_lphi_temperature(TEMPS[:3], _amp(TEMPS[:3]), path_length=L_PATH)
+    with pytest.raises(ParameterError, match="order"):
+        fit_lphi_size([1e-6, 2e-6, 3e-6], [0.3, 0.2, 0.1], order=3)
+
+
+def test_end_to_end_temperature_file():
+    """Invented file -> traces per temperature -> amplitudes -> L_phi(T) fit."""
+    import importlib.util
+
+    spec = importlib.util.spec_from_file_location("mk", DATA / "make_analysis_data.py")
+    mk = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(mk)
+    t = mk.TRUTH["ring_temperatures.csv"]
+    temps, amps, errs = [], [], []
+    for tr in load_traces(DATA / "ring_temperatures.csv", group_by="T (K)"):
+        res = extract_oscillations(tr.field, tr.conductance, r_in=0.61e-6, r_out=0.65e-6)
+        temps.append(tr.temperature)
+        amps.append(res.amplitude_he_rms * np.sqrt(2))  # cosine amplitude
+        errs.append(max(res.noise_he_rms * np.sqrt(2), 1e-4))
+    fit = fit_lphi_temperature(
+        np.array(temps),
+        np.array(amps),
+        path_length=t["path_length"],
+        amplitude_err=np.array(errs),
+        thermal="ballistic",
+        thermal_energy=t["thermal_energy"],
+    )
+    truth = {"amplitude0": t["amp0"], "lphi_ref": t["lphi_1K"], "p": t["p"]}
+    for name, value in truth.items():
+        assert abs(fit.values[name] - value) < 3 * fit.errors[name] + 0.03 * value, name
+        assert fit.values[name] == pytest.approx(value, rel=0.15), name
