@@ -1,0 +1,50 @@
+"""Transport: Landauer conductance of built rings, datasets, closed-ring spectra.
+
+API (core)
+----------
+conductance(ring, *, B=0.0, flux=0.0, energy=None, gate=None, spin_resolved=False, zeeman=False)
+    Two-terminal G in units of e^2/h.
+transmission(ring, *, B=0.0, flux=0.0, energy=None, gate=None)
+    Spinless transmission T.
+field_sweep(ring, fields, ...), energy_sweep(ring, energies, ...), gate_sweep(ring, potentials, ...)
+    xarray datasets with data variable ``G`` [e^2/h], SI coordinates and full parameter attrs.
+save_dataset(ds, path), load_dataset(path), ring_attrs(ring), device_from_attrs(attrs)
+    Lossless netCDF (h5netcdf) I/O and provenance.
+closed_ring_spectrum(ring_or_device, fluxes, n_levels=10, ...) -> ClosedRingSpectrum
+    E_n(Phi) and persistent currents -dE/dPhi of the isolated ring.
+"""
+
+from __future__ import annotations
+
+from ringkit.transport.closed import ClosedRingSpectrum, closed_ring_spectrum
+from ringkit.transport.conductance import (
+    conductance,
+    energy_sweep,
+    field_sweep,
+    gate_sweep,
+    transmission,
+)
+from ringkit.transport.dataset import (
+    COORD_META,
+    device_from_attrs,
+    load_dataset,
+    make_dataset,
+    ring_attrs,
+    save_dataset,
+)
+
+__all__ = [
+    "conductance",
+    "transmission",
+    "field_sweep",
+    "energy_sweep",
+    "gate_sweep",
+    "save_dataset",
+    "load_dataset",
+    "make_dataset",
+    "ring_attrs",
+    "device_from_attrs",
+    "COORD_META",
+    "closed_ring_spectrum",
+    "ClosedRingSpectrum",
+]
