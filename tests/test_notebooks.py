@@ -1,0 +1,59 @@
+"""Execute the notebooks in notebooks/ with the venv's own kernel (nbclient, kernel "python3").
+
+The kernel is started from this interpreter's environment with MPLBACKEND removed (a
+pre-set MPLBACKEND=Agg silently suppresses figure output in kernels; see the tooling notes
+§2). Each notebook must run without errors, produce its PNG figures and its widgets, and
+the committed file must be stored without outputs.
+"""
+
+from __future__ import annotations
+
+import base64
+from pathlib import Path
+
+import pytest
+
+nbformat = pytest.importorskip("nbformat")
+nbclient = pytest.importorskip("nbclient")
+pytest.importorskip("ipykernel")
+
+NOTEBOOKS = Path(__file__).resolve().parents[1] / "notebooks"
+
+# notebook -> minimum number of PNG figures it must produce
+EXPECTED = {
+    "01_device_design.ipynb": 3,
+    "02_amplitude_vs_size.ipynb": 3,
+    "03_measured_vs_model.ipynb": 1,
+}
+
+
+def _outputs(nb):
+    for cell in nb.cells:
+        if cell.cell_type == "code":
+            yield from cell.get("outputs", [])
+
+
+@pytest.mark.notebook
+@pytest.mark.parametrize("name", sorted(EXPECTED))
+def test_notebook_runs_and_draws(name, tmp_path, monkeypatch):
+    monkeypatch.delenv("MPLBACKEND", raising=False)
+    path = NOTEBOOKS / name
+    nb = nbformat.read(path, as_version=4)
+    assert nb.metadata["kernelspec"]["name"] == "python3"
+    assert not any(True for _ in _outputs(nb)), "commit notebooks with outputs stripped"
+    client = nbclient.NotebookClient(
+        nb, kernel_name="python3", timeout=300, resources={"metadata": {"path": str(tmp_path)}}
+    )
+    client.execute()  # raises CellExecutionError on any error
+    outs = list(_outputs(nb))
+    assert not [o for o in outs if o.output_type == "error"]
+    pngs = [o for o in outs if "image/png" in o.get("data", {})]
+    assert len(pngs) >= EXPECTED[name], f"{name}: {len(pngs)} figures"
+    for o in pngs:
+        assert base64.b64decode(o["data"]["image/png"])[:8] == b"\x89PNG\r\n\x1a\n"
+    widgets = [o for o in outs if "application/vnd.jupyter.widget-view+json" in o.get("data", {})]
+    assert widgets, f"{name}: the interactive panel was not displayed"
+    text = "".join(o.get("text", "") for o in outs if o.output_type == "stream")
+    assert "Traceback" not in text
+    if name.startswith("03"):
+        assert "INVENTED" in "".join(c.source for c in nb.cells)
