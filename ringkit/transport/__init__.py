@@ -12,6 +12,15 @@ save_dataset(ds, path), load_dataset(path), ring_attrs(ring), device_from_attrs(
     Lossless netCDF (h5netcdf) I/O and provenance.
 closed_ring_spectrum(ring_or_device, fluxes, n_levels=10, ...) -> ClosedRingSpectrum
     E_n(Phi) and persistent currents -dE/dPhi of the isolated ring.
+
+API (engine)
+------------
+FieldSweeper, kron_reduce                   (fastsweep: fixed-pattern sweeps of any kwant system)
+FluxTubeSweeper, FluxTubeModel              (lowrank: exact low-rank flux-tube sweeps)
+thermal_weights, thermal_average, thermal_conductance   (thermal: -df/dE averaging)
+DephasingProbes, attach_probes, effective_conductance   (probes: Büttiker voltage probes)
+run_ensemble, SweepTask, EnsembleResult     (ensemble: any concurrent.futures executor)
+fast_field_conductance                      (sweep: the default path of field_sweep)
 """
 
 from __future__ import annotations
@@ -32,6 +41,12 @@ from ringkit.transport.dataset import (
     ring_attrs,
     save_dataset,
 )
+from ringkit.transport.ensemble import EnsembleResult, SweepTask, run_ensemble
+from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
+from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
+from ringkit.transport.probes import DephasingProbes, attach_probes, effective_conductance
+from ringkit.transport.sweep import fast_field_conductance
+from ringkit.transport.thermal import thermal_average, thermal_conductance, thermal_weights
 
 __all__ = [
     "conductance",
@@ -47,4 +62,18 @@ __all__ = [
     "COORD_META",
     "closed_ring_spectrum",
     "ClosedRingSpectrum",
+    "FieldSweeper",
+    "kron_reduce",
+    "FluxTubeSweeper",
+    "FluxTubeModel",
+    "thermal_weights",
+    "thermal_average",
+    "thermal_conductance",
+    "DephasingProbes",
+    "attach_probes",
+    "effective_conductance",
+    "run_ensemble",
+    "SweepTask",
+    "EnsembleResult",
+    "fast_field_conductance",
 ]

@@ -37,6 +37,7 @@ class SingularSystemError(RuntimeError):
     open system (kwant's own solver fails there too).
     """
 
+
 _ORDERINGS = {"amd": 0, "amf": 2, "scotch": 3, "pord": 4, "metis": 5, "qamd": 6, "auto": 7}
 
 

@@ -34,7 +34,7 @@ import kwant.solvers.mumps
 import numpy as np
 import xarray as xr
 
-from ringkit._validation import ParameterError
+from ringkit._validation import ParameterError, check_choice
 from ringkit.tightbinding.builder import TightBindingRing
 from ringkit.transport.dataset import make_dataset
 
@@ -184,24 +184,87 @@ def field_sweep(
     gate: float | None = None,
     spin_resolved: bool = False,
     zeeman: bool = False,
+    temperature: float = 0.0,
+    l_phi: float | None = None,
+    n_probes: int = 100,
+    method: str = "auto",
 ) -> xr.Dataset:
     """Conductance versus field: coordinate ``B`` [T] (uniform) or ``flux`` [Wb] (flux tube).
 
-    ``fields`` are in T for a uniform-field device and in Wb (flux through the hole) for a
-    flux-tube device. Warns once for the largest |B| (see :func:`conductance`).
+    Parameters
+    ----------
+    ring : TightBindingRing
+    fields : array_like
+        In T for a uniform-field device, in Wb (flux through the hole) for a flux-tube device.
+    energy : float, optional
+        Fermi energy in J above the band bottom (default: the material's).
+    gate : float, optional
+        Arm-gate potential in J (default: the device's ArmGate).
+    spin_resolved, zeeman : bool
+        See :func:`conductance` (these use the plain kwant path, coherent and at T = 0).
+    temperature : float
+        Temperature in K; ``G(B, T) = integral G(E, B)(-df/dE) dE`` on an energy grid set by
+        k_B T and the ring's correlation energy (number of energies in the attrs).
+    l_phi : float, optional
+        Phase-coherence length in m, realised by ``n_probes`` floating Büttiker probes along
+        both arms (None: fully coherent).
+    n_probes : int
+        Number of dephasing probes when ``l_phi`` is given.
+    method : {"auto", "fast", "kwant"}
+        "auto"/"fast": the fast solvers of :mod:`ringkit.transport.sweep` (fixed-pattern MUMPS
+        sweep in uniform field, exact low-rank update in flux-tube mode); "kwant": one
+        ``kwant.smatrix`` per point (reference path). "auto" uses "kwant" only for
+        ``zeeman``/``spin_resolved``.
+
+    Warns once for the largest |B| (see :func:`conductance`).
     """
     ring = _check_ring(ring)
     fields = np.asarray(fields, dtype=float)
     e = _energy_or_default(ring, energy)
     uniform = ring.field_mode == "uniform"
-    if uniform and fields.size:
+    check_choice("method", method, ("auto", "fast", "kwant"))
+    if fields.ndim != 1 or fields.size == 0 or not np.all(np.isfinite(fields)):
+        raise ParameterError(
+            ring.field_param, fields.shape, "must be a non-empty 1D array of finite values"
+        )
+    if uniform:
         ring.check_field(float(np.max(np.abs(fields))), stacklevel=2)
+    special = bool(zeeman or spin_resolved)
+    extended = bool(temperature) or (l_phi is not None and np.isfinite(l_phi))
+    if method == "auto":
+        method = "kwant" if special else "fast"
+    if special and method == "fast":
+        raise ParameterError("method", "fast", "zeeman/spin_resolved need method='kwant'")
+    if method == "kwant" and extended:
+        raise ParameterError(
+            "method", "kwant", "temperature and l_phi need the fast path (method='auto')"
+        )
+    attrs = {"energy_J": e, "zeeman": int(zeeman), **_gate_attr(ring, gate)}
+    if method == "fast":
+        from ringkit.transport.sweep import fast_field_conductance
+
+        res = fast_field_conductance(
+            ring,
+            fields,
+            energy=e,
+            gate=gate,
+            temperature=temperature,
+            l_phi=l_phi,
+            n_probes=n_probes,
+        )
+        info = dict(res.info)
+        attrs.update(
+            temperature_K=info.pop("temperature_K"),
+            l_phi_m=info.pop("l_phi_m"),
+            solver=info.pop("solver"),
+            **info,
+        )
+        return make_dataset(ring, ring.field_param, fields, res.conductance, attrs=attrs)
 
     def point(ev, v):
         b, f = (v, 0.0) if uniform else (0.0, v)
         return _point(ev, e, b, f, gate, spin_resolved, zeeman)
 
-    attrs = {"energy_J": e, "zeeman": int(zeeman), **_gate_attr(ring, gate)}
     return _sweep(ring, ring.field_param, fields, point, spin_resolved, attrs)
 
 

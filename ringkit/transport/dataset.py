@@ -171,9 +171,9 @@ def make_dataset(
         data_vars = {"G": (name, G, g_attrs)}
     all_attrs = ring_attrs(ring)
     all_attrs["spin_resolved"] = int(bool(spin_resolved))
+    all_attrs["solver"] = SOLVER_DESCRIPTION
     for k, v in (attrs or {}).items():
         all_attrs[k] = _attr_value(v)
-    all_attrs["solver"] = SOLVER_DESCRIPTION
     return xr.Dataset(data_vars=data_vars, coords=coords, attrs=all_attrs)
 
 
