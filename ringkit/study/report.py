@@ -1,0 +1,430 @@
+"""Outputs of a study: results netCDF, ``summary.json``, figures and a readable report.
+
+Files written into the output directory ``DIR``:
+
+``results.nc``
+    xarray Dataset (netCDF4/HDF5 via h5netcdf). ``G[realization, fermi_energy,
+    gate_potential, temperature, dephasing_length, B]`` in e^2/h on SI coordinates (T or Wb,
+    J, K, m; ``dephasing_length = inf`` is the coherent ring), ``G_mean`` (ensemble average),
+    the extracted periods, areas and amplitudes, and every study parameter in the attributes
+    (``"section.key [unit]"``), plus the study file itself (``study_toml``).
+``summary.json``
+    Extracted periods, areas and amplitudes per condition (ensemble-averaged trace and
+    statistics of the single realizations), JSON numbers in SI units, ``null`` for infinity.
+``figures/``
+    ``conductance``, ``spectra`` and ``amplitude`` figures (see :mod:`ringkit.study.figures`).
+``report.md`` or ``report.html``
+    Short report embedding the figures and listing every parameter.
+
+API
+---
+build_dataset(plan, results, setup) -> xarray.Dataset
+write_outputs(plan, results, out_dir, *, setup) -> dict of name -> Path
+"""
+
+from __future__ import annotations
+
+import html
+import json
+import math
+import time
+import warnings
+from collections.abc import Mapping
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from ringkit._version import __version__
+from ringkit.study.analyse import analyse_dataset
+from ringkit.study.checkpoint import UnitResult
+from ringkit.study.plan import StudyPlan
+from ringkit.study.quantities import format_quantity
+from ringkit.study.schema import SCHEMA
+from ringkit.study.setup import StudySetup
+
+__all__ = ["build_dataset", "write_outputs", "RESULTS_NAME", "SUMMARY_NAME"]
+
+RESULTS_NAME = "results.nc"
+SUMMARY_NAME = "summary.json"
+
+_UNITS = {
+    "field": "T",
+    "flux": "Wb",
+    "energy": "J",
+    "temperature": "K",
+    "length": "m",
+    "density": "m^-2",
+    "mobility": "m^2/(V s)",
+}
+
+
+def _param_attrs(plan: StudyPlan) -> dict[str, Any]:
+    """Every study parameter as a netCDF attribute ``"section.key [unit]"`` (SI values)."""
+    attrs: dict[str, Any] = {}
+    field_dim = "flux" if plan.field_name == "flux" else "field"
+    for sec, (_doc, keys) in SCHEMA.items():
+        for name, key in keys.items():
+            value = plan.config[sec][name]
+            if value is None:
+                continue
+            label = f"{sec}.{name}"
+            if key.kind in ("quantity", "quantities"):
+                dim = field_dim if len(key.dimensions) > 1 else key.dimensions[0]
+                label += f" [{_UNITS[dim]}]"
+                value = np.asarray(value, dtype=float) if key.kind == "quantities" else value
+            elif key.kind == "float" and name == "effective_mass":
+                label += " [m_e]"
+            if isinstance(value, bool):
+                value = int(value)
+            attrs[label] = value
+    return attrs
+
+
+def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: StudySetup):
+    """Assemble the unit results into one xarray Dataset (see the module docstring).
+
+    Parameters
+    ----------
+    plan : StudyPlan
+    results : mapping uid -> UnitResult
+        One result per unit of the plan.
+    setup : StudySetup
+        Derived device quantities (sites, lattice spacing, resolved Fermi energy, ...).
+
+    Returns
+    -------
+    xarray.Dataset
+    """
+    import xarray as xr
+
+    n_r, n_e, n_g, n_d = plan.shape
+    n_t, n_b = len(plan.temperatures), len(plan.field)
+    g = np.full((n_r, n_e, n_g, n_t, n_d, n_b), np.nan)
+    n_energies = np.zeros((n_r, n_e, n_g, n_t, n_d), dtype=np.int64)
+    elapsed = np.zeros((n_r, n_e, n_g, n_d))
+    for unit in plan.units:
+        res = results[unit.uid]
+        r, e, gi, d = unit.index
+        g[r, e, gi, :, d, :] = res.conductance
+        n_energies[r, e, gi, :, d] = res.n_energies
+        elapsed[r, e, gi, d] = res.elapsed
+    fname = plan.field_name
+    energies = [setup.fermi_energy if e is None else e for e in plan.fermi_energies]
+    dims = ("realization", "fermi_energy", "gate_potential", "temperature", "dephasing_length")
+    coords = {
+        "realization": ("realization", np.arange(n_r), {"long_name": "realization index"}),
+        "seed": ("realization", np.asarray(plan.seeds), {"long_name": "disorder seed"}),
+        "fermi_energy": (
+            "fermi_energy",
+            np.asarray(energies, float),
+            {"units": "J", "long_name": "Fermi energy"},
+        ),
+        "gate_potential": (
+            "gate_potential",
+            np.asarray(plan.gate_potentials, float),
+            {
+                "units": "J",
+                "long_name": "gate potential energy",
+                "arm": plan.config["sweep"]["gate_arm"],
+            },
+        ),
+        "temperature": (
+            "temperature",
+            np.asarray(plan.temperatures, float),
+            {"units": "K", "long_name": "temperature"},
+        ),
+        "dephasing_length": (
+            "dephasing_length",
+            np.asarray(plan.dephasing_lengths, float),
+            {
+                "units": "m",
+                "long_name": "phase-coherence length L_phi",
+                "comment": "inf = fully coherent (no dephasing probes)",
+            },
+        ),
+        fname: (
+            fname,
+            plan.field,
+            {"units": "T", "long_name": "magnetic field B along +z"}
+            if fname == "B"
+            else {"units": "Wb", "long_name": "Aharonov-Bohm flux through the hole"},
+        ),
+    }
+    ds = xr.Dataset(
+        {
+            "G": (
+                (*dims, fname),
+                g,
+                {"units": "e^2/h", "long_name": "two-terminal conductance (spin-degenerate)"},
+            ),
+            "G_mean": (
+                (*dims[1:], fname),
+                g.mean(axis=0),
+                {"units": "e^2/h", "long_name": "ensemble-averaged conductance"},
+            ),
+            "n_thermal_energies": (
+                dims,
+                n_energies,
+                {"long_name": "energies in the thermal average"},
+            ),
+            "compute_seconds": (
+                ("realization", "fermi_energy", "gate_potential", "dephasing_length"),
+                elapsed,
+                {"units": "s", "long_name": "wall-clock time per work unit"},
+            ),
+        },
+        coords=coords,
+    )
+    ds.attrs.update(
+        {
+            "title": plan.config["study"]["name"],
+            "description": plan.config["study"]["description"],
+            "ringkit_version": __version__,
+            "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+            "study_fingerprint": plan.config.fingerprint,
+            "study_toml": plan.config.to_toml(),
+            "conventions": "SI units; conductance in e^2/h; B along +z; carriers electrons",
+        }
+    )
+    ds.attrs.update(_param_attrs(plan))
+    ds.attrs.update({f"derived.{k}": v for k, v in setup.attrs().items()})
+    return ds
+
+
+def _json_number(v: Any) -> Any:
+    if isinstance(v, float | np.floating):
+        v = float(v)
+        return None if not math.isfinite(v) else v
+    if isinstance(v, np.integer):
+        return int(v)
+    if isinstance(v, Mapping):
+        return {k: _json_number(x) for k, x in v.items()}
+    if isinstance(v, list | tuple):
+        return [_json_number(x) for x in v]
+    return v
+
+
+def _save_netcdf(ds, path: Path) -> None:
+    try:
+        from ringkit.transport.dataset import save_dataset
+    except ImportError:  # core I/O not available: plain xarray, same engine
+        save_dataset = None
+    tmp = path.with_name(f".{path.name}.tmp")
+    if save_dataset is not None:
+        save_dataset(ds, tmp)
+    else:
+        ds.to_netcdf(tmp, engine="h5netcdf")
+    tmp.replace(path)
+
+
+def write_outputs(
+    plan: StudyPlan, results: Mapping[str, UnitResult], out_dir: Path, *, setup: StudySetup
+) -> dict[str, Path]:
+    """Write results.nc, summary.json, figures and the report; return their paths."""
+    from ringkit.study import figures
+
+    out_dir = Path(out_dir)
+    ds = build_dataset(plan, results, setup)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        analysis, summary = analyse_dataset(plan, ds, setup)
+    notes = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
+    ds = ds.merge(analysis)
+    files: dict[str, Path] = {}
+    files["results"] = out_dir / RESULTS_NAME
+    _save_netcdf(ds, files["results"])
+    summary = {
+        "study": plan.config["study"]["name"],
+        "ringkit_version": __version__,
+        "study_fingerprint": plan.config.fingerprint,
+        "n_work_units": len(plan.units),
+        "conventions": "SI units (T, Wb, J, K, m, m^2); conductance in e^2/h; null = infinite",
+        "device": setup.summary(),
+        "device_notes": list(setup.notes),
+        **summary,
+        "analysis_warnings": notes,
+    }
+    files["summary"] = out_dir / SUMMARY_NAME
+    files["summary"].write_text(json.dumps(_json_number(summary), indent=2) + "\n")
+    figure_files: dict[str, Path] = {}
+    out_cfg = plan.config["output"]
+    if out_cfg["figures"]:
+        fig_dir = out_dir / "figures"
+        fig_dir.mkdir(exist_ok=True)
+        figure_files = figures.write_figures(
+            plan, ds, fig_dir, fmt=out_cfg["figure_format"], dpi=out_cfg["dpi"], setup=setup
+        )
+        files.update({f"figure:{k}": v for k, v in figure_files.items()})
+    kind = out_cfg["report"]
+    files["report"] = out_dir / ("report.md" if kind == "markdown" else "report.html")
+    blocks = _report_blocks(plan, ds, setup, summary, figure_files, out_dir)
+    text = _render_markdown(blocks) if kind == "markdown" else _render_html(blocks, plan)
+    files["report"].write_text(text, encoding="utf-8")
+    return files
+
+
+# ----------------------------------------------------------------------------- report text
+def _fmt(v: Any, dim: str | None = None, digits: int = 4) -> str:
+    if v is None:
+        return "inf" if dim == "length" else "-"
+    v = float(v)
+    if not math.isfinite(v):
+        return "inf" if v > 0 else ("-" if math.isnan(v) else "-inf")
+    if dim:
+        return format_quantity(v, dim, digits)
+    return f"{v:.{digits}g}"
+
+
+def _report_blocks(
+    plan: StudyPlan,
+    ds,
+    setup: StudySetup,
+    summary: Mapping[str, Any],
+    figure_files: Mapping[str, Path],
+    out_dir: Path,
+) -> list[tuple]:
+    cfg = plan.config
+    b: list[tuple] = [("h1", cfg["study"]["name"])]
+    if cfg["study"]["description"]:
+        b.append(("p", cfg["study"]["description"]))
+    b.append(
+        (
+            "p",
+            f"Computed with ringkit {__version__}: {len(plan.units)} work units "
+            f"({len(plan.seeds)} disorder realizations x {len(plan.units) // len(plan.seeds)} "
+            f"outer combinations), {len(plan.field)} field points, "
+            f"{len(plan.temperatures)} temperature(s); compute time "
+            f"{float(ds['compute_seconds'].sum()):.0f} s summed over the work units. "
+            f"Results: `{RESULTS_NAME}`, `{SUMMARY_NAME}`.",
+        )
+    )
+    b.append(("h2", "Extracted oscillations"))
+    b.append(("p", summary.get("explanation", "")))
+    head = [
+        "E_F",
+        "gate",
+        "T",
+        "L_phi",
+        "<G> (e²/h)",
+        "period h/e",
+        "area (µm²)",
+        "r_eff",
+        "h/e rms of <G>",
+        "h/2e rms of <G>",
+        "h/e rms single",
+        "h/2e rms single",
+    ]
+    rows = []
+    for c in summary["conditions"]:
+        m, s = c["ensemble_mean"], c["single_realizations"]
+        period_dim = "flux" if plan.field_name == "flux" else "field"
+        area = m.get("area_m2")
+        rows.append(
+            [
+                _fmt(c["fermi_energy_J"], "energy"),
+                _fmt(c["gate_potential_J"], "energy"),
+                _fmt(c["temperature_K"], "temperature"),
+                _fmt(c["dephasing_length_m"], "length"),
+                _fmt(c["mean_conductance_e2h"]),
+                _fmt(m.get("period_he_Wb" if period_dim == "flux" else "period_he_T"), period_dim),
+                "-" if area is None else f"{area * 1e12:.4g}",
+                _fmt(m.get("radius_m"), "length"),
+                _fmt(m.get("amplitude_he_rms_e2h")),
+                _fmt(m.get("amplitude_h2e_rms_e2h")),
+                _fmt(s.get("amplitude_he_rms_e2h", {}).get("mean")),
+                _fmt(s.get("amplitude_h2e_rms_e2h", {}).get("mean")),
+            ]
+        )
+    b.append(("table", head, rows))
+    if summary.get("analysis_warnings"):
+        b.append(("p", "Analysis warnings: " + "; ".join(summary["analysis_warnings"])))
+    if figure_files:
+        b.append(("h2", "Figures"))
+        captions = {
+            "conductance": "G(B): single disorder realizations (thin) and the ensemble "
+            "average (thick) for each condition; bars mark the expected h/e and h/2e periods.",
+            "spectra": "Oscillation spectra (background removed) of one realization and of the "
+            "ensemble average; shaded: h/e and h/2e bands from r_in and r_out.",
+            "amplitude": "h/e and h/2e amplitudes (rms of the band content) versus the swept "
+            "parameter: filled circles, mean over the single realizations; open squares, the "
+            "ensemble-averaged trace; line styles distinguish the other swept parameters.",
+        }
+        for name, path in figure_files.items():
+            b.append(("img", str(path.relative_to(out_dir)), captions.get(name, name)))
+    b.append(("h2", "Device (derived)"))
+    b.append(("table", ["quantity", "value"], [[k, v] for k, v in setup.describe()]))
+    b.append(("h2", "Parameters"))
+    b.append(
+        (
+            "p",
+            "Every key of the study file (values in the units shown; (not set) = "
+            "default of the physics layer).",
+        )
+    )
+    b.append(("table", ["parameter", "value", "meaning"], [list(r) for r in cfg.describe()]))
+    b.append(("h2", "Study file"))
+    b.append(("code", cfg.to_toml()))
+    return b
+
+
+def _md_cell(text: str) -> str:
+    return str(text).replace("|", "\\|").replace("\n", " ")
+
+
+def _render_markdown(blocks: list[tuple]) -> str:
+    out: list[str] = []
+    for blk in blocks:
+        kind = blk[0]
+        if kind == "h1":
+            out += [f"# {blk[1]}", ""]
+        elif kind == "h2":
+            out += [f"## {blk[1]}", ""]
+        elif kind == "p":
+            if blk[1]:
+                out += [blk[1], ""]
+        elif kind == "table":
+            head, rows = blk[1], blk[2]
+            out.append("| " + " | ".join(_md_cell(h) for h in head) + " |")
+            out.append("|" + "---|" * len(head))
+            out += ["| " + " | ".join(_md_cell(c) for c in row) + " |" for row in rows]
+            out.append("")
+        elif kind == "img":
+            out += [f"![{blk[2]}]({blk[1]})", "", f"*{blk[2]}*", ""]
+        elif kind == "code":
+            out += ["```toml", blk[1].rstrip(), "```", ""]
+    return "\n".join(out)
+
+
+def _render_html(blocks: list[tuple], plan: StudyPlan) -> str:
+    e = html.escape
+    out = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        f"<title>{e(plan.config['study']['name'])}</title>",
+        "<style>body{font-family:sans-serif;max-width:70em;margin:2em auto;padding:0 1em}"
+        "table{border-collapse:collapse;font-size:90%}td,th{border:1px solid #ccc;"
+        "padding:2px 6px}img{max-width:100%}pre{background:#f4f4f4;padding:1em}</style>",
+        "</head><body>",
+    ]
+    for blk in blocks:
+        kind = blk[0]
+        if kind in ("h1", "h2"):
+            out.append(f"<{kind}>{e(blk[1])}</{kind}>")
+        elif kind == "p" and blk[1]:
+            out.append(f"<p>{e(blk[1])}</p>")
+        elif kind == "table":
+            out.append("<table><tr>" + "".join(f"<th>{e(str(h))}</th>" for h in blk[1]) + "</tr>")
+            out += [
+                "<tr>" + "".join(f"<td>{e(str(c))}</td>" for c in row) + "</tr>" for row in blk[2]
+            ]
+            out.append("</table>")
+        elif kind == "img":
+            out.append(
+                f'<figure><img src="{e(blk[1])}" alt="{e(blk[2])}">'
+                f"<figcaption>{e(blk[2])}</figcaption></figure>"
+            )
+        elif kind == "code":
+            out.append(f"<pre>{e(blk[1])}</pre>")
+    out.append("</body></html>")
+    return "\n".join(out) + "\n"

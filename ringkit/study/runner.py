@@ -1,0 +1,385 @@
+"""Running a study: executors, progress bar, checkpointed resumable execution, outputs.
+
+:func:`run_study` expands the study into work units, skips those already in the checkpoint,
+runs the rest on the configured executor (local processes, this process, or a dask cluster)
+with a tqdm progress bar, stores every finished unit at once, and finally writes the results
+(netCDF), ``summary.json``, figures and the report. Ctrl-C or a killed process loses at most
+the units that were running; running the same study into the same directory resumes.
+Results do not depend on the executor, the number of workers or the completion order: every
+unit is deterministic and the result is assembled by unit id.
+
+API
+---
+run_study(config, out_dir, *, executor=None, progress=True, restart=False) -> StudyOutcome
+StudyOutcome
+open_executor(config, *, workers=None) -> context manager yielding an Executor or None
+UnitFailed
+"""
+
+from __future__ import annotations
+
+import contextlib
+import multiprocessing
+import os
+import time
+from collections.abc import Callable, Iterator
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
+from dataclasses import dataclass
+from pathlib import Path
+
+from ringkit.study import compute
+from ringkit.study.checkpoint import Checkpoint, CheckpointMismatch, UnitResult
+from ringkit.study.config import ConfigError, StudyConfig
+from ringkit.study.plan import StudyPlan, WorkUnit, make_plan
+from ringkit.study.setup import StudySetup, check_setup
+
+__all__ = ["run_study", "StudyOutcome", "open_executor", "UnitFailed"]
+
+
+class UnitFailed(RuntimeError):
+    """One or more work units raised; finished units are kept in the checkpoint."""
+
+
+@dataclass(frozen=True)
+class StudyOutcome:
+    """What a study run produced.
+
+    Attributes
+    ----------
+    out_dir : pathlib.Path
+        Output directory.
+    files : dict of str to pathlib.Path
+        ``"results"`` (netCDF), ``"summary"`` (JSON), ``"report"`` and ``"figure:<name>"``.
+    n_units, n_computed, n_reused : int
+        Work units in the study, computed in this run, taken from the checkpoint.
+    elapsed : float
+        Wall-clock seconds of this run.
+    """
+
+    out_dir: Path
+    files: dict[str, Path]
+    n_units: int
+    n_computed: int
+    n_reused: int
+    elapsed: float
+
+
+@contextlib.contextmanager
+def open_executor(config: StudyConfig, *, workers: int | None = None) -> Iterator[Executor | None]:
+    """Executor described by the ``[executor]`` section (``None`` = run in this process).
+
+    Parameters
+    ----------
+    config : StudyConfig
+        Validated study; ``executor.kind`` is ``"process"``, ``"serial"`` or ``"dask"``.
+    workers : int, optional
+        Overrides ``executor.workers`` (default: number of CPUs).
+
+    Notes
+    -----
+    ``"dask"`` connects a ``dask.distributed.Client`` to ``executor.address`` (or starts a
+    local cluster) and uses ``client.get_executor(pure=False)``; ``pure=False`` matters, since
+    dask would otherwise merge tasks with equal arguments.
+    """
+    ex = config["executor"]
+    n = workers or ex["workers"] or os.cpu_count() or 1
+    kind = ex["kind"]
+    if kind == "serial":
+        yield None
+    elif kind == "process":
+        pool = ProcessPoolExecutor(
+            max_workers=n,
+            mp_context=multiprocessing.get_context("spawn"),
+            initializer=_worker_init,
+            initargs=(os.getpid(),),
+        )
+        try:
+            yield pool
+        except BaseException:
+            _terminate_workers(pool)
+            raise
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+    elif kind == "dask":
+        with _dask_executor(ex["address"], n) as dex:
+            yield dex
+    else:  # pragma: no cover - the schema allows only the kinds above
+        raise ConfigError(f"executor.kind = {kind!r} is not supported")
+
+
+def _worker_init(parent_pid: int) -> None:
+    """Worker set-up: ignore Ctrl-C (the parent stops the pool) and die with the parent.
+
+    A killed parent must not leave workers behind: on Linux the kernel delivers SIGKILL when
+    the parent exits (``prctl(PR_SET_PDEATHSIG)``); elsewhere a watchdog thread notices that
+    the worker was re-parented.
+    """
+    import signal
+    import threading
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    with contextlib.suppress(Exception):  # Linux only
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)  # PR_SET_PDEATHSIG
+    if os.getppid() != parent_pid:  # the parent died before we got here
+        os._exit(1)
+
+    def watch() -> None:
+        while True:
+            time.sleep(1.0)
+            if os.getppid() != parent_pid:
+                os._exit(1)
+
+    threading.Thread(target=watch, name="ringkit-parent-watch", daemon=True).start()
+
+
+def _terminate_workers(pool: ProcessPoolExecutor) -> None:
+    """Stop the pool's worker processes at once (after Ctrl-C or an error)."""
+    for proc in list((getattr(pool, "_processes", None) or {}).values()):
+        with contextlib.suppress(Exception):
+            proc.terminate()
+
+
+@contextlib.contextmanager
+def _exclusive(out_dir: Path) -> Iterator[None]:
+    """Hold an exclusive lock on ``out_dir`` (two runs must not share a checkpoint).
+
+    The lock is an ``flock`` on ``out_dir/.ringkit-lock``; the kernel releases it when the
+    process ends in any way, so a killed run never leaves a stale lock. No-op where ``fcntl``
+    is unavailable.
+    """
+    try:
+        import fcntl
+    except ImportError:  # pragma: no cover - non-POSIX
+        yield
+        return
+    with open(out_dir / ".ringkit-lock", "a+") as fh:
+        try:
+            fcntl.flock(fh, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            raise CheckpointMismatch(
+                f"{out_dir} is in use by another ringkit run; wait for it or choose another --out"
+            ) from None
+        try:
+            yield
+        finally:
+            fcntl.flock(fh, fcntl.LOCK_UN)
+
+
+@contextlib.contextmanager
+def _dask_executor(address: str | None, n_workers: int) -> Iterator[Executor]:
+    try:
+        from distributed import Client, LocalCluster
+    except ImportError as err:
+        raise ConfigError(
+            'executor.kind = "dask" needs dask.distributed: pip install "ringkit[dask]"'
+        ) from err
+    if address:
+        try:
+            client = Client(address, timeout="10s")
+        except (OSError, TimeoutError) as err:
+            raise ConfigError(
+                f'executor.address = "{address}": cannot reach the dask scheduler ({err})'
+            ) from None
+        with client:
+            yield client.get_executor(pure=False)
+    else:
+        with (
+            LocalCluster(
+                n_workers=n_workers,
+                threads_per_worker=1,
+                processes=True,
+                dashboard_address=None,
+                host="127.0.0.1",
+            ) as cluster,
+            Client(cluster) as client,
+        ):
+            yield client.get_executor(pure=False)
+
+
+def _describe_unit(plan: StudyPlan, unit: WorkUnit) -> str:
+    from ringkit.study.quantities import format_quantity
+
+    e = "material" if unit.fermi_energy is None else format_quantity(unit.fermi_energy, "energy")
+    return (
+        f"work unit {unit.uid} (disorder seed {unit.seed}, E_F = {e}, gate = "
+        f"{format_quantity(unit.gate_potential, 'energy')}, "
+        f"L_phi = {format_quantity(unit.dephasing_length, 'length')})"
+    )
+
+
+def _execute(
+    plan: StudyPlan,
+    pending: list[WorkUnit],
+    executor: Executor | None,
+    ckpt: Checkpoint,
+    *,
+    progress: bool,
+    n_done: int,
+) -> None:
+    """Compute ``pending`` units (in this process when ``executor`` is None), saving each."""
+    from tqdm.auto import tqdm
+
+    tasks = compute.make_tasks(plan, pending)
+    bar = tqdm(
+        total=len(plan.units),
+        initial=n_done,
+        desc=f"{plan.config['study']['name']}",
+        unit="unit",
+        disable=not progress,
+        dynamic_ncols=True,
+    )
+    failures: list[str] = []
+    with bar:
+        if executor is None:
+            for task in tasks:
+                try:
+                    result = compute.compute_unit(task)
+                except Exception as err:  # reported with the unit; the others go on
+                    failures.append(f"{_describe_unit(plan, task.unit)} failed: {err!r}")
+                    bar.write(f"ringkit: {failures[-1]}")
+                    continue
+                ckpt.save(result)
+                bar.update(1)
+        else:
+            _run_on(executor, plan, tasks, ckpt, bar, failures)
+    if failures:
+        raise UnitFailed(
+            f"{len(failures)} of {len(pending)} work units failed; the first: {failures[0]}. "
+            "Finished units are kept in the checkpoint; run the same command again to retry."
+        )
+
+
+def _run_on(
+    executor: Executor,
+    plan: StudyPlan,
+    tasks: list[compute.UnitTask],
+    ckpt: Checkpoint,
+    bar,
+    failures: list[str],
+) -> None:
+    """Submit every task to ``executor``; save results as they complete.
+
+    On any interruption (Ctrl-C, an error while saving) the pending futures are cancelled
+    and the results that completed meanwhile are still saved before re-raising.
+    """
+    futures: dict[Future[UnitResult], WorkUnit] = {
+        executor.submit(compute.compute_unit, t): t.unit for t in tasks
+    }
+    saved: set[str] = set()
+    try:
+        for fut in as_completed(futures):
+            unit = futures[fut]
+            err = fut.exception()
+            if err is not None:
+                failures.append(f"{_describe_unit(plan, unit)} failed: {err!r}")
+                bar.write(f"ringkit: {failures[-1]}")
+                continue
+            ckpt.save(fut.result())
+            saved.add(unit.uid)
+            bar.update(1)
+    except BaseException:
+        for fut in futures:
+            fut.cancel()
+        for fut, unit in futures.items():  # keep what finished while we were interrupted
+            if unit.uid not in saved and fut.done() and not fut.cancelled():
+                if fut.exception() is None:
+                    ckpt.save(fut.result())
+        raise
+
+
+def run_study(
+    config: StudyConfig,
+    out_dir: str | Path,
+    *,
+    executor: Executor | None = None,
+    progress: bool = True,
+    restart: bool = False,
+    workers: int | None = None,
+    echo: Callable[[str], None] | None = None,
+) -> StudyOutcome:
+    """Run (or resume) a study and write its outputs into ``out_dir``.
+
+    Parameters
+    ----------
+    config : StudyConfig
+        Validated study (see :func:`ringkit.study.load_config`).
+    out_dir : path
+        Output directory; created if needed. It holds the checkpoint, ``results.nc``,
+        ``summary.json``, ``figures/`` and ``report.md`` (or ``report.html``).
+    executor : concurrent.futures.Executor, optional
+        Run the units here instead of the executor described by the study file.
+    progress : bool
+        Show a tqdm progress bar (text in a terminal, a widget in a notebook).
+    restart : bool
+        Discard an existing checkpoint in ``out_dir`` first.
+    workers : int, optional
+        Overrides ``executor.workers``.
+    echo : callable, optional
+        Receives one-line status messages (e.g. ``print``).
+
+    Returns
+    -------
+    StudyOutcome
+
+    Raises
+    ------
+    ringkit.study.checkpoint.CheckpointMismatch
+        ``out_dir`` holds a checkpoint of a different study.
+    UnitFailed
+        Some units raised (the others are kept).
+    KeyboardInterrupt
+        Propagated after cancelling pending work; finished units stay in the checkpoint.
+    """
+    t0 = time.perf_counter()
+    say = echo or (lambda _msg: None)
+    out = Path(out_dir)
+    plan = make_plan(config)
+    setup = check_setup(plan)  # device errors surface before any work starts
+    for note in setup.notes:
+        say(note)
+    out.mkdir(parents=True, exist_ok=True)
+    with _exclusive(out):
+        return _run_locked(plan, setup, out, executor, progress, restart, workers, say, t0)
+
+
+def _run_locked(
+    plan: StudyPlan,
+    setup: StudySetup,
+    out: Path,
+    executor: Executor | None,
+    progress: bool,
+    restart: bool,
+    workers: int | None,
+    say: Callable[[str], None],
+    t0: float,
+) -> StudyOutcome:
+    """The part of :func:`run_study` done while holding the output-directory lock."""
+    from ringkit.study import report
+
+    config = plan.config
+    ckpt = Checkpoint.open(out, plan, restart=restart)
+    done = ckpt.done() & set(plan.uids)
+    pending = [u for u in plan.units if u.uid not in done]
+    say(
+        f"study {config['study']['name']!r}: {len(plan.units)} work units "
+        f"({setup.n_sites} sites, {len(plan.field)} field points); "
+        f"{len(done)} from the checkpoint, {len(pending)} to compute"
+    )
+    if pending:
+        if executor is not None or len(pending) == 1:
+            _execute(plan, pending, executor, ckpt, progress=progress, n_done=len(done))
+        else:
+            with open_executor(config, workers=workers) as ex:
+                _execute(plan, pending, ex, ckpt, progress=progress, n_done=len(done))
+    results = {uid: ckpt.load(uid) for uid in plan.uids}
+    files = report.write_outputs(plan, results, out, setup=setup)
+    return StudyOutcome(
+        out_dir=out,
+        files=files,
+        n_units=len(plan.units),
+        n_computed=len(pending),
+        n_reused=len(done),
+        elapsed=time.perf_counter() - t0,
+    )

@@ -1,0 +1,328 @@
+"""Study set-up: the devices of a study, checked before any work starts.
+
+:func:`check_setup` builds every distinct :class:`ringkit.device.RingDevice` of the plan and the
+first realization's lattice, so that a bad parameter (Fermi energy outside the lattice band,
+leads without an open channel, too many sites or probes) fails at once with the study-file key
+in the message. It returns the derived numbers shared by every work unit and the reports.
+
+API
+---
+StudySetup
+    Derived device quantities (lattice spacing, sites, bands, correlation energy, ...).
+check_setup(plan) -> StudySetup
+make_device(physics, fermi_energy, gate_potential) -> RingDevice
+correlation_energy(device) -> float
+thermal_grid(device, temperature, thermal) -> ThermalGrid
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ringkit._validation import ParameterError
+from ringkit.study.plan import StudyPlan
+from ringkit.study.quantities import format_quantity
+from ringkit.units import ab_period
+
+__all__ = ["StudySetup", "check_setup", "make_device", "correlation_energy", "thermal_grid"]
+
+
+@dataclass(frozen=True)
+class StudySetup:
+    """Quantities derived from the device before any computation (same for every unit).
+
+    Attributes
+    ----------
+    n_sites : int
+        Number of lattice sites of the first realization's scattering region.
+    lattice_spacing, hopping : float
+        Resolved lattice spacing a in m and hopping t in J.
+    fermi_energy : float
+        Fermi energy in J of the material (used when the study sweeps none).
+    r_in, r_out : float
+        Ring radii in m (bands of the analysis).
+    expected_period_he : float
+        h/e period ``h/(e pi r_m^2)`` in T of the mean radius.
+    details : dict
+        Further device numbers for reports (kF, lambda_F, mean free path, ...).
+    notes : tuple of str
+        Warnings raised while checking the devices (reported, not fatal).
+    device_attrs : dict
+        netCDF attributes of the first realization's ring (``ringkit.transport.ring_attrs``,
+        prefixed ``reference_device.``).
+    """
+
+    n_sites: int
+    lattice_spacing: float
+    hopping: float
+    fermi_energy: float
+    r_in: float
+    r_out: float
+    expected_period_he: float
+    details: dict[str, Any] = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
+    device_attrs: dict[str, Any] = field(default_factory=dict)
+
+    def attrs(self) -> dict[str, Any]:
+        """Flat numeric attributes for the netCDF file (SI)."""
+        out = {
+            "n_sites": self.n_sites,
+            "lattice_spacing [m]": self.lattice_spacing,
+            "hopping [J]": self.hopping,
+            "material_fermi_energy [J]": self.fermi_energy,
+            "expected_period_he [T]": self.expected_period_he,
+        }
+        out.update({k: v for k, v in self.details.items() if isinstance(v, int | float | str)})
+        out.update(self.device_attrs)
+        return out
+
+    def summary(self) -> dict[str, Any]:
+        """JSON-able device summary for ``summary.json``."""
+        return {
+            "n_sites": self.n_sites,
+            "lattice_spacing_m": self.lattice_spacing,
+            "hopping_J": self.hopping,
+            "material_fermi_energy_J": self.fermi_energy,
+            "r_in_m": self.r_in,
+            "r_out_m": self.r_out,
+            "expected_period_he_T": self.expected_period_he,
+            **{
+                k.replace(" [", "_").replace("]", "").replace("^", ""): v
+                for k, v in self.details.items()
+            },
+        }
+
+    def describe(self) -> list[tuple[str, str]]:
+        """Rows ``(quantity, value)`` for the report."""
+        rows = [
+            ("lattice sites (realization 0)", f"{self.n_sites:,}"),
+            ("lattice spacing a", format_quantity(self.lattice_spacing, "length", 6)),
+            ("hopping t = hbar^2/(2 m* a^2)", format_quantity(self.hopping, "energy", 6)),
+            ("Fermi energy of the material", format_quantity(self.fermi_energy, "energy", 6)),
+            ("r_in", format_quantity(self.r_in, "length", 6)),
+            ("r_out", format_quantity(self.r_out, "length", 6)),
+            (
+                "expected h/e period (mean radius)",
+                format_quantity(self.expected_period_he, "field", 6),
+            ),
+        ]
+        rows += [
+            (k, f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in self.details.items()
+        ]
+        return rows
+
+
+def make_device(
+    physics: dict[str, dict[str, Any]], fermi_energy: float | None, gate_potential: float
+):
+    """The :class:`ringkit.device.RingDevice` of one unit (SI inputs from the study file)."""
+    from ringkit.device import ArmGate, Material, RingDevice, RingGeometry
+
+    m = physics["material"]
+    overrides = {
+        k: m[k]
+        for k in (
+            "effective_mass",
+            "fermi_energy",
+            "density",
+            "mobility",
+            "mean_free_path",
+            "disorder_strength",
+        )
+        if m[k] is not None
+    }
+    if fermi_energy is not None:
+        overrides.pop("density", None)
+        overrides["fermi_energy"] = fermi_energy
+    material = Material.preset(m["preset"], **overrides)
+    g = physics["geometry"]
+    geometry = RingGeometry.circular(
+        g["r_in"], g["r_out"], **({"lead_width": g["lead_width"]} if g["lead_width"] else {})
+    )
+    sw = physics["sweep"]
+    gate = ArmGate(arm=sw["gate_arm"], potential=gate_potential) if gate_potential else None
+    lat = physics["lattice"]
+    kwargs: dict[str, Any] = {"field_mode": physics["field"]["mode"]}
+    if lat["spacing"] is not None:
+        kwargs["lattice_spacing"] = lat["spacing"]
+    if lat["max_sites"] is not None:
+        kwargs["max_sites"] = lat["max_sites"]
+    return RingDevice(material, geometry, gate=gate, **kwargs)
+
+
+# device-layer parameter names -> study-file keys (for error messages)
+_STUDY_KEYS = {
+    "effective_mass": ("material.effective_mass", "m_e"),
+    "fermi_energy": ("material.fermi_energy (or sweep.fermi_energy)", "J"),
+    "density": ("material.density", "m^-2"),
+    "mobility": ("material.mobility", "m^2/Vs"),
+    "mean_free_path": ("material.mean_free_path", "m"),
+    "disorder_strength": ("material.disorder_strength", "J"),
+    "r_in": ("geometry.r_in", "m"),
+    "r_out": ("geometry.r_out", "m"),
+    "lead_width": ("geometry.lead_width", "m"),
+    "lattice_spacing": ("lattice.spacing", "m"),
+    "n_sites": ("number of lattice sites (see lattice.max_sites)", ""),
+    "potential": ("sweep.gate_potential", "J"),
+}
+
+
+@contextlib.contextmanager
+def _study_names():
+    """Re-raise device-layer ParameterErrors under the study-file key they come from."""
+    try:
+        yield
+    except ParameterError as err:
+        if err.name not in _STUDY_KEYS:
+            raise
+        key, unit = _STUDY_KEYS[err.name]
+        raise ParameterError(key, err.value, err.allowed, unit) from err
+
+
+def check_setup(plan: StudyPlan) -> StudySetup:
+    """Check every distinct device of the plan and build the first ring, before any work.
+
+    The first unit's ring is built here (one lattice build) to report its real size,
+    disorder strength and Born mean free path, and, with finite dephasing lengths, to check
+    that the probes fit on the ring. Warnings (e.g. a coarse lattice) become ``notes``.
+
+    Raises
+    ------
+    ringkit.ParameterError
+        A device is invalid (Fermi energy outside the lattice band, too many sites, too many
+        probes for the ring, ...).
+    """
+    import warnings
+
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.dataset import ring_attrs
+
+    physics = plan.config.physics()
+    with warnings.catch_warnings(record=True) as caught, _study_names():
+        warnings.simplefilter("always")
+        for e in plan.fermi_energies:
+            for gpot in plan.gate_potentials:
+                make_device(physics, e, gpot).check_size()
+        first = plan.units[0]
+        ring = build_ring(make_device(physics, first.fermi_energy, 0.0), seed=first.seed)
+        ring.check_field(float(np.max(np.abs(plan.field))) if plan.field_name == "B" else 0.0)
+    notes = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
+    n_thermal: list[int] = []
+    for e in plan.fermi_energies:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # already reported above
+            device = make_device(physics, e, 0.0)
+        for temp in plan.temperatures:
+            grid = thermal_grid(device, temp, physics["thermal"])
+            _check_window(ring, grid, temp)
+            if e == plan.fermi_energies[0]:
+                n_thermal.append(grid.n_energies)
+    if any(math.isfinite(d) for d in plan.dephasing_lengths):
+        from ringkit.transport.probes import ring_probe_sites
+
+        ring_probe_sites(ring.fsyst, physics["dephasing"]["probes"])
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        base = make_device(physics, None, 0.0)
+    mat = base.material
+    geo = base.geometry
+    r_m = 0.5 * (geo.r_in + geo.r_out)
+    details: dict[str, Any] = {
+        "kF [1/m]": mat.fermi_wavevector,
+        "fermi_wavelength [m]": mat.fermi_wavelength,
+        "fermi_velocity [m/s]": mat.fermi_velocity,
+        "kF a": base.kfa,
+        "dispersion_error": base.dispersion_error,
+        "effective_mass [m_e]": mat.effective_mass,
+        "lead_sites_across": int(ring.lead_sites),
+        "disorder_strength_W [J]": float(ring.disorder_strength),
+        "correlation_energy [J]": correlation_energy(ring.device),
+        "thermal_energies_per_temperature": ", ".join(str(n) for n in n_thermal),
+    }
+    if ring.born_mean_free_path is not None:
+        details["born_mean_free_path [m]"] = float(ring.born_mean_free_path)
+    device_attrs = {f"reference_device.{k}": v for k, v in ring_attrs(ring).items()}
+    return StudySetup(
+        n_sites=int(ring.n_sites),
+        lattice_spacing=base.spacing,
+        hopping=base.hopping,
+        fermi_energy=mat.fermi_energy_J,
+        r_in=geo.r_in,
+        r_out=geo.r_out,
+        expected_period_he=ab_period(math.pi * r_m**2),
+        details=details,
+        notes=notes,
+        device_attrs=device_attrs,
+    )
+
+
+def _check_window(ring, grid, temperature: float) -> None:
+    """The thermal window must lie inside the band and every energy must have open channels."""
+    lo, hi = float(grid.energies.min()), float(grid.energies.max())
+    context = f"sweep.temperature = {format_quantity(temperature, 'temperature')}"
+    if not (lo > 0 and hi < ring.band_top):
+        raise ParameterError(
+            "sweep.temperature",
+            format_quantity(temperature, "temperature"),
+            f"the thermal window {format_quantity(lo, 'energy', 4)} .. "
+            f"{format_quantity(hi, 'energy', 4)} must stay inside the band (0, "
+            f"{format_quantity(ring.band_top, 'energy', 4)}): lower the temperature or "
+            "raise the Fermi energy",
+        )
+    _check_open_channels(ring, lo, context)
+
+
+def _check_open_channels(ring, energy: float, context: str) -> None:
+    """Raise if a lead has no propagating channel at ``energy`` (J)."""
+    params = ring.params()
+    for i, lead in enumerate(ring.fsyst.leads):
+        prop, _ = lead.modes(energy=ring.to_lattice_energy(energy), params=params)
+        if len(prop.velocities) == 0:
+            raise ParameterError(
+                "geometry.lead_width",
+                format_quantity(ring.lead_sites * ring.lattice_spacing, "length", 4),
+                f"lead {i} has no open channel at E = {format_quantity(energy, 'energy', 4)} "
+                f"({context}): widen the leads or raise the Fermi energy",
+            )
+
+
+def correlation_energy(device) -> float:
+    """Energy scale (J) on which G(E) of the ring varies: ``hbar v_F / L`` with the arm length
+    ``L = pi r_m`` (ballistic), or the Thouless energy ``hbar D / L^2`` with ``D = v_F l / 2``
+    when the elastic mean free path ``l`` is shorter than ``L`` (diffusive arms)."""
+    from ringkit.transport.thermal import thouless_energy
+
+    geo, mat = device.geometry, device.material
+    length = math.pi * 0.5 * (geo.r_in + geo.r_out)
+    l_el = mat.elastic_mean_free_path
+    if l_el is not None and l_el < length:
+        return thouless_energy(length, diffusion_constant=mat.fermi_velocity * l_el / 2.0)
+    return thouless_energy(length, fermi_velocity=mat.fermi_velocity)
+
+
+def thermal_grid(device, temperature: float, thermal: dict[str, Any]):
+    """:class:`ringkit.transport.thermal.ThermalGrid` (energies in J) around the device's E_F.
+
+    Parameters
+    ----------
+    device : RingDevice
+        Sets the Fermi energy and the correlation energy (:func:`correlation_energy`).
+    temperature : float
+        Temperature in K (0: the single energy E_F).
+    thermal : dict
+        The ``[thermal]`` section (``points_per_correlation``, ``tail_tol``).
+    """
+    from ringkit.transport.thermal import thermal_weights
+
+    return thermal_weights(
+        device.material.fermi_energy_J,
+        temperature,
+        correlation_energy=correlation_energy(device),
+        points_per_correlation=thermal["points_per_correlation"],
+        tail_tol=thermal["tail_tol"],
+    )

@@ -1,0 +1,314 @@
+"""Study files: quantities with units, schema validation and its error messages, the plan of
+work units with stable ids, and the checkpoint layout (no physics computation here)."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from scipy import constants as sc
+
+from ringkit import ParameterError
+from ringkit.study import (
+    ConfigError,
+    default_study_text,
+    example_config_text,
+    parse_config,
+)
+from ringkit.study.checkpoint import Checkpoint, CheckpointMismatch, UnitResult
+from ringkit.study.plan import make_plan
+from ringkit.study.quantities import QuantityError, format_quantity, parse_quantity
+
+MINIMAL = """
+[geometry]
+r_in = "140 nm"
+r_out = "200 nm"
+[field]
+start = "-0.2 T"
+stop = "0.2 T"
+"""
+
+
+def cfg(extra: str = "", base: str = MINIMAL):
+    return parse_config(base + "\n" + extra, source="test.toml")
+
+
+# ----------------------------------------------------------------------------- quantities
+@pytest.mark.parametrize(
+    ("text", "dimension", "expected"),
+    [
+        ("250 nm", "length", 250 * 1e-9),  # SI prefix nano = 1e-9 (definition)
+        ("1.5 um", "length", 1.5e-6),
+        ("1.5 µm", "length", 1.5e-6),
+        ("-20 mT", "field", -20e-3),
+        ("30 G", "field", 30 * 1e-4),  # 1 gauss = 1e-4 T (SI definition)
+        ("10 meV", "energy", 10e-3 * sc.electron_volt),  # eV from scipy.constants (exact, SI 2019)
+        ("1.2e-21 J", "energy", 1.2e-21),
+        ("3e11 cm^-2", "density", 3e11 * 1e4),  # 1 cm^-2 = 1e4 m^-2 (definition)
+        ("4e5 cm^2/Vs", "mobility", 4e5 * 1e-4),  # 1 cm^2/Vs = 1e-4 m^2/Vs (definition)
+        ("-5 h/e", "flux", -5 * sc.h / sc.e),  # flux quantum h/e from scipy.constants
+        ("1 h/2e", "flux", sc.h / (2 * sc.e)),
+        ("100 mK", "temperature", 0.1),
+        ("inf", "length", math.inf),
+        (2.5e-7, "length", 2.5e-7),  # bare number = SI unit
+        (3, "temperature", 3.0),
+    ],
+)
+def test_parse_quantity_values(text, dimension, expected):
+    assert parse_quantity(text, dimension, name="x") == pytest.approx(expected, rel=1e-15, abs=0)
+
+
+@pytest.mark.parametrize(
+    ("text", "dimension", "fragment"),
+    [
+        ("140 mT", "length", "wrong unit, 'mT' is a magnetic field but x is a length"),
+        ("1 K", "energy", "'K' is a temperature"),
+        ("140 nmm", "length", "did you mean 'nm'?"),
+        ("140", "length", "a unit is missing"),
+        ("abc", "length", "not a number with a unit"),
+        (True, "length", "expected a length"),
+        ([1, 2], "length", "expected a length"),
+    ],
+)
+def test_parse_quantity_errors(text, dimension, fragment):
+    with pytest.raises(QuantityError, match="x = ") as info:
+        parse_quantity(text, dimension, name="x")
+    assert fragment in str(info.value)
+
+
+@pytest.mark.parametrize(
+    ("value", "dimension"),
+    [(2.5e-7, "length"), (-0.2, "field"), (1.5, "temperature"), (9e-3 * sc.eV, "energy")],
+)
+def test_format_quantity_round_trips(value, dimension):
+    text = format_quantity(value, dimension)
+    assert parse_quantity(text, dimension, name="x") == pytest.approx(value, rel=1e-9, abs=0)
+
+
+# ----------------------------------------------------------------------------- schema
+def test_default_study_and_example_config_agree():
+    default = parse_config(default_study_text(), source="default")
+    example = parse_config(example_config_text(), source="example")
+    # the example printed by `ringkit example-config` is the demo study, key for key
+    assert example.sections == default.sections
+    assert example.fingerprint == default.fingerprint
+    # every key of the schema is documented in the example (active or commented out)
+    from ringkit.study.schema import SCHEMA
+
+    text = example_config_text()
+    for sec, (_doc, keys) in SCHEMA.items():
+        assert f"[{sec}]" in text
+        for name in keys:
+            assert f"{name} = " in text, name
+
+
+def test_to_toml_round_trip_is_exact():
+    c = cfg('[sweep]\ntemperature = ["0.1 K", "2 K"]\ndephasing_length = ["inf", "1.3 um"]')
+    again = parse_config(c.to_toml())
+    assert again.sections == c.sections
+    assert again.fingerprint == c.fingerprint
+
+
+def test_defaults_and_si_values():
+    c = cfg()
+    assert c["geometry"]["r_in"] == pytest.approx(140e-9, rel=1e-15, abs=0)
+    assert c["field"]["points"] == 401
+    assert c["sweep"]["temperature"] == (0.0,)
+    assert c["sweep"]["dephasing_length"] == (math.inf,)
+    assert c["ensemble"]["realizations"] == 1
+    assert c["material"]["preset"] == "GaAs"
+
+
+def test_scalar_accepted_for_list_and_radius_width_form():
+    c = cfg('[sweep]\ntemperature = "1.5 K"')
+    assert c["sweep"]["temperature"] == (1.5,)
+    alt = parse_config(
+        '[geometry]\nradius = "170 nm"\nwidth = "60 nm"\n[field]\nstart = "-0.2 T"\n'
+        'stop = "0.2 T"\n'
+    )
+    assert alt["geometry"]["r_in"] == pytest.approx(140e-9, rel=1e-12, abs=0)
+    assert alt["geometry"]["r_out"] == pytest.approx(200e-9, rel=1e-12, abs=0)
+
+
+def test_fingerprint_tracks_physics_only():
+    base = cfg()
+    assert cfg("[ensemble]\nrealizations = 2").fingerprint != base.fingerprint
+    wider = parse_config(MINIMAL, overrides={"geometry.lead_width": "50 nm"})
+    assert wider.fingerprint != base.fingerprint
+    for extra in (
+        '[executor]\nkind = "serial"',
+        "[output]\nfigures = false",
+        '[analysis]\nbackground = "savgol"',
+        '[study]\nname = "other"',
+    ):
+        assert cfg(extra).fingerprint == base.fingerprint, extra
+
+
+def test_overrides():
+    c = parse_config(MINIMAL, overrides={"ensemble.realizations": 3, "field.stop": "50 mT"})
+    assert c["ensemble"]["realizations"] == 3
+    assert c["field"]["stop"] == pytest.approx(0.05, rel=1e-15)
+    d = c.with_overrides({"sweep.temperature": ["1 K", "2 K"]})
+    assert d["sweep"]["temperature"] == (1.0, 2.0)
+    with pytest.raises(ConfigError, match="unknown key 'realisations' in \\[ensemble\\]"):
+        parse_config(MINIMAL, overrides={"ensemble.realisations": 3})
+
+
+@pytest.mark.parametrize(
+    ("overrides", "exc", "fragments"),
+    [
+        (
+            {"geometry.r_ot": 1},
+            ConfigError,
+            ["unknown key 'r_ot' in [geometry]", "did you mean 'r_out'?"],
+        ),
+        ({"ensemble.realisations": 4}, ConfigError, ["did you mean 'realizations'?"]),
+        ({"ensemble.temperature": 4}, ConfigError, ["'temperature' belongs in section [sweep]"]),
+        (
+            {"sweeps.temperature": 4},
+            ConfigError,
+            ["unknown section [sweeps]", "did you mean [sweep]?"],
+        ),
+        (
+            {"sweep.temperature": ["1 K", "-2 K"]},
+            ParameterError,
+            ["sweep.temperature[1] = '-2 K'", "must lie in [0, 1000 K]"],
+        ),
+        ({"sweep.temperature": ["1 K", "1 K"]}, ConfigError, ["values must be distinct"]),
+        ({"sweep.dephasing_length": "0 um"}, ParameterError, ["sweep.dephasing_length[0]"]),
+        ({"sweep.temperature": "4 meV"}, QuantityError, ["'meV' is an energy"]),
+        ({"field.points": 3}, ParameterError, ["field.points = 3", "[16, 1e+06]"]),
+        ({"field.points": "many"}, ConfigError, ["field.points = 'many': expected an integer"]),
+        (
+            {"executor.kind": "dsak"},
+            ParameterError,
+            ["executor.kind = 'dsak'", "did you mean 'dask'?"],
+        ),
+        ({"output.figures": 1}, ConfigError, ["expected true or false"]),
+        (
+            {"material.fermi_energy": "5 meV", "material.density": "3e11 cm^-2"},
+            ConfigError,
+            ["only one of fermi_energy and density"],
+        ),
+        (
+            {"material.mobility": "1e5 cm^2/Vs", "material.mean_free_path": "1 um"},
+            ConfigError,
+            ["only one of mobility"],
+        ),
+        (
+            {"lattice.spacing": "40 nm"},
+            ParameterError,
+            ["lattice.spacing = '40 nm'", "half the arm width"],
+        ),
+    ],
+)
+def test_validation_errors_name_the_key(overrides, exc, fragments):
+    with pytest.raises(exc) as info:
+        parse_config(MINIMAL, source="test.toml", overrides=overrides)
+    for f in fragments:
+        assert f in str(info.value)
+
+
+@pytest.mark.parametrize(
+    ("text", "fragments"),
+    [
+        ('[geometry]\nr_in = "140 nm\n', ["invalid TOML", "line 2"]),
+        ("points = 3\n" + MINIMAL, ["key 'points' must be inside a section", "[field]"]),
+        (
+            '[geometry]\nr_in = "140 nm"\nr_out = "100 nm"\n[field]\nstart = "-1 T"\nstop = "1 T"',
+            ["geometry.r_out = '100 nm'", "must be > geometry.r_in = 140 nm"],
+        ),
+        (
+            '[geometry]\nr_in = "140 nm"\nr_out = "200 nm"\n[field]\nstart = "-1 T"',
+            ["missing required key 'stop' in [field]"],
+        ),
+        (
+            '[geometry]\nr_in = "140 nm"\n[field]\nstart = "-1 T"\nstop = "1 T"',
+            ["r_in and r_out must be given together"],
+        ),
+        (
+            '[geometry]\nr_in = "140 nm"\nr_out = "200 nm"\n[field]\nstart = "1 T"\nstop = "-1 T"',
+            ["field.stop = '-1 T'", "must be > field.start = 1 T"],
+        ),
+    ],
+)
+def test_whole_file_errors(text, fragments):
+    with pytest.raises(ValueError) as info:
+        parse_config(text, source="test.toml")
+    for f in fragments:
+        assert f in str(info.value)
+
+
+def test_flux_tube_mode_needs_flux_units():
+    flux = (
+        '[geometry]\nr_in = "140 nm"\nr_out = "200 nm"\n[field]\nmode = "flux_tube"\n'
+        'start = "-2 h/e"\nstop = "2 h/e"\n'
+    )
+    c = parse_config(flux)
+    assert c["field"]["stop"] == pytest.approx(2 * sc.h / sc.e, rel=1e-15, abs=0)  # scipy.constants
+    assert make_plan(c).field_name == "flux"
+    with pytest.raises(
+        QuantityError, match="'T' is a magnetic field but field.start is a magnetic flux"
+    ):
+        parse_config(flux.replace('"-2 h/e"', '"-2 T"'))
+
+
+# ----------------------------------------------------------------------------- plan
+def test_plan_units_ids_and_axes():
+    c = cfg(
+        '[sweep]\nfermi_energy = ["5 meV", "6 meV"]\ngate_potential = ["0 meV", "0.2 meV", '
+        '"0.4 meV"]\ntemperature = ["0 K", "1 K"]\ndephasing_length = ["inf", "1 um"]\n'
+        "[ensemble]\nrealizations = 3\nseed = 7\n"
+    )
+    plan = make_plan(c)
+    assert plan.shape == (3, 2, 3, 2)
+    assert len(plan.units) == 3 * 2 * 3 * 2  # temperatures live inside each unit
+    assert plan.seeds == (7, 8, 9)
+    assert plan.swept_axes() == [
+        "fermi_energy",
+        "gate_potential",
+        "temperature",
+        "dephasing_length",
+    ]
+    uids = [u.uid for u in plan.units]
+    assert len(set(uids)) == len(uids)
+    assert uids[0] == "r0000-e00-g00-d00" and uids[-1] == "r0002-e01-g02-d01"
+    assert uids == [u.uid for u in make_plan(c).units]  # stable between runs
+    # realization-major order (one worker reuses one built lattice)
+    assert [u.index[0] for u in plan.units] == sorted(u.index[0] for u in plan.units)
+    u = plan.unit("r0001-e01-g02-d01")
+    assert (u.seed, u.fermi_energy, u.dephasing_length) == (
+        8,
+        pytest.approx(6e-3 * sc.eV, rel=1e-15, abs=0),
+        1e-6,
+    )
+    assert u.gate_potential == pytest.approx(0.4e-3 * sc.eV, rel=1e-15, abs=0)
+    np.testing.assert_array_equal(plan.field, np.linspace(-0.2, 0.2, 401))
+
+
+# ----------------------------------------------------------------------------- checkpoint
+def test_checkpoint_roundtrip_resume_and_refusal(tmp_path):
+    plan = make_plan(cfg("[ensemble]\nrealizations = 2"))
+    ck = Checkpoint.open(tmp_path, plan)
+    assert ck.done() == set()
+    g = np.random.default_rng(0).random((1, 401))
+    ck.save(UnitResult(plan.uids[0], g, (1,), 0.5, {"n_sites": 10}))
+    assert ck.done() == {plan.uids[0]}
+    assert not [p for p in ck.units_dir.iterdir() if p.suffix != ".npz"]  # no temporary files
+    back = Checkpoint.open(tmp_path, plan).load(plan.uids[0])
+    np.testing.assert_array_equal(back.conductance, g)  # bit for bit
+    assert back.n_energies == (1,) and back.info == {"n_sites": 10}
+    manifest = json.loads((tmp_path / "checkpoint" / "manifest.json").read_text())
+    assert manifest["fingerprint"] == plan.config.fingerprint
+    assert manifest["units"] == list(plan.uids)
+    # a study with other physics is refused, never mixed in
+    other = make_plan(cfg("[ensemble]\nrealizations = 3"))
+    with pytest.raises(CheckpointMismatch, match="different study"):
+        Checkpoint.open(tmp_path, other)
+    # other executor/output settings share the checkpoint
+    same = make_plan(cfg('[executor]\nkind = "serial"\n[ensemble]\nrealizations = 2'))
+    assert Checkpoint.open(tmp_path, same).done() == {plan.uids[0]}
+    # --restart discards it
+    assert Checkpoint.open(tmp_path, other, restart=True).done() == set()
