@@ -253,4 +253,3 @@ def test_schur_bound_state_in_continuum_falls_back_to_lu():
     got = sw.transmission(fluxes)
     assert np.max(np.abs(got - ref)) < 1e-10
     assert sw.n_fallbacks == len(fluxes)
-

@@ -77,7 +77,10 @@ def test_finite_temperature_equals_weighted_kwant_sum():
         correlation_energy=ring_correlation_energy(ring),
     )
     assert ds.attrs["n_energies"] == grid.n_energies > 5
-    ref = sum(w * _kwant_G(ring, "flux", fluxes, e) for e, w in zip(grid.energies, grid.weights))
+    ref = sum(
+        w * _kwant_G(ring, "flux", fluxes, e)
+        for e, w in zip(grid.energies, grid.weights, strict=True)
+    )
     assert np.max(np.abs(ds["G"].values - ref)) < 1e-10
     # T -> 0 is the single-energy result
     cold = field_sweep(ring, fluxes, temperature=1e-9)

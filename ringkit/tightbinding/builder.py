@@ -241,12 +241,18 @@ def _onsite_values(device, arm, potential_t, offset, syst, sites) -> None:
             base[site] = float(v)
         else:
             syst[site] = float(v)
+    onsite_gated = _gated_onsite(base)
+    for site in base:
+        syst[site] = onsite_gated
+
+
+def _gated_onsite(base: dict):
+    """Value function ``onsite(site, gate)``: the constant on-site value of a gated site + gate."""
 
     def onsite_gated(site, gate):
         return base[site] + gate
 
-    for site in base:
-        syst[site] = onsite_gated
+    return onsite_gated
 
 
 # ------------------------------------------------------------------------------------ 2D rings
@@ -318,12 +324,17 @@ def _neighbour_pairs(tags: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     return out
 
 
-def _build_square(device: RingDevice, seed: int) -> TightBindingRing:
+def _build_square(device: RingDevice, seed: int, *, direct: bool | None = None) -> TightBindingRing:
+    """2D ring on the square lattice.
+
+    ``direct`` (default: when kwant is 1.5.0) assembles the finalized system in bulk with
+    :func:`_finalize_direct` instead of filling a :class:`kwant.Builder` site by site; both
+    give the same system (same sites, graph, edge order and values; tests/test_view_live.py).
+    """
     a, t = device.spacing, device.hopping
     info = _lattice_sites(device)
     tags, is_stub = info["tags"], info["is_stub"]
     lat = kwant.lattice.square(1, norbs=1)
-    sites = [lat(int(x), int(y)) for x, y in tags]
     pos_lat = tags.astype(float)
     arm = _arm_labels(device, pos_lat)
     arm[is_stub] = "lead-contact"
@@ -333,39 +344,51 @@ def _build_square(device: RingDevice, seed: int) -> TightBindingRing:
     if w_j > 0:
         pot[~is_stub] = _dis.anderson_potential(tags[~is_stub], w_j, seed, _STREAM_SQUARE)
 
-    syst = kwant.Builder()
-    _onsite_values(device, arm, pot / t, 4.0, syst, sites)
-
+    # hoppings (i <- j) in the order they are set: horizontal bonds, then vertical bonds
     (ih, jh), (iv, jv) = _neighbour_pairs(tags)
+    hop_i, hop_j = np.concatenate([ih, iv]), np.concatenate([jh, jv])
+    hop_vals = np.full(hop_i.size, -1.0, dtype=object)
     crossing_stub = False
     if device.field_mode == "uniform":
-        hop_b = _fields.uniform_hopping(1.0, a)
-        for i, j in zip(ih, jh, strict=True):
-            syst[sites[i], sites[j]] = hop_b
-        for i, j in zip(iv, jv, strict=True):
-            syst[sites[i], sites[j]] = -1.0
+        hop_vals[: ih.size] = _fields.uniform_hopping(1.0, a)
     else:
-        hop_f = _fields.flux_tube_hopping(1.0, device.cut_angle)
-        for ii, jj in ((ih, jh), (iv, jv)):
-            cross = _fields.cut_crossing(pos_lat[ii], pos_lat[jj], device.cut_angle)
-            crossing_stub |= bool(np.any((cross != 0) & (is_stub[ii] | is_stub[jj])))
-            for i, j, c in zip(ii, jj, cross, strict=True):
-                syst[sites[i], sites[j]] = hop_f if c else -1.0
+        cross = _fields.cut_crossing(pos_lat[hop_i], pos_lat[hop_j], device.cut_angle)
+        crossing_stub = bool(np.any((cross != 0) & (is_stub[hop_i] | is_stub[hop_j])))
+        hop_vals[cross != 0] = _fields.flux_tube_hopping(1.0, device.cut_angle)
 
     x_edge = info["x_edge"]
-    leads_geo = []
+    leads_geo, lead_builders, interfaces = [], [], []
     for side, direction in ((0, -1), (1, 1)):
         rows = info["rows"][side]
         lead = kwant.Builder(kwant.TranslationalSymmetry((direction, 0)))
         for y in rows:
             lead[lat(0, int(y))] = 4.0
         lead[lat.neighbors()] = -1.0
-        syst.attach_lead(lead)
+        lead_builders.append(lead)
+        # the outermost stub column: where kwant's attach_lead puts the interface
+        interfaces.append([(direction * x_edge, int(y)) for y in rows])
         leads_geo.append((direction * x_edge, rows[0] - 0.5, rows[-1] + 0.5, side))
     _check_cut(device, crossing_stub, leads_geo)
 
-    fsyst = syst.finalized()
-    order = np.array([fsyst.id_by_site[s] for s in sites])
+    onsite = 4.0 + pot / t
+    gated = np.zeros(len(tags), dtype=bool) if device.gate is None else arm == device.gate.arm
+    if direct is None:
+        direct = kwant.__version__ == "1.5.0"
+    fsyst = None
+    if direct:
+        fsyst, order = _finalize_direct(
+            lat, tags, onsite, gated, (hop_i, hop_j, hop_vals), lead_builders, interfaces
+        )
+    if fsyst is None:  # reference path (and fallback): a kwant Builder filled site by site
+        sites = [lat(int(x), int(y)) for x, y in tags]
+        syst = kwant.Builder()
+        _onsite_values(device, arm, pot / t, 4.0, syst, sites)
+        for i, j, v in zip(hop_i.tolist(), hop_j.tolist(), hop_vals, strict=True):
+            syst[sites[i], sites[j]] = v
+        for lead in lead_builders:
+            syst.attach_lead(lead)
+        fsyst = syst.finalized()
+        order = np.array([fsyst.id_by_site[s] for s in sites])
     inv = np.empty_like(order)
     inv[order] = np.arange(len(order))
     return TightBindingRing(
@@ -384,6 +407,105 @@ def _build_square(device: RingDevice, seed: int) -> TightBindingRing:
         loop_area=device.geometry.area_mean,
         lead_sites=info["n_rows"],
     )
+
+
+def _finalize_direct(lat, tags, onsite, gated, hops, lead_builders, interfaces):
+    """The finalized system of a single-family scattering region, assembled in bulk.
+
+    Produces what ``kwant.Builder`` + ``attach_lead`` + ``finalized()`` (kwant 1.5.0,
+    ``kwant.builder.FiniteSystem.__init__``) give for the same input: sites sorted by tag, a
+    graph whose edges of each tail keep the order in which the hoppings were set (the
+    reverse of a hopping ``syst[a, b] = v`` stores :class:`kwant.builder.Other`), the same
+    (value, parameter names) pairs, and leads finalized with the given interface sites. The
+    gated sites share one value function ``onsite(site, gate)`` as in :func:`_onsite_values`.
+
+    Returns ``(fsyst, order)`` (``order[k]`` = kwant index of input site k), or
+    ``(None, None)`` if an interface site is missing (then kwant's own ``attach_lead``
+    would add sites and the Builder path must be used).
+    """
+    import tinyarray as ta
+    from kwant import builder as kb
+    from kwant import graph
+
+    n = len(tags)
+    perm = np.lexsort((tags[:, 1], tags[:, 0]))  # kwant orders sites by tag
+    order = np.empty(n, dtype=np.int64)
+    order[perm] = np.arange(n)
+    site_cls = kb.Site
+    sites = tuple(site_cls(lat, ta.array(tg), True) for tg in tags[perm].tolist())
+    id_by_site = dict(zip(sites, range(n), strict=True))
+
+    lead_ifaces = []
+    for iface in interfaces:
+        idx = [id_by_site.get(site_cls(lat, ta.array(tg), True)) for tg in sorted(iface)]
+        if any(i is None for i in idx):
+            return None, None
+        lead_ifaces.append(idx)
+
+    # on-site values: constants, or one shared function for the gated sites
+    values = onsite[perm].tolist()
+    onsites = [(v, None) for v in values]
+    gated_ids = np.flatnonzero(gated[perm])
+    if gated_ids.size:
+        base = {sites[k]: values[k] for k in gated_ids.tolist()}
+        pair = kb._value_params_pair_cache(1)(_gated_onsite(base))
+        for k in gated_ids.tolist():
+            onsites[k] = pair
+
+    # directed edges: hopping k gives (i -> j, value) then (j -> i, Other); compressing the
+    # graph groups edges by tail and keeps the insertion order within a tail
+    hop_i, hop_j, hop_vals = hops
+    m = hop_i.size
+    # distinct value objects (by identity, as kwant's pair cache); code 0 is the reverse marker
+    ids = np.fromiter(map(id, hop_vals), dtype=np.uint64, count=m)
+    _, first, codes = np.unique(ids, return_index=True, return_inverse=True)
+    uniq = [kb.Other] + [hop_vals[k] for k in first.tolist()]
+    codes = codes.reshape(-1) + 1
+    tails = np.empty(2 * m, dtype=np.int64)
+    heads = np.empty(2 * m, dtype=np.int64)
+    vcode = np.zeros(2 * m, dtype=np.int64)
+    tails[0::2], heads[0::2], vcode[0::2] = order[hop_i], order[hop_j], codes
+    tails[1::2], heads[1::2] = order[hop_j], order[hop_i]
+    seq = np.argsort(tails, kind="stable")
+    g = graph.Graph()
+    g.num_nodes = n
+    if m:
+        g.add_edges(np.stack([tails[seq], heads[seq]], axis=1))
+    g = g.compressed()
+    cache2 = kb._value_params_pair_cache(2)
+    pairs = np.empty(len(uniq), dtype=object)
+    for u, w in enumerate(uniq):
+        pairs[u] = cache2(w)
+    hoppings = pairs[vcode[seq]].tolist()
+
+    # union of the parameter names of all values (kwant: None if one could not be determined)
+    named = [onsites[gated_ids[0]]] if gated_ids.size else []
+    named += [pairs[u] for u in np.unique(vcode)]
+    parameters: list | None = []
+    for _, names in named:
+        if isinstance(names, Exception):
+            parameters = None
+            break
+        if names:
+            parameters.extend(names)
+    fsyst = kb.FiniteSystem.__new__(kb.FiniteSystem)
+    fsyst.graph = g
+    fsyst.sites = sites
+    fsyst.site_ranges = kb._site_ranges(sites)
+    fsyst.id_by_site = id_by_site
+    fsyst.hoppings = hoppings
+    fsyst.onsites = onsites
+    fsyst.parameters = None if parameters is None else frozenset(parameters)
+    fsyst.symmetry = kb.NoSymmetry()
+    fsyst.leads = [
+        kb.BuilderLead(lead, [sites[i] for i in idx]).finalized()
+        for lead, idx in zip(lead_builders, lead_ifaces, strict=True)
+    ]
+    fsyst.lead_interfaces = [np.array(idx) for idx in lead_ifaces]
+    fsyst.lead_paddings = [np.array([]) for _ in lead_ifaces]
+    no_symmetries = kb.Builder()  # conservation law and discrete symmetries: none
+    fsyst._init_discrete_symmetries(no_symmetries)
+    return fsyst, order
 
 
 # ------------------------------------------------------------------------------------ chain

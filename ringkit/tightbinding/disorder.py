@@ -47,6 +47,7 @@ physics notes, computed): W = t, E = 0.5t gives nu = 0.0849772/t, l = 30.26 a (c
 
 from __future__ import annotations
 
+import functools
 import math
 
 import numpy as np
@@ -162,6 +163,12 @@ def mean_fermi_speed(energy: float) -> float:
         raise ParameterError("energy", energy, "must lie in (0, 4) or (4, 8) t")
     if e > 4:
         e = 8.0 - e
+    return _mean_fermi_speed(e)
+
+
+@functools.lru_cache(maxsize=256)
+def _mean_fermi_speed(e: float) -> float:
+    """:func:`mean_fermi_speed` for ``0 < e < 4`` (cached: a lattice build calls it for E_F)."""
     theta = np.linspace(0.0, math.pi / 2, 20001)
     k = _contour_radius(e, theta)
     pts = np.stack([k * np.cos(theta), k * np.sin(theta)])

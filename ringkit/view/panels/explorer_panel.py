@@ -7,6 +7,11 @@ machine at load average 4-5: median 0.2-0.3 s, slowest change < 0.5 s; preview c
 <= 0.2 s, PNG render ~0.1-0.3 s; only the artists' data move when the layout is unchanged, and
 the ring outline is re-rendered only when the geometry changes); the full tight-binding
 computation runs on demand in a :class:`~ringkit.view.panels._base.BackgroundJob`.
+
+With "live lattice" checked (flux-tube mode) every change also recomputes the exact lattice
+G(B) and its spectrum, synchronously in the same update, with the caches of
+:class:`~ringkit.view.panels.explorer_live.LiveLattice` (figures per control kind:
+benchmarks/bench_live_preview.py).
 """
 
 from __future__ import annotations
@@ -28,6 +33,7 @@ from ringkit.view.panels.explorer import (
     PreviewResult,
     explorer_preview,
 )
+from ringkit.view.panels.explorer_live import LiveLattice, LiveResult
 from ringkit.view.style import (
     COLORS,
     CONDUCTANCE_LABEL,
@@ -69,6 +75,10 @@ class DeviceExplorer(PanelBase):
     ----------
     params : ExplorerParams, optional
         Initial settings.
+    live_lattice : bool
+        Start with the live lattice view on (the "live lattice" checkbox).
+    live : LiveLattice, optional
+        The cached live-lattice computation to use (default: a new one).
 
     Attributes
     ----------
@@ -78,16 +88,33 @@ class DeviceExplorer(PanelBase):
         Last good quick-preview result.
     full : FullResult or None
         Last full tight-binding result (``full_params`` are its settings).
+    live : LiveResult or None
+        Lattice result of the live view for the current settings (None when it is off or
+        unavailable; ``live_note`` then says why).
+    live_lattice : ipywidgets.Checkbox
+        Turns the live lattice view on and off.
+    live_view : LiveLattice
+        Its computation and caches (``live_view.builds`` counts lattice builds).
     artists : dict
-        Current matplotlib artists: ``"preview"``, ``"full"`` (G(B) lines),
-        ``"preview_spectrum"``, ``"full_spectrum"``.
+        Current matplotlib artists: ``"preview"``, ``"full"``, ``"live"`` (G(B) lines),
+        ``"preview_spectrum"``, ``"full_spectrum"``, ``"live_spectrum"``.
     latency : float
         Wall time in s of the last control-change -> PNG update.
     """
 
-    def __init__(self, params: ExplorerParams | None = None) -> None:
+    def __init__(
+        self,
+        params: ExplorerParams | None = None,
+        *,
+        live_lattice: bool = False,
+        live: LiveLattice | None = None,
+    ) -> None:
         super().__init__()
         p = params or ExplorerParams()
+        self.live_view = live if live is not None else LiveLattice()
+        self.live: LiveResult | None = None
+        self.live_note: str | None = None
+        self._twin: Any = None
         self._suspend = False
         self.preview: PreviewResult | None = None
         self.params: ExplorerParams | None = None
@@ -121,6 +148,10 @@ class DeviceExplorer(PanelBase):
         self.progress_label = widgets.Label(value="not run")
         self.show_preview = widgets.Checkbox(value=True, description="show 1D preview")
         self.show_full = widgets.Checkbox(value=True, description="show tight-binding")
+        self.live_lattice = widgets.Checkbox(
+            value=bool(live_lattice), description="live lattice (flux tube)"
+        )
+        self.live_lattice.observe(lambda _: self.update(), names="value")
         self.run_button.on_click(lambda _: self.run_full())
         self.cancel_button.on_click(lambda _: self.cancel_full())
         self.show_preview.observe(lambda _: self.redraw(), names="value")
@@ -247,6 +278,7 @@ class DeviceExplorer(PanelBase):
                 c["lattice_spacing"],
                 c["field_mode"],
                 c["seed"],
+                self.live_lattice,
                 widgets.HBox([self.run_button, self.cancel_button]),
                 widgets.HBox([self.progress, self.progress_label]),
                 widgets.HBox([self.show_preview, self.show_full]),
@@ -282,13 +314,25 @@ class DeviceExplorer(PanelBase):
         def work() -> None:
             params = self.params_from_controls()
             result = explorer_preview(params)
+            live, note = self._live_update(params)
             self.params = params
             self.preview = result
+            self.live, self.live_note = live, note
             self._draw()
 
         ok = self.guarded(work)
         self.latency = time.perf_counter() - t0
         return ok
+
+    def _live_update(self, params: ExplorerParams) -> tuple[LiveResult | None, str | None]:
+        """Live lattice result for ``params`` and a note (why it is off); raises
+        ParameterError for invalid settings (shown by :meth:`update`)."""
+        if not self.live_lattice.value:
+            return None, None
+        why = self.live_view.unavailable(params)
+        if why is not None:
+            return None, f"off: {why}"
+        return self.live_view.compute(params), None
 
     # ------------------------------------------------------------------ full computation
     def run_full(self) -> BackgroundJob | None:
@@ -363,7 +407,13 @@ class DeviceExplorer(PanelBase):
         stale = full is not None and self.full_params != self.params
         self._draw_ring(full, stale)
         unit = field_unit_for(pv.field) if pv is not None else None
-        key = (self.show_preview.value, None if full is None else id(full), stale, unit)
+        key = (
+            self.show_preview.value,
+            None if full is None else id(full),
+            stale,
+            unit,
+            self.live is not None,
+        )
         if pv is not None and self.show_preview.value and key == self._layout_key:
             self._update_preview_artists(pv, unit)  # fast path: same layout, new preview data
         else:
@@ -389,14 +439,34 @@ class DeviceExplorer(PanelBase):
             self.artists["preview"] = ax_g.get_lines()[0]
         with style_context():
             ax_g.set_ylabel(CONDUCTANCE_LABEL + " 1D preview", color=COLORS["model"])
+        live = self.live
+        ref = pv if pv is not None else (live if live is not None else full)
+        unit = field_unit_for(ref.field) if ref is not None else "auto"
+        self._twin = None
+        if live is not None:
+            self._twin = plots.plot_twin(
+                ax_g, live.field, live.conductance, kind="tightbinding", label="lattice (live)",
+                ylabel=CONDUCTANCE_LABEL + " lattice", field_unit=unit,
+            )  # fmt: skip
+            self.artists["live"] = self._twin.get_lines()[0]
         if full is not None:
             lbl = "tight-binding" + (" (earlier settings)" if stale else "")
-            ax_t = plots.plot_twin(
-                ax_g, full.field, full.conductance, kind="tightbinding", label=lbl,
-                ylabel=CONDUCTANCE_LABEL + " tight-binding", ls="--" if stale else "-",
-                field_unit=field_unit_for(pv.field if pv is not None else full.field),
-            )  # fmt: skip
-            self.artists["full"] = ax_t.get_lines()[0]
+            if self._twin is None:
+                self._twin = plots.plot_twin(
+                    ax_g, full.field, full.conductance, kind="tightbinding", label=lbl,
+                    ylabel=CONDUCTANCE_LABEL + " tight-binding", ls="--" if stale else "-",
+                    field_unit=unit,
+                )  # fmt: skip
+                self.artists["full"] = self._twin.get_lines()[0]
+            else:  # beside the live line: dotted, same axis
+                with style_context():
+                    (line,) = self._twin.plot(
+                        full.field * field_scale(unit), full.conductance, ls=":", lw=1.2,
+                        color=COLORS["simulation"], label=lbl,
+                    )  # fmt: skip
+                    self._twin.legend(loc="lower right", fontsize=7)
+                self.artists["full"] = line
+                plots.set_headroom(self._twin, 0.4, [live.conductance, full.conductance])
         if pv is not None:
             show_pv = self.show_preview.value
             if show_pv:
@@ -405,14 +475,25 @@ class DeviceExplorer(PanelBase):
                     label="1D preview",
                 )  # fmt: skip
                 self.artists["preview_spectrum"] = ax_s.get_lines()[0]
+            first = not show_pv
+            if live is not None:
+                plots.plot_spectrum(
+                    live.spectrum.frequency, live.spectrum.amplitude, ax_s,
+                    bands=pv.bands if first else None, kind="tightbinding",
+                    label="lattice (live)", area_axis=first,
+                )  # fmt: skip
+                self.artists["live_spectrum"] = ax_s.get_lines()[-1]
+                first = False
             if full is not None:
+                kw = {"ls": ":", "color": COLORS["simulation"]} if live is not None else {}
                 plots.plot_spectrum(
                     full.spectrum.frequency, full.spectrum.amplitude, ax_s,
-                    bands=None if show_pv else pv.bands, kind="tightbinding",
-                    label="tight-binding", area_axis=not show_pv,
+                    bands=pv.bands if first else None, kind="tightbinding",
+                    label="tight-binding", area_axis=first, **kw,
                 )  # fmt: skip
                 self.artists["full_spectrum"] = ax_s.get_lines()[-1]
-            if not show_pv and full is None:
+                first = False
+            if first:
                 plots.plot_spectrum([], [], ax_s, bands=pv.bands)
             ax_s.set_xlim(0.0, 1.3 * max(hi for _, hi in pv.bands.values()))
             self._fit_spectrum_y()
@@ -436,6 +517,14 @@ class DeviceExplorer(PanelBase):
                 plots.update_period_mark(self.ax_g, self._marks[label], per, field_unit=unit,
                                          label=label)  # fmt: skip
         self.artists["preview_spectrum"].set_data(pv.spectrum.frequency, pv.spectrum.amplitude)
+        live = self.live
+        if live is not None and "live" in self.artists:
+            self.artists["live"].set_data(live.field * field_scale(unit), live.conductance)
+            self.artists["live_spectrum"].set_data(live.spectrum.frequency, live.spectrum.amplitude)
+            ys = [live.conductance]
+            if "full" in self.artists:
+                ys.append(np.asarray(self.artists["full"].get_ydata(), dtype=float))
+            plots.set_headroom(self._twin, 0.4, ys)
         for order, (lo, hi) in pv.bands.items():
             if order in self._bands:
                 rect, text = self._bands[order]
@@ -511,6 +600,28 @@ class DeviceExplorer(PanelBase):
             rows.append(("1D preview: h/e rms", _fmt(pv.amplitude_he, "e²/h")))
             rows.append(("1D preview: h/2e rms", _fmt(pv.amplitude_h2e, "e²/h")))
             rows.append(("1D preview: coherent fraction", f"{pv.ring.coherent_fraction:.3f}"))
+        live = self.live
+        if live is not None:
+            what = "rebuilt lattice" if live.rebuilt else "cached lattice"
+            rows.append(
+                (
+                    "lattice (live): sites",
+                    f"{live.n_sites:,} (a = {live.lattice_spacing * 1e9:.3g} nm)",
+                )
+            )
+            rows.append(("lattice (live): mean G", _fmt(live.mean_conductance, "e²/h", 4)))
+            rows.append(("lattice (live): h/e rms", _fmt(live.amplitude_he, "e²/h")))
+            rows.append(("lattice (live): h/2e rms", _fmt(live.amplitude_h2e, "e²/h")))
+            rows.append(
+                (
+                    "lattice (live): update",
+                    f"{1e3 * live.timings['total']:.0f} ms ({what}, {live.factorizations} "
+                    f"factorization(s), {live.n_solved} flux values per energy)",
+                )
+            )
+            rows.append(("lattice (live): model", "; ".join(live.notes)))
+        elif self.live_note:
+            rows.append(("lattice (live)", self.live_note))
         if self.full is not None:
             tag = " (earlier settings)" if stale else ""
             rows.append(

@@ -1,0 +1,475 @@
+"""Live lattice view of the device explorer: the exact flux-tube lattice model on every change.
+
+In flux-tube mode (flux through the hole only) the explorer can recompute the full
+tight-binding G(Phi) of the device on every control change, next to the 1D network preview.
+This module is the computation (no widgets); :class:`LiveLattice` keeps what did not change:
+
+* the built lattice (:func:`ringkit.tightbinding.build_ring`), reused while the inputs of the
+  build are unchanged: geometry, resolved lattice spacing and hopping, Anderson strength (from
+  the mean free path at E_F), gated arm, branch cut, lead stubs and disorder seed. The gate
+  potential is a kwant parameter (the live device always carries an
+  :class:`~ringkit.device.ArmGate`; at 0 it gives the same values as no gate), so gate,
+  temperature, L_phi and field-window changes never rebuild. A new Fermi energy rebuilds
+  only when it changes the lattice: the automatic spacing ``a = max_kfa/kF`` follows kF, and a
+  mobility-defined disorder strength depends on E_F; with a fixed ``lattice_spacing`` and a
+  clean material the lattice is reused;
+* the dephasing-probe sites and the local-density weights behind the L_phi -> coupling
+  mapping (:func:`ringkit.transport.probes.attach_probes`, cached per lattice, E_F and gate;
+  a new L_phi only recomputes the coupling with the same formula);
+* one :class:`~ringkit.transport.lowrank.FluxTubeModel` per (lattice, gate, probes) and one
+  :class:`~ringkit.transport.lowrank.FluxTubeSweeper` (one sparse factorization) per energy.
+
+Flux grid: the flux-tube conductance is exactly periodic in the hole flux with period h/e
+(gauge invariance, Byers-Yang), so the live line uses a grid commensurate with the period,
+``flux_k = k (h/e)/M`` with M points per period, and evaluates only the distinct residues
+``k mod M`` (at most M low-rank solves per energy, for any field window). The x axis is the
+equivalent field ``B = flux/A_mean`` as in :mod:`ringkit.view.panels.explorer_full`.
+
+Temperature and dephasing follow :func:`ringkit.view.panels.explorer_full.explorer_full`:
+``thermal_grid`` (single energy when k_B T < E_c/10, otherwise at most ``max_energies``
+energies) and ``n_probes`` floating Büttiker probes when L_phi is finite. With the same number
+of energies the live line therefore equals the full computation of the same settings.
+
+API
+---
+LiveLattice(*, max_sites=LIVE_MAX_SITES, max_energies=LIVE_MAX_ENERGIES, n_probes=N_PROBES,
+            points_per_period=64, min_points=161)
+    ``.unavailable(params)`` (reason or None), ``.compute(params) -> LiveResult``,
+    ``.ring``, ``.builds``, ``.factorizations``.
+LiveResult
+    Line data, spectrum, amplitudes, timings and cache facts of one update.
+live_device(params), live_flux_grid(field_min, field_max, period, ...)
+single_thread_blas()
+    Context limiting BLAS to one thread (threadpoolctl, optional) around each live update.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import time
+from collections import OrderedDict
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from ringkit._validation import ParameterError, check_positive
+from ringkit.analysis.spectrum import OscillationSpectrum, ab_bands, oscillation_spectrum
+from ringkit.units import PHI0
+from ringkit.view.panels.explorer import N_PROBES, ExplorerParams, _band_rms
+
+__all__ = [
+    "LIVE_MAX_SITES",
+    "LIVE_MAX_ENERGIES",
+    "LiveLattice",
+    "LiveResult",
+    "live_device",
+    "live_flux_grid",
+    "single_thread_blas",
+]
+
+LIVE_MAX_SITES = 12_000
+"""Largest site estimate for which the live view computes (0.5 s budget at ~10 000 sites)."""
+
+LIVE_MAX_ENERGIES = 3
+"""Energies of the thermal average in the live view (one factorization each)."""
+
+_MAX_MODELS = 4
+_MAX_SWEEPERS = 12
+_MAX_PROBE_SETS = 8
+_BLAS: list = []  # lazily created threadpoolctl controller (empty: not looked up yet)
+
+
+def single_thread_blas() -> contextlib.AbstractContextManager:
+    """Context limiting the BLAS libraries of the process to one thread (threadpoolctl).
+
+    The low-rank sweeps do many small dense solves and products; with OpenBLAS's default two
+    threads on the project's shared 2-core machine they ran 30-100x slower under load
+    (measured: 64 flux points with 40 probes took 0.6-2 s instead of 12 ms). Without
+    threadpoolctl installed this is a no-op (set ``OPENBLAS_NUM_THREADS=1`` instead).
+    """
+    if not _BLAS:
+        try:
+            from threadpoolctl import ThreadpoolController
+        except ImportError:  # optional: the computation is the same, only slower
+            _BLAS.append(None)
+        else:
+            _BLAS.append(ThreadpoolController())
+    ctrl = _BLAS[0]
+    if ctrl is None:
+        return contextlib.nullcontext()
+    return ctrl.limit(limits=1, user_api="blas")
+
+
+@dataclass(frozen=True)
+class LiveResult:
+    """One live update of the lattice model.
+
+    Attributes
+    ----------
+    field : ndarray
+        Equivalent field ``flux/A_mean`` in T (grid commensurate with the h/e period).
+    flux : ndarray
+        Hole flux in Wb, ``k (h/e)/points_per_period``.
+    conductance : ndarray
+        Two-terminal conductance in e^2/h (spin degenerate, probes floating).
+    spectrum : OscillationSpectrum
+    period : float
+        h/e period ``(h/e)/A_mean`` in T.
+    mean_conductance, amplitude_he, amplitude_h2e : float
+        Mean G and rms of the h/e and h/2e band contents in e^2/h.
+    energies, weights : ndarray
+        Energies (J) and weights of the thermal average.
+    n_sites : int
+    lattice_spacing : float
+        m.
+    n_probes : int
+        Dephasing probes (0: coherent).
+    probe_sites : ndarray of int
+        Their site indices in the lattice's kwant order (empty when coherent).
+    probe_eta : float
+        Probe coupling in units of t (0 without probes).
+    points_per_period : int
+    n_solved : int
+        Distinct flux values solved per energy (residues modulo h/e).
+    rebuilt : bool
+        Whether this update built a new lattice.
+    factorizations : int
+        Sparse factorizations done in this update.
+    timings : dict
+        Seconds spent in ``build``, ``probes``, ``model``, ``factorize``, ``sweep``, ``total``.
+    notes : tuple of str
+    """
+
+    field: np.ndarray
+    flux: np.ndarray
+    conductance: np.ndarray
+    spectrum: OscillationSpectrum
+    period: float
+    mean_conductance: float
+    amplitude_he: float
+    amplitude_h2e: float
+    energies: np.ndarray
+    weights: np.ndarray
+    n_sites: int
+    lattice_spacing: float
+    n_probes: int
+    probe_sites: np.ndarray
+    probe_eta: float
+    points_per_period: int
+    n_solved: int
+    rebuilt: bool
+    factorizations: int
+    timings: dict
+    notes: tuple[str, ...] = ()
+
+
+def live_device(params: ExplorerParams):
+    """The :class:`ringkit.device.RingDevice` of the live view.
+
+    As :func:`ringkit.view.panels.explorer_full.build_device`, but always with an
+    :class:`~ringkit.device.ArmGate` on ``params.gate_arm`` (potential ``gate_potential``,
+    possibly 0) so that the gate is a kwant parameter of the built lattice.
+    """
+    from ringkit.device import ArmGate, RingDevice
+
+    return RingDevice(
+        params.material_obj(),
+        params.geometry(),
+        gate=ArmGate(arm=params.gate_arm, potential=params.gate_potential),
+        field_mode=params.field_mode,
+        lattice_spacing=params.lattice_spacing,
+    )
+
+
+def _lattice_key(device, seed: int) -> tuple:
+    """Everything :func:`ringkit.tightbinding.build_ring` depends on, except the gate value."""
+    mat = device.material
+    disordered = not (
+        mat.disorder_strength in (None, 0, 0.0) and mat.elastic_mean_free_path is None
+    )
+    return (
+        device.geometry,
+        device.spacing,
+        device.hopping,
+        device.field_mode,
+        device.cut_angle,
+        device.lead_stub,
+        device.gate.arm,
+        mat.disorder_strength,
+        mat.elastic_mean_free_path,
+        # W calibrated from a mean free path depends on E_F/t (a mobility-defined mean free
+        # path l = hbar kF mu/e already changes with E_F; a given one does not)
+        mat.fermi_energy_J if disordered else None,
+        int(seed),
+    )
+
+
+def live_flux_grid(
+    field_min: float,
+    field_max: float,
+    period: float,
+    *,
+    points_per_period: int = 64,
+    min_points: int = 161,
+    max_points: int = 20_001,
+) -> tuple[np.ndarray, int]:
+    """Integer grid ``k`` and points per period ``M`` of the commensurate field grid.
+
+    The grid is ``B_k = k period/M`` for all ``field_min <= B_k <= field_max`` (T), with
+    ``M >= points_per_period`` and at least ``min_points`` points in the window (at most
+    ``max_points``).
+    """
+    period = check_positive("period", period, "T")
+    if not field_max > field_min:
+        raise ParameterError("field_max", field_max, f"must be > field_min = {field_min:g} T", "T")
+    span = field_max - field_min
+    m = max(int(points_per_period), math.ceil(min_points * period / span))
+    if span / period * m + 1 > max_points:
+        m = max(4, math.floor((max_points - 1) * period / span))
+    step = period / m
+    k0 = math.ceil(field_min / step - 1e-9)
+    k1 = math.floor(field_max / step + 1e-9)
+    return np.arange(k0, k1 + 1, dtype=np.int64), m
+
+
+class _Lru(OrderedDict):
+    """A small least-recently-used cache."""
+
+    def __init__(self, size: int) -> None:
+        super().__init__()
+        self.size = size
+
+    def get_or(self, key, make):
+        if key in self:
+            self.move_to_end(key)
+            return self[key], False
+        value = make()
+        self[key] = value
+        while len(self) > self.size:
+            self.popitem(last=False)
+        return value, True
+
+
+class LiveLattice:
+    """Cached exact lattice G(B) of the explorer settings (flux-tube mode).
+
+    Parameters
+    ----------
+    max_sites : int
+        Settings whose site estimate exceeds this are refused (:meth:`unavailable`).
+    max_energies : int
+        Energies of the thermal average (the full computation uses 9).
+    n_probes : int
+        Dephasing probes when L_phi is finite (as the full computation).
+    points_per_period, min_points : int
+        Flux grid (see :func:`live_flux_grid`; ``ExplorerParams.n_field`` is not used).
+
+    Attributes
+    ----------
+    ring : TightBindingRing or None
+        The current lattice.
+    builds : int
+        Lattices built so far (cache misses).
+    factorizations : int
+        Sparse factorizations done so far.
+    """
+
+    def __init__(
+        self,
+        *,
+        max_sites: int = LIVE_MAX_SITES,
+        max_energies: int = LIVE_MAX_ENERGIES,
+        n_probes: int = N_PROBES,
+        points_per_period: int = 64,
+        min_points: int = 161,
+    ) -> None:
+        for name, value, low in (("max_sites", max_sites, 1), ("max_energies", max_energies, 1),
+                                 ("n_probes", n_probes, 1),
+                                 ("points_per_period", points_per_period, 4),
+                                 ("min_points", min_points, 2)):  # fmt: skip
+            if not (isinstance(value, (int, np.integer)) and value >= low):
+                raise ParameterError(name, value, f"must be an integer >= {low}")
+        self.max_sites = int(max_sites)
+        self.max_energies = int(max_energies)
+        self.n_probes = int(n_probes)
+        self.points_per_period = int(points_per_period)
+        self.min_points = int(min_points)
+        self.ring: Any = None
+        self._ring_key: tuple | None = None
+        self.builds = 0
+        self.factorizations = 0
+        self._probes = _Lru(_MAX_PROBE_SETS)
+        self._models = _Lru(_MAX_MODELS)
+        self._sweepers = _Lru(_MAX_SWEEPERS)
+
+    # ------------------------------------------------------------------ availability
+    def unavailable(self, params: ExplorerParams) -> str | None:
+        """Why the live view cannot run for ``params`` (None if it can).
+
+        Raises
+        ------
+        ParameterError
+            Invalid settings (from the device description).
+        """
+        if params.field_mode != "flux_tube":
+            return "needs the AB flux-tube model (uniform field: use Run tight-binding)"
+        est = live_device(params).site_estimate()
+        if est.n_sites > self.max_sites:
+            return (
+                f"~{est.n_sites:,} sites > {self.max_sites:,} (raise the lattice spacing or use "
+                "Run tight-binding)"
+            )
+        return None
+
+    # ------------------------------------------------------------------ cached pieces
+    def _lattice(self, params: ExplorerParams) -> tuple[Any, bool]:
+        from ringkit.tightbinding import build_ring
+
+        device = live_device(params)
+        key = _lattice_key(device, params.seed)
+        if key == self._ring_key and self.ring is not None:
+            # same lattice: only the device record (E_F, T, L_phi, gate value) is new
+            self.ring = replace(self.ring, device=device)
+            return self.ring, False
+        ring = build_ring(device, seed=params.seed)
+        self.ring, self._ring_key = ring, key
+        self._probes.clear()
+        self._models.clear()
+        self._sweepers.clear()
+        self.builds += 1
+        return ring, True
+
+    def _dephasing(self, ring, params: ExplorerParams):
+        """Probes for L_phi (None if coherent): sites and weights cached per E_F and gate."""
+        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_lphi
+
+        l_phi = params.phase_coherence_length
+        if l_phi is None:
+            return None
+        zero = ring.params(flux=0.0)
+        e_f = ring.fermi_energy_lattice
+        key = (e_f, tuple(sorted(zero.items())))
+
+        def make():
+            return attach_probes(
+                ring.fsyst, l_phi=l_phi, energy=e_f, n_probes=self.n_probes,
+                lattice_spacing=ring.lattice_spacing, params=zero,
+            )  # fmt: skip
+
+        probes, made = self._probes.get_or(key, make)
+        if made or probes.l_phi == l_phi:
+            return probes
+        info = probes.info  # the mapping of attach_probes with the cached weights
+        eta = coupling_from_lphi(
+            l_phi / info["lattice_spacing"], velocity=info["velocity"],
+            probe_fraction=info["probe_fraction"], diffusion_constant=info["diffusion_constant"],
+            calibration=info["calibration"],
+        )  # fmt: skip
+        return DephasingProbes(probes.sites, eta, l_phi, dict(info))
+
+    def _sweeper(self, ring, probes, e_t: float, timings: dict):
+        """Cached sweeper at lattice energy ``e_t``; returns (sweeper, newly factorized)."""
+        from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
+
+        zero = ring.params(flux=0.0)
+        pkey = None
+        if probes is not None:
+            pkey = (probes.sites.tobytes(), np.asarray(probes.eta, dtype=float).tobytes())
+        mkey = (tuple(sorted(zero.items())), pkey)
+        t0 = time.perf_counter()
+        model, _ = self._models.get_or(
+            mkey, lambda: FluxTubeModel(ring.fsyst, params=zero, probes=probes)
+        )
+        t1 = time.perf_counter()
+        sweeper, made = self._sweepers.get_or(
+            (mkey, e_t), lambda: FluxTubeSweeper(model, energy=e_t)
+        )
+        timings["model"] += t1 - t0
+        timings["factorize"] += time.perf_counter() - t1
+        return sweeper, made
+
+    # ------------------------------------------------------------------ computation
+    def compute(self, params: ExplorerParams) -> LiveResult:
+        """Exact lattice G(B) for ``params`` (flux-tube mode), reusing cached pieces.
+
+        Raises
+        ------
+        ParameterError
+            Invalid settings, uniform-field mode or a lattice above ``max_sites``.
+        """
+        t_start = time.perf_counter()
+        why = self.unavailable(params)
+        if why is not None:
+            raise ParameterError("live lattice", params.field_mode, why)
+        with single_thread_blas():
+            return self._compute(params, t_start)
+
+    def _compute(self, params: ExplorerParams, t_start: float) -> LiveResult:
+        from ringkit.view.panels.explorer_full import _two_terminal, thermal_grid
+
+        timings = dict.fromkeys(("build", "probes", "model", "factorize", "sweep"), 0.0)
+        t0 = time.perf_counter()
+        ring, rebuilt = self._lattice(params)
+        timings["build"] = time.perf_counter() - t0
+        area = ring.loop_area
+        period = PHI0 / area
+        k, m = live_flux_grid(
+            params.field_min, params.field_max, period,
+            points_per_period=self.points_per_period, min_points=self.min_points,
+        )  # fmt: skip
+        flux = k * (PHI0 / m)
+        residues, where = np.unique(k % m, return_inverse=True)
+        solve_flux = residues * (PHI0 / m)
+        energies, weights, note = thermal_grid(ring, params.temperature, self.max_energies)
+        notes = [note]
+
+        t0 = time.perf_counter()
+        probes = self._dephasing(ring, params)
+        timings["probes"] = time.perf_counter() - t0
+        if probes is not None:
+            notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
+        total = np.zeros(residues.size)
+        n_fact = 0
+        fallbacks = 0
+        for e_j, w in zip(energies, weights, strict=True):
+            sweeper, made = self._sweeper(ring, probes, ring.to_lattice_energy(e_j), timings)
+            n_fact += made
+            before = sweeper.n_fallback
+            t0 = time.perf_counter()
+            total += w * _two_terminal(sweeper, solve_flux, probes)
+            timings["sweep"] += time.perf_counter() - t0
+            fallbacks += sweeper.n_fallback - before
+        if fallbacks:
+            notes.append(f"{fallbacks} flux point(s) solved directly (ill-conditioned update)")
+        self.factorizations += n_fact
+        g = 2.0 * total[where.reshape(-1)]
+        field = flux / area
+        spec = oscillation_spectrum(field, g, window="hann", pad=4)
+        geo = ring.device.geometry
+        bands = ab_bands(math.sqrt(geo.area_inner / math.pi), math.sqrt(geo.area_outer / math.pi))
+        timings["total"] = time.perf_counter() - t_start
+        return LiveResult(
+            field=field,
+            flux=flux,
+            conductance=g,
+            spectrum=spec,
+            period=period,
+            mean_conductance=float(np.mean(g)),
+            amplitude_he=_band_rms(spec, bands[1]),
+            amplitude_h2e=_band_rms(spec, bands[2]),
+            energies=np.asarray(energies, dtype=float),
+            weights=np.asarray(weights, dtype=float),
+            n_sites=ring.n_sites,
+            lattice_spacing=ring.lattice_spacing,
+            n_probes=0 if probes is None else probes.n,
+            probe_sites=np.zeros(0, dtype=np.int64) if probes is None else probes.sites.copy(),
+            probe_eta=0.0 if probes is None else float(np.mean(probes.eta)),
+            points_per_period=m,
+            n_solved=int(residues.size),
+            rebuilt=rebuilt,
+            factorizations=n_fact,
+            timings=timings,
+            notes=tuple(notes),
+        )
