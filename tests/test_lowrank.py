@@ -252,6 +252,57 @@ def test_probe_transmission_matrix_equals_greens_function_and_dense():
     )
 
 
+def test_with_probes_equals_a_freshly_built_model():
+    # reference: a model built from scratch with the same probes (its own Hamiltonian
+    # evaluation and cut detection) and the dense Fisher-Lee computation
+    fsyst = flux_tube_ring(12.0, 7.0, lead_width=4, disorder=1.0, seed=9)
+    sites = ring_sites_near(fsyst, [1.0, 2.2, 4.0, 5.3], 9.5)
+    etas = [0.3, 0.5, 0.2, 0.4]
+    base = FluxTubeModel(fsyst)
+    base.local_dos(0.9)  # factorizes in the MUMPS context that the derived model shares
+    derived = base.with_probes(probe_sites=sites, probe_eta=etas)
+    fresh = FluxTubeModel(fsyst, probe_sites=sites, probe_eta=etas)
+    assert derived.h0 is base.h0 and derived.n_terminals == 6 and base.n_terminals == 2
+    fluxes = FLUXES[[0, 3, 6]]
+    a = derived.sweeper(0.9).transmission_matrix(fluxes)
+    b = fresh.sweeper(0.9).transmission_matrix(fluxes)
+    np.testing.assert_allclose(a, b, rtol=0, atol=1e-13)
+    for k, f in enumerate(fluxes):
+        ref = _dense_fisher_lee(fsyst, 0.9, f, sites, etas)
+        np.testing.assert_allclose(a[k], ref, rtol=0, atol=TOL)
+    # the base model is untouched, and dropping the probes again gives the two-lead result
+    np.testing.assert_allclose(
+        derived.with_probes().sweeper(0.9).transmission(fluxes),
+        kwant_t(fsyst, 0.9, fluxes),
+        rtol=0,
+        atol=TOL,
+    )
+    assert base.n_terminals == 2
+    with pytest.raises(ParameterError, match="probe_eta"):
+        base.with_probes(probe_sites=sites)
+
+
+def test_model_local_dos_equals_kwant_ldos_and_the_dense_spectral_function():
+    fsyst = flux_tube_ring(12.0, 7.0, lead_width=4, disorder=1.0, seed=9)
+    model = FluxTubeModel(fsyst)
+    for energy, flux in ((0.9, 0.0), (1.7, 0.37 * H_OVER_E)):
+        # reference: kwant.ldos (kwant's scattering wave functions) with the cut phases set
+        ref = kwant.ldos(fsyst, energy, params=dict(flux=flux))
+        got = model.local_dos(energy, flux)
+        np.testing.assert_allclose(got, ref, rtol=0, atol=1e-10 * ref.max())
+    # with probes: -Im G_ii / pi of a dense inverse (spectral sum rule G Gamma G^+ = i(G - G^+))
+    sites = ring_sites_near(fsyst, [1.0, 4.0], 9.5)
+    derived = model.with_probes(probe_sites=sites, probe_eta=[0.4, 0.7])
+    flux = 0.61 * H_OVER_E
+    h = fsyst.hamiltonian_submatrix(params=dict(flux=flux))
+    a = 1.1 * np.eye(h.shape[0]) - h
+    for idx, lead in zip(fsyst.lead_interfaces, fsyst.leads, strict=True):
+        a[np.ix_(idx, idx)] -= lead.selfenergy(1.1, params=dict(flux=flux))
+    a[sites, sites] += 0.5j * np.array([0.4, 0.7])
+    dense = -np.diag(np.linalg.inv(a)).imag / np.pi
+    np.testing.assert_allclose(derived.local_dos(1.1, flux), dense, rtol=0, atol=1e-10)
+
+
 def test_probes_keep_onsager_and_period():
     fsyst = flux_tube_ring(12.0, 7.0, lead_width=4, disorder=1.0, seed=9)
     sites = ring_sites_near(fsyst, [1.0, 2.2, 4.0, 5.3], 9.5)

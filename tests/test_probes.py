@@ -21,6 +21,7 @@ from ringkit.transport.probes import (
     conductance_matrix_from_transmission,
     coupling_from_lphi,
     effective_conductance,
+    local_dos,
     lphi_from_coupling,
     ring_probe_sites,
 )
@@ -276,3 +277,51 @@ def test_mapping_inverse_and_validation():
         )
     c = conductance_matrix_from_transmission(np.array([[0.0, 0.4], [0.4, 0.0]]))
     assert np.allclose(c, [[0.4, -0.4], [-0.4, 0.4]])
+
+
+@pytest.mark.parametrize("energy", [0.7, 1.9])
+def test_local_dos_equals_kwant_ldos(energy):
+    # reference: kwant.ldos (scattering wave functions of all lead channels, kwant's solver),
+    # on a disordered ring with 4-site-wide leads (several open channels at E = 1.9 t)
+    fsyst = _ring()
+    p = dict(phi=0.013)
+    ref = kwant.ldos(fsyst, energy, params=p)
+    got = local_dos(fsyst, energy, p)
+    np.testing.assert_allclose(got, ref, rtol=0, atol=TOL * float(ref.max()))
+    # a pre-evaluated Hamiltonian of the same parameters gives the same numbers
+    h = fsyst.hamiltonian_submatrix(sparse=True, params=p)
+    np.testing.assert_allclose(local_dos(fsyst, energy, p, hamiltonian=h), got, rtol=0, atol=0)
+
+
+def test_local_dos_of_a_chain_is_the_closed_form():
+    # clean infinite chain (hopping 1, closed form, from memory): LDOS = 1/(pi sqrt(4 - E^2))
+    # per site; a finite stretch between two semi-infinite leads is reflectionless, so every
+    # site of the scattering region has exactly this value
+    lat = kwant.lattice.chain(norbs=1)
+    syst = kwant.Builder()
+    syst[(lat(x) for x in range(7))] = 0.0
+    syst[lat.neighbors()] = -1.0
+    lead = kwant.Builder(kwant.TranslationalSymmetry((-1,)))
+    lead[lat(0)] = 0.0
+    lead[lat.neighbors()] = -1.0
+    syst.attach_lead(lead)
+    syst.attach_lead(lead.reversed())
+    energy = 0.6
+    got = local_dos(syst.finalized(), energy)
+    np.testing.assert_allclose(got, 1.0 / (np.pi * np.sqrt(4.0 - energy**2)), rtol=1e-12)
+
+
+def test_attach_probes_with_given_hamiltonian_gives_the_kwant_ldos_weights():
+    fsyst = _ring()
+    p, zero = dict(), dict(phi=0.0)
+    pr = attach_probes(fsyst, l_phi=30.0, energy=1.1, n_probes=6, params=p, zero_field=zero)
+    h = fsyst.hamiltonian_submatrix(sparse=True, params=zero)
+    pr2 = attach_probes(
+        fsyst, l_phi=30.0, energy=1.1, n_probes=6, params=p, zero_field=zero, hamiltonian=h
+    )
+    # reference weight: fraction of kwant.ldos on the probe sites (the documented mapping)
+    ldos = kwant.ldos(fsyst, 1.1, params=zero)
+    f_ref = ldos[pr.sites].sum() / ldos.sum()
+    assert abs(pr.info["probe_fraction"] - f_ref) < TOL
+    assert pr2.info["probe_fraction"] == pr.info["probe_fraction"]
+    assert pr2.eta == pr.eta and np.array_equal(pr2.sites, pr.sites)

@@ -31,7 +31,7 @@ from ringkit.tightbinding import build_ring
 from ringkit.tightbinding import builder as tb_builder
 from ringkit.transport import field_sweep
 from ringkit.transport.lowrank import FluxTubeSweeper
-from ringkit.transport.probes import attach_probes
+from ringkit.transport.probes import attach_probes, ring_probe_sites
 from ringkit.view.panels import DeviceExplorer
 from ringkit.view.panels.explorer import ExplorerParams
 from ringkit.view.panels.explorer_full import thermal_grid
@@ -159,6 +159,14 @@ def test_live_with_probes_and_temperature_equals_engine():
     live = ex.live
     ring = live_view.ring
     assert live.n_probes == 8 and live.probe_eta > 0
+    # the live probes (model LDOS, tag positions) are attach_probes' defaults (site.pos, and
+    # kwant.ldos as the independent reference of the LDOS weight)
+    zero = ring.params(flux=0.0)
+    e_f = ring.fermi_energy_lattice
+    np.testing.assert_array_equal(live.probe_sites, ring_probe_sites(ring.fsyst, 8))
+    ldos = kwant.ldos(ring.fsyst, e_f, params=zero)
+    info = live_view._probes[(e_f, tuple(sorted(zero.items())))].info
+    assert abs(info["probe_fraction"] - ldos[live.probe_sites].sum() / ldos.sum()) < 1e-12
     _, g = _live_line(ex)
     # T = 0: the engine's field_sweep with the same L_phi and probe count
     ds = field_sweep(ring, live.flux, energy=ring.fermi_energy, l_phi=1.0e-6, n_probes=8)

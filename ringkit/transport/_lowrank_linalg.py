@@ -108,6 +108,12 @@ class Factorization:
         self.ok = True
         return True
 
+    def solve(self, b: np.ndarray) -> np.ndarray:
+        """``A^-1 b`` for a dense right-hand side (after a successful :meth:`factor`)."""
+        if not self.ok:
+            raise RuntimeError("no valid factorization")
+        return np.asarray(self._ctx.solve(b))
+
     def inverse_block(self, keep: np.ndarray) -> np.ndarray:
         """``(A^-1)[keep][:, keep]`` for sorted unique ``keep`` (NaN if not factorized)."""
         nk = keep.size

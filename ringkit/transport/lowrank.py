@@ -28,7 +28,8 @@ Public API
 FluxTubeModel(fsyst, *, flux_param="flux", params=None, probe_sites=None, probe_eta=None,
               probes=None, flux_period=PHI0, max_entries=1024)
     Energy-independent preparation of a finalized kwant system (finds and checks the cut
-    bonds); ``.sweeper(energy)``.
+    bonds); ``.sweeper(energy)``, ``.with_probes(probes)`` (other probes, no re-evaluation),
+    ``.local_dos(energy, flux=0.0)`` (LDOS per orbital, as ``kwant.ldos``).
 FluxTubeSweeper(fsyst_or_model, *, energy, ..., reference_flux=None, tol=1e-8)
     One energy: ``transmission(fluxes, source=0, drain=1)``, ``transmission_matrix(fluxes)``,
     ``conductance_matrix(fluxes)``, ``conductance(fluxes)`` (probes floating),
@@ -53,6 +54,7 @@ M. A. Woodbury, Memorandum Rep. 42, Statistical Research Group, Princeton (1950)
 
 from __future__ import annotations
 
+import copy
 import warnings
 from collections.abc import Sequence
 
@@ -158,6 +160,11 @@ class FluxTubeModel:
         check_leads_flux_free(fsyst, self.flux_param, self.params, self.flux_period)
         self.n_leads = len(fsyst.leads)
         self.lead_orbitals = [self._orbitals(np.asarray(s)) for s in fsyst.lead_interfaces]
+        self._lead_cache: dict = {}
+        self._set_probes(probe_sites, probe_eta)
+
+    def _set_probes(self, probe_sites, probe_eta) -> None:
+        """Probe terminals, the fixed pattern of ``A`` and a fresh MUMPS context."""
         self.probe_sites, self.probe_eta = self._check_probes(probe_sites, probe_eta)
         self.probe_orbitals = [self._orbitals(np.array([s])) for s in self.probe_sites]
         if self.n_terminals < 2:
@@ -176,10 +183,63 @@ class FluxTubeModel:
         h_data[self._cut_pos] = 0.0  # the cut entries are added per reference flux
         zeros = [np.zeros(len(r)) for r, _ in sources[1:]]
         self._a_template = pat.fill([-h_data] + zeros)  # -H without the cut entries
-        self._lead_cache: dict = {}
         # one MUMPS context per model: energies share the symbolic analysis (same pattern).
         # A sweeper uses it only while it is being built, so sweepers may coexist (one thread).
         self._lu = Factorization()
+
+    def with_probes(
+        self,
+        probes=None,
+        *,
+        probe_sites: Sequence | None = None,
+        probe_eta: float | Sequence[float] | None = None,
+    ) -> FluxTubeModel:
+        """The same system and parameters with other probes (or none), without re-evaluation.
+
+        Shares the evaluated Hamiltonian ``h0``, the detected cut and the lead matrices with
+        this model (the probes only add terminal self-energies); the result is what
+        ``FluxTubeModel(self.fsyst, params=self.params, probes=probes, ...)`` gives.
+        """
+        if probes is not None:
+            if probe_sites is not None or probe_eta is not None:
+                raise ParameterError("probes", probes, "give either probes or probe_sites/eta")
+            probe_sites, probe_eta = list(np.atleast_1d(probes.sites)), probes.eta
+        new = copy.copy(self)
+        new._set_probes(probe_sites, probe_eta)
+        if np.array_equal(new._pattern.rows, self._pattern.rows) and np.array_equal(
+            new._pattern.cols, self._pattern.cols
+        ):
+            new._lu = self._lu  # same pattern (one-orbital probes): reuse the symbolic analysis
+        return new
+
+    def local_dos(self, energy: float, flux: float = 0.0) -> np.ndarray:
+        """LDOS per orbital at ``flux``, summed over the scattering states of all terminals.
+
+        ``(G Gamma G^dagger)_ii / (2 pi)`` with ``Gamma`` of every lead and probe; without
+        probes this is what ``kwant.ldos`` returns (tests/test_lowrank.py compares to 1e-10).
+        One sparse LU in the model's MUMPS context (shares the symbolic analysis with the
+        sweepers) and one solve with the ``Gamma`` factors as right-hand sides.
+        """
+        energy = float(energy)
+        sig = lead_self_energies(self.fsyst.leads, self.params, energy, self._lead_cache)
+        for o, eta in zip(self.probe_orbitals, self.probe_eta, strict=True):
+            sig.append(-0.5j * eta * np.eye(o.size))
+        data = self._assemble(energy, sig, float(flux))
+        factors = [gamma_factor(x) for x in sig]
+        n = self.h0.shape[0]
+        rhs = np.zeros((n, sum(f.shape[1] for f in factors)), dtype=complex)
+        c = 0
+        for o, f in zip(self.lead_orbitals + self.probe_orbitals, factors, strict=True):
+            rhs[o, c : c + f.shape[1]] = f
+            c += f.shape[1]
+        if rhs.shape[1] == 0:
+            return np.zeros(n)
+        if not self._lu.factor(self._pattern.matrix(data)):
+            raise np.linalg.LinAlgError(
+                f"E - H - Sigma is singular at flux {flux!r}, energy {energy!r}"
+            )
+        psi = self._lu.solve(rhs)
+        return (np.abs(psi) ** 2).sum(axis=1) / (2.0 * np.pi)
 
     def _assemble(self, energy: float, sigmas: list[np.ndarray], ref: float) -> np.ndarray:
         """Data of ``A = E - H(ref) - Sigma`` in the fixed pattern."""

@@ -43,7 +43,7 @@ between the two.
 Public API
 ----------
 DephasingProbes, ring_probe_sites, attach_probes, coupling_from_lphi, lphi_from_coupling,
-lead_velocity, effective_conductance, conductance_matrix_from_transmission
+lead_velocity, local_dos, effective_conductance, conductance_matrix_from_transmission
 """
 
 from __future__ import annotations
@@ -52,6 +52,7 @@ from dataclasses import dataclass, field
 
 import kwant
 import numpy as np
+import scipy.sparse as sp
 
 from ringkit._validation import ParameterError, check_positive
 from ringkit.transport.fastsweep import kron_reduce
@@ -65,6 +66,7 @@ __all__ = [
     "coupling_from_lphi",
     "lphi_from_coupling",
     "lead_velocity",
+    "local_dos",
     "conductance_matrix_from_transmission",
     "effective_conductance",
 ]
@@ -124,7 +126,13 @@ def _positions(fsyst) -> np.ndarray:
     return pos[:, :2]
 
 
-def ring_probe_sites(fsyst, n_probes: int, *, center: tuple[float, float] | None = None):
+def ring_probe_sites(
+    fsyst,
+    n_probes: int,
+    *,
+    center: tuple[float, float] | None = None,
+    positions: np.ndarray | None = None,
+):
     """Pick ``n_probes`` sites spread evenly along both arms of a two-lead ring.
 
     The arms are the two angular sectors between the angles of the lead-0 and lead-1
@@ -132,6 +140,9 @@ def ring_probe_sites(fsyst, n_probes: int, *, center: tuple[float, float] | None
     a share of probes proportional to its angular extent; probes sit at the centres of equal
     angular sub-intervals (never at a junction), each on the site nearest to the middle radius
     of its sub-interval. Lead-interface sites are never used.
+
+    ``positions`` (n_sites, 2), in kwant's site order and position units, may be given when
+    already known (the same numbers as ``site.pos``); otherwise they are read from the sites.
 
     Returns
     -------
@@ -143,7 +154,13 @@ def ring_probe_sites(fsyst, n_probes: int, *, center: tuple[float, float] | None
         raise ParameterError("n_probes", n_probes, "must be >= 1")
     if len(fsyst.lead_interfaces) < 2:
         raise ParameterError("fsyst", "system", "needs two leads to define the arms")
-    pos = _positions(fsyst)
+    if positions is None:
+        pos = _positions(fsyst)
+    else:
+        pos = np.asarray(positions, dtype=float)
+        if pos.ndim != 2 or pos.shape[0] != len(fsyst.sites) or pos.shape[1] < 2:
+            raise ParameterError("positions", pos.shape, f"must be ({len(fsyst.sites)}, 2)")
+        pos = pos[:, :2]
     iface0 = np.asarray(fsyst.lead_interfaces[0])
     iface1 = np.asarray(fsyst.lead_interfaces[1])
     if center is None:
@@ -193,6 +210,74 @@ def lead_velocity(fsyst, energy: float, params: dict | None = None, lead: int = 
     if v.size == 0:
         raise ParameterError("energy", energy, f"lead {lead} has no open channel there")
     return float(v.mean())
+
+
+def local_dos(fsyst, energy: float, params: dict | None = None, *, hamiltonian=None) -> np.ndarray:
+    """Local density of states of the scattering region per orbital (same values as kwant.ldos).
+
+    ``ldos_i = (G Gamma G^dagger)_ii / (2 pi)`` with ``G = (E - H - Sigma)^-1`` and
+    ``Gamma = i (Sigma - Sigma^dagger)`` summed over the leads: the scattering states of all
+    lead channels, which is what ``kwant.ldos`` sums. Computed from one sparse LU (MUMPS, AMD
+    ordering) and one solve with the ``Gamma`` factors of the lead interfaces as right-hand
+    sides, without kwant's wave-function machinery (tests/test_probes.py compares with
+    ``kwant.ldos`` to 1e-10).
+
+    Parameters
+    ----------
+    fsyst : kwant.system.FiniteSystem
+        System with leads (not precalculated).
+    energy : float
+        Energy in Hamiltonian units.
+    params : dict, optional
+        kwant parameters.
+    hamiltonian : scipy.sparse matrix, optional
+        ``fsyst.hamiltonian_submatrix(sparse=True, params=params)`` if already evaluated (e.g.
+        ``FluxTubeModel.h0``); it must belong to the same ``params``.
+
+    Returns
+    -------
+    ndarray
+        LDOS per orbital in units of 1/(energy unit).
+    """
+    from ringkit.transport._lowrank_linalg import (
+        Factorization,
+        gamma_factor,
+        lead_self_energies,
+    )
+
+    params = dict(params or {})
+    if hamiltonian is None:
+        hamiltonian = fsyst.hamiltonian_submatrix(sparse=True, params=params)
+    h = sp.coo_matrix(hamiltonian, dtype=complex)
+    n = h.shape[0]
+    rows, cols, data = [h.row, np.arange(n)], [h.col, np.arange(n)], [-h.data]
+    data.append(np.full(n, float(energy), dtype=complex))
+    offs = np.r_[0, np.cumsum([s.family.norbs or 1 for s in fsyst.sites])]
+    sigmas = lead_self_energies(fsyst.leads, params, float(energy), {})
+    orbs = []
+    for iface, sig in zip(fsyst.lead_interfaces, sigmas, strict=True):
+        o = np.concatenate([np.arange(offs[s], offs[s + 1]) for s in iface]).astype(np.int64)
+        orbs.append(o)
+        rows.append(np.repeat(o, o.size))
+        cols.append(np.tile(o, o.size))
+        data.append(-np.asarray(sig).ravel())
+    a = sp.coo_matrix(
+        (np.concatenate(data), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n)
+    )
+    a.sum_duplicates()
+    factors = [gamma_factor(s) for s in sigmas]
+    rhs = np.zeros((n, sum(f.shape[1] for f in factors)), dtype=complex)
+    c = 0
+    for o, f in zip(orbs, factors, strict=True):
+        rhs[o, c : c + f.shape[1]] = f
+        c += f.shape[1]
+    if rhs.shape[1] == 0:
+        return np.zeros(n)
+    lu = Factorization()
+    if not lu.factor(a):
+        raise ParameterError("energy", energy, "E - H - Sigma is singular there (bound state)")
+    psi = lu.solve(rhs)
+    return (np.abs(psi) ** 2).sum(axis=1) / (2.0 * np.pi)
 
 
 def coupling_from_lphi(
@@ -267,6 +352,9 @@ def attach_probes(
     diffusion_constant: float | None = None,
     center: tuple[float, float] | None = None,
     calibration: float | str = "auto",
+    hamiltonian=None,
+    ldos: np.ndarray | None = None,
+    positions: np.ndarray | None = None,
 ) -> DephasingProbes:
     """Dephasing probes along both arms of a two-lead ring, coupled for a given ``l_phi``.
 
@@ -295,6 +383,14 @@ def attach_probes(
     calibration : float or "auto"
         Multiplier of eta; "auto": 1 for single-channel networks, else
         :data:`CALIBRATION_LATTICE`.
+    hamiltonian : scipy.sparse matrix, optional
+        The zero-field Hamiltonian (kwant's ``hamiltonian_submatrix`` at ``params`` and
+        ``zero_field``) if already evaluated, e.g. ``FluxTubeModel.h0``; saves one evaluation.
+    ldos : ndarray, optional
+        The zero-field LDOS per orbital if already computed (:func:`local_dos`, or
+        ``FluxTubeModel.local_dos`` of the probe-free model); then ``hamiltonian`` is not used.
+    positions : ndarray, optional
+        Site positions (n_sites, 2) in position units, as :func:`ring_probe_sites` takes them.
 
     Returns
     -------
@@ -305,10 +401,12 @@ def attach_probes(
         raise ParameterError("fsyst", type(fsyst).__name__, "must be a finalized kwant system")
     a = check_positive("lattice_spacing", lattice_spacing, "m")
     l_phi = check_positive("l_phi", l_phi, "m")
-    sites = ring_probe_sites(fsyst, n_probes, center=center)
+    sites = ring_probe_sites(fsyst, n_probes, center=center, positions=positions)
     full = {**dict(params or {}), **dict(zero_field or {})}
     # probability weight on the probe sites (zero-field LDOS); uniform -> n_probes/n_sites
-    ldos = kwant.ldos(fsyst, energy, params=full)
+    if ldos is None:
+        ldos = local_dos(fsyst, energy, full, hamiltonian=hamiltonian)
+    ldos = np.asarray(ldos, dtype=float)
     offs = np.r_[0, np.cumsum([s.family.norbs or 1 for s in fsyst.sites])]
     f = float(sum(ldos[offs[s] : offs[s + 1]].sum() for s in sites) / ldos.sum())
     v = lead_velocity(fsyst, energy, full)

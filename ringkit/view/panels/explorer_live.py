@@ -16,7 +16,10 @@ This module is the computation (no widgets); :class:`LiveLattice` keeps what did
 * the dephasing-probe sites and the local-density weights behind the L_phi -> coupling
   mapping (:func:`ringkit.transport.probes.attach_probes`, cached per lattice, E_F and gate;
   a new L_phi only recomputes the coupling with the same formula);
-* one :class:`~ringkit.transport.lowrank.FluxTubeModel` per (lattice, gate, probes) and one
+* one probe-free :class:`~ringkit.transport.lowrank.FluxTubeModel` per (lattice, gate): the
+  only evaluation of the Hamiltonian; it also gives the zero-field LDOS of the probe weights
+  (``FluxTubeModel.local_dos``), and the model with probes is derived from it per probe set
+  (``with_probes``: no re-evaluation, no new cut detection); one
   :class:`~ringkit.transport.lowrank.FluxTubeSweeper` (one sparse factorization) per energy.
 
 Flux grid: the flux-tube conductance is exactly periodic in the hole flux with period h/e
@@ -75,7 +78,7 @@ LIVE_MAX_SITES = 12_000
 LIVE_MAX_ENERGIES = 3
 """Energies of the thermal average in the live view (one factorization each)."""
 
-_MAX_MODELS = 4
+_MAX_MODELS = 6  # probe-free base models and models with probes
 _MAX_SWEEPERS = 12
 _MAX_PROBE_SETS = 8
 _BLAS: list = []  # lazily created threadpoolctl controller (empty: not looked up yet)
@@ -341,8 +344,25 @@ class LiveLattice:
         self.builds += 1
         return ring, True
 
-    def _dephasing(self, ring, params: ExplorerParams):
-        """Probes for L_phi (None if coherent): sites and weights cached per E_F and gate."""
+    def _base_model(self, ring, timings: dict):
+        """Probe-free flux-tube model of the lattice at its gate (cached per parameters)."""
+        from ringkit.transport.lowrank import FluxTubeModel
+
+        zero = ring.params(flux=0.0)
+        t0 = time.perf_counter()
+        model, _ = self._models.get_or(
+            (tuple(sorted(zero.items())), None),
+            lambda: FluxTubeModel(ring.fsyst, params=zero),
+        )
+        timings["model"] += time.perf_counter() - t0
+        return model
+
+    def _dephasing(self, ring, params: ExplorerParams, base):
+        """Probes for L_phi (None if coherent): sites and weights cached per E_F and gate.
+
+        The zero-field LDOS behind the weights comes from the probe-free model ``base`` (same
+        parameters, flux 0; its MUMPS analysis is then shared with the sweepers).
+        """
         from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_lphi
 
         l_phi = params.phase_coherence_length
@@ -353,9 +373,11 @@ class LiveLattice:
         key = (e_f, tuple(sorted(zero.items())))
 
         def make():
+            # kwant's site positions on ringkit's unit square lattice are the integer tags
             return attach_probes(
                 ring.fsyst, l_phi=l_phi, energy=e_f, n_probes=self.n_probes,
                 lattice_spacing=ring.lattice_spacing, params=zero,
+                ldos=base.local_dos(e_f), positions=np.asarray(ring.tags, dtype=float),
             )  # fmt: skip
 
         probes, made = self._probes.get_or(key, make)
@@ -369,9 +391,12 @@ class LiveLattice:
         )  # fmt: skip
         return DephasingProbes(probes.sites, eta, l_phi, dict(info))
 
-    def _sweeper(self, ring, probes, e_t: float, timings: dict):
-        """Cached sweeper at lattice energy ``e_t``; returns (sweeper, newly factorized)."""
-        from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
+    def _sweeper(self, ring, base, probes, e_t: float, timings: dict):
+        """Cached sweeper at lattice energy ``e_t``; returns (sweeper, newly factorized).
+
+        The model with probes shares the evaluated Hamiltonian and cut of ``base``.
+        """
+        from ringkit.transport.lowrank import FluxTubeSweeper
 
         zero = ring.params(flux=0.0)
         pkey = None
@@ -380,7 +405,7 @@ class LiveLattice:
         mkey = (tuple(sorted(zero.items())), pkey)
         t0 = time.perf_counter()
         model, _ = self._models.get_or(
-            mkey, lambda: FluxTubeModel(ring.fsyst, params=zero, probes=probes)
+            mkey, lambda: base if probes is None else base.with_probes(probes)
         )
         t1 = time.perf_counter()
         sweeper, made = self._sweepers.get_or(
@@ -425,8 +450,9 @@ class LiveLattice:
         energies, weights, note = thermal_grid(ring, params.temperature, self.max_energies)
         notes = [note]
 
+        base = self._base_model(ring, timings)
         t0 = time.perf_counter()
-        probes = self._dephasing(ring, params)
+        probes = self._dephasing(ring, params, base)
         timings["probes"] = time.perf_counter() - t0
         if probes is not None:
             notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
@@ -434,7 +460,7 @@ class LiveLattice:
         n_fact = 0
         fallbacks = 0
         for e_j, w in zip(energies, weights, strict=True):
-            sweeper, made = self._sweeper(ring, probes, ring.to_lattice_energy(e_j), timings)
+            sweeper, made = self._sweeper(ring, base, probes, ring.to_lattice_energy(e_j), timings)
             n_fact += made
             before = sweeper.n_fallback
             t0 = time.perf_counter()
