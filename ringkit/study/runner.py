@@ -21,9 +21,16 @@ from __future__ import annotations
 import contextlib
 import multiprocessing
 import os
+import threading
 import time
 from collections.abc import Callable, Iterator
-from concurrent.futures import Executor, Future, ProcessPoolExecutor, as_completed
+from concurrent.futures import (
+    Executor,
+    Future,
+    InvalidStateError,
+    ProcessPoolExecutor,
+    as_completed,
+)
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -93,13 +100,16 @@ def open_executor(config: StudyConfig, *, workers: int | None = None) -> Iterato
             initializer=_worker_init,
             initargs=(os.getpid(),),
         )
+        previous_hook = threading.excepthook
         try:
             yield pool
         except BaseException:
+            threading.excepthook = _quiet_cancelled_future_hook(previous_hook)
             _terminate_workers(pool)
             raise
         finally:
             pool.shutdown(wait=True, cancel_futures=True)
+            threading.excepthook = previous_hook
     elif kind == "dask":
         with _dask_executor(ex["address"], n) as dex:
             yield dex
@@ -132,6 +142,23 @@ def _worker_init(parent_pid: int) -> None:
                 os._exit(1)
 
     threading.Thread(target=watch, name="ringkit-parent-watch", daemon=True).start()
+
+
+def _quiet_cancelled_future_hook(previous):
+    """Thread excepthook that drops the executor's InvalidStateError after a forced stop.
+
+    When the workers are terminated after Ctrl-C, CPython 3.11's pool management thread marks
+    the pool broken and tries to set an exception on futures that were already cancelled,
+    raising ``InvalidStateError`` in that thread (a traceback on stderr, nothing else). The
+    finished units are already saved; every other thread exception still goes to ``previous``.
+    """
+
+    def hook(args) -> None:
+        if args.exc_type is not None and issubclass(args.exc_type, InvalidStateError):
+            return
+        previous(args)
+
+    return hook
 
 
 def _terminate_workers(pool: ProcessPoolExecutor) -> None:
