@@ -57,3 +57,32 @@ def test_notebook_runs_and_draws(name, tmp_path, monkeypatch):
     assert "Traceback" not in text
     if name.startswith("03"):
         assert "INVENTED" in "".join(c.source for c in nb.cells)
+
+
+@pytest.mark.notebook
+def test_ensemble_progress_bar_is_a_widget_in_a_kernel(tmp_path, monkeypatch):
+    """run_ensemble's tqdm.auto bar renders as a Jupyter widget inside a kernel (issue: progress
+    bars must work in a terminal and in a notebook; the terminal case is in test_ensemble)."""
+    monkeypatch.delenv("MPLBACKEND", raising=False)
+    code = (
+        "import numpy as np\n"
+        "from ringkit.transport.ensemble import SerialExecutor, run_ensemble\n"
+        "def task(seed):\n"
+        "    return np.array([float(seed), 2.0 * seed])\n"
+        "res = run_ensemble(task, range(4), executor=SerialExecutor(), progress=True)\n"
+        "print(res.values.sum())\n"
+    )
+    nb = nbformat.v4.new_notebook(cells=[nbformat.v4.new_code_cell(code)])
+    nb.metadata["kernelspec"] = {
+        "name": "python3",
+        "display_name": "Python 3",
+        "language": "python",
+    }
+    client = nbclient.NotebookClient(
+        nb, kernel_name="python3", timeout=120, resources={"metadata": {"path": str(tmp_path)}}
+    )
+    client.execute()
+    outs = list(_outputs(nb))
+    assert not [o for o in outs if o.output_type == "error"]
+    assert any("application/vnd.jupyter.widget-view+json" in o.get("data", {}) for o in outs)
+    assert "18.0" in "".join(o.get("text", "") for o in outs if o.output_type == "stream")
