@@ -125,7 +125,6 @@ def _worker_init(parent_pid: int) -> None:
     the worker was re-parented.
     """
     import signal
-    import threading
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     with contextlib.suppress(Exception):  # Linux only
