@@ -272,7 +272,7 @@ def test_out_of_order_duplicates_modes_and_short_segments(tmp_path):
     g = [1.0, 2.0, 3.0, 4.0, 5.0, 7.0, 8.0, 9.0, 10.0, 11.0, 12.0, 13.0, 14.0, 15.0, 16.0]
     p = tmp_path / "d.csv"
     p.write_text("B (T),G (S)\n" + "".join(f"{x},{y}\n" for x, y in zip(b, g, strict=True)))
-    res = load_traces(p, signal_unit="e^2/h")
+    res = load_traces(p, signal_unit="e^2/h", override_units=True)
     (tr,) = res.traces  # the short down segment (2 rows) is dropped and reported
     assert res.report.dropped == {"sweep segment shorter than 8 points": 2}
     assert res.report.adjusted == {
@@ -281,14 +281,16 @@ def test_out_of_order_duplicates_modes_and_short_segments(tmp_path):
     }
     assert tr.field[:4] == pytest.approx([0.0, 0.1, 0.18, 0.2])
     assert tr.conductance[4] == pytest.approx(6.0)  # mean of 5 and 7 at B = 0.3
-    res2 = load_traces(p, signal_unit="e^2/h", out_of_order="drop", duplicates="drop")
+    res2 = load_traces(
+        p, signal_unit="e^2/h", out_of_order="drop", duplicates="drop", override_units=True
+    )
     assert res2.report.dropped == {
         "field out of order within a sweep": 1,
         "duplicate field value": 1,
         "sweep segment shorter than 8 points": 2,
     }
     assert res2.report.n_used + res2.report.n_dropped == res2.report.n_points == 15
-    res3 = load_traces(p, signal_unit="e^2/h", split_sweeps=False)
+    res3 = load_traces(p, signal_unit="e^2/h", split_sweeps=False, override_units=True)
     assert len(res3.traces) == 1 and res3.traces[0].direction == "merged"
     assert any("merged" in c for c in res3.report.caveats)
 

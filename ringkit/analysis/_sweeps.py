@@ -108,8 +108,9 @@ def clean_segment(
         tally.add("drop", "duplicate field value", list(where[dup_rows]))
         return b[~dup_rows], g[~dup_rows], where[~dup_rows]
     tally.add("adjust", "duplicate field value (signal averaged)", list(where[dup_rows]))
-    sums = np.add.reduceat(g, start)
-    return uniq, sums / counts, where
+    # sum of g/n rather than sum(g)/n: no overflow for values near the float maximum
+    means = np.add.reduceat(g / np.repeat(counts, counts), start)
+    return uniq, means, where
 
 
 def to_conductance(
@@ -119,15 +120,18 @@ def to_conductance(
     series: float,
     terminals: str,
     reference: float | None,
-) -> tuple[np.ndarray, np.ndarray, str]:
-    """Convert to e^2/h; returns (G, bad mask, reason for bad rows)."""
-    si = values * factor
-    with np.errstate(divide="ignore", invalid="ignore"):
+) -> tuple[np.ndarray, list[tuple[np.ndarray, str]]]:
+    """Convert to e^2/h; returns (G, [(bad mask, reason), ...]).
+
+    Rows whose converted conductance is not finite (overflow of ``R * factor`` or of
+    ``1/R`` for R near the smallest float) are bad too: no non-finite value reaches a trace.
+    """
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        si = values * factor
         if quantity == "R":
             if terminals == "four" and reference is not None:
                 g_s = 1.0 / reference - (si - reference) / reference**2
-                bad = np.zeros(si.size, dtype=bool)
-                reason = ""
+                bad, reason = np.zeros(si.size, dtype=bool), ""
             elif terminals == "four":
                 bad = ~(si > 0)
                 g_s = 1.0 / si
@@ -136,14 +140,16 @@ def to_conductance(
                 bad = ~(si - series > 0)
                 g_s = 1.0 / (si - series)
                 reason = "resistance <= series resistance"
+        elif series > 0:
+            inv = 1.0 / si - series
+            bad = ~(inv > 0)
+            g_s = 1.0 / inv
+            reason = "1/G <= series resistance"
         else:
-            if series > 0:
-                inv = 1.0 / si - series
-                bad = ~(inv > 0)
-                g_s = 1.0 / inv
-                reason = "1/G <= series resistance"
-            else:
-                bad = np.zeros(si.size, dtype=bool)
-                g_s = si
-                reason = ""
-    return g_s / E2H, bad, reason
+            bad, reason = np.zeros(si.size, dtype=bool), ""
+            g_s = si
+        g = g_s / E2H
+    out = [(bad, reason)]
+    overflow = ~np.isfinite(g) & ~bad & np.isfinite(values)
+    out.append((overflow, "value out of range: conductance not finite after unit conversion"))
+    return g, out

@@ -18,7 +18,7 @@ What the loader does (and reports)
   never a guess.
 * Resistance -> conductance ``G = 1/(R - R_series)`` (two-terminal). Four-terminal data are
   flagged: ``R_mn,kl`` is not the inverse of a ring conductance, may be negative and is not
-  even in B (physics notes §12.1); ``G = 1/R`` is then only indicative, or, with
+  even in B (Büttiker 1986; docs/measured-data.md); ``G = 1/R`` is then only indicative, or, with
   ``reference_resistance=R_2t``, linearised as ``G = 1/R_2t - (R - R_2t)/R_2t^2``
   (``dG = -dR/R_2t^2``). The caveat is stored in ``Trace.metadata["caveats"]``.
 * Several traces: one per signal column, per value of a ``group_by`` column (e.g.
@@ -36,18 +36,26 @@ from pathlib import Path
 
 import numpy as np
 
-from ringkit._validation import ParameterError, check_choice, check_range
+from ringkit._validation import ParameterError
 from ringkit.analysis._columns import ColumnInfo, parse_label, parse_unit
+from ringkit.analysis._loadopts import GROUP_AUTO, validate_options
 from ringkit.analysis._sweeps import Tally, clean_segment, segments, to_conductance
-from ringkit.analysis._textfile import TraceFormatError, read_table, temperature_from_text
+from ringkit.analysis._textfile import (
+    TraceFormatError,
+    header_temperature,
+    read_table,
+    temperature_from_text,
+)
 
 __all__ = ["Trace", "LoadReport", "LoadResult", "TraceFormatError", "load_traces"]
 
 _SUFFIXES = (".txt", ".dat", ".csv", ".tsv")
 _CAVEAT_4T = (
     "four-terminal resistance: G = 1/R is not the conductance of the ring (R_mn,kl may be "
-    "negative and is not even in B; physics notes §12.1); amplitudes are indicative only"
+    "negative and is not even in B; Buttiker, Phys. Rev. Lett. 57, 1761 (1986); "
+    "docs/measured-data.md, 'Four-terminal data'); amplitudes are indicative only"
 )
+_TEMP_KEYS = ("temp", "temperature", "t_mc", "t_sample")
 
 
 @dataclass(frozen=True)
@@ -143,11 +151,31 @@ def _pick(spec: str | int, infos: list[ColumnInfo], path: Path, what: str) -> in
             )
         return int(spec)
     key = str(spec).strip().lower()
-    for i, info in enumerate(infos):
-        if key in (info.label.lower(), info.name.lower()):
-            return i
     names = ", ".join(repr(c.label) for c in infos)
+    for attr in ("label", "name"):
+        hits = [i for i, c in enumerate(infos) if getattr(c, attr).lower() == key]
+        if len(hits) == 1:
+            return hits[0]
+        if len(hits) > 1:
+            choices = ", ".join(f"{infos[i].label!r} (index {i})" for i in hits)
+            raise ParameterError(
+                what, spec, f"matches {len(hits)} columns of {path.name}: give one of {choices}"
+            )
     raise TraceFormatError(f"{path}: no {what} column named {spec!r} (columns: {names})")
+
+
+def _column_infos(labels: list[str] | None, ncol: int) -> list[ColumnInfo]:
+    """Parsed labels; repeated labels get ``#<index>`` appended (e.g. ``R (Ohm)#2``)."""
+    if labels is None:
+        return [ColumnInfo(f"column {j}", f"column {j}", None, None, None) for j in range(ncol)]
+    infos = [parse_label(x) for x in labels]
+    seen = [c.label for c in infos]
+    return [
+        ColumnInfo(f"{c.label}#{j}", c.name, c.unit, c.quantity, c.factor)
+        if seen.count(c.label) > 1
+        else c
+        for j, c in enumerate(infos)
+    ]
 
 
 def load_traces(
@@ -157,7 +185,7 @@ def load_traces(
     signal: str | int | list | None = None,
     field_unit: str | None = None,
     signal_unit: str | None = None,
-    group_by: str | int | None = None,
+    group_by: str | int | None = GROUP_AUTO,
     group_rtol: float = 1e-3,
     delimiter: str | None = None,
     comment: str = "#",
@@ -172,6 +200,8 @@ def load_traces(
     min_points: int = 8,
     temperature: float | None = None,
     pattern: str = "*",
+    max_bytes: int = 2**26,
+    override_units: bool = False,
 ) -> LoadResult:
     """Read measured magnetoresistance/conductance traces from a text file or folder.
 
@@ -187,9 +217,11 @@ def load_traces(
     field_unit, signal_unit : str, optional
         Units overriding the header (needed when the header has none), e.g. ``"mT"``,
         ``"kOhm"``, ``"e^2/h"``. The signal unit also says whether it is R or G.
-    group_by : str or int, optional
+    group_by : str or int, "auto" or None
         Column (e.g. temperature) whose distinct values (within ``group_rtol``) give
         separate traces; a column with unit K/mK sets ``metadata["temperature"]``.
+        ``"auto"`` (default) groups by the file's temperature column if it has exactly one
+        (a caveat says so); None never groups.
     delimiter, comment, decimal : str
         Text format; ``delimiter=None`` detects tab, semicolon, comma or whitespace.
     series_resistance : float
@@ -213,6 +245,12 @@ def load_traces(
         Temperature in K for every trace (overrides header and file name).
     pattern : str
         Glob pattern for folders.
+    max_bytes : int
+        Largest file read (default 64 MiB); only regular files are read (devices, FIFOs
+        and sockets are refused without opening them).
+    override_units : bool
+        A ``field_unit``/``signal_unit`` that contradicts the unit in the column label is a
+        ParameterError unless this is True (the option then wins; a caveat records it).
 
     Returns
     -------
@@ -225,22 +263,7 @@ def load_traces(
     ParameterError
         Invalid options. ``OSError`` if the path cannot be read.
     """
-    check_choice("terminals", terminals, ("two", "four"))
-    check_choice("out_of_order", out_of_order, ("sort", "drop"))
-    check_choice("duplicates", duplicates, ("average", "drop"))
-    check_range("series_resistance", series_resistance, 0.0, None, "Ohm")
-    check_range("reversal_fraction", reversal_fraction, 0.0, 0.5, inclusive=(False, True))
-    if terminals == "four" and series_resistance > 0:
-        raise ParameterError(
-            "series_resistance", series_resistance, "applies to two-terminal data only", "Ohm"
-        )
-    if reference_resistance is not None:
-        check_range(
-            "reference_resistance", reference_resistance, 0.0, None, "Ohm", inclusive=(False, True)
-        )
-    for name, unit in (("field_unit", field_unit), ("signal_unit", signal_unit)):
-        if unit is not None and parse_unit(unit) is None:
-            raise ParameterError(name, unit, "unknown unit (e.g. T, mT, G, Ohm, kOhm, S, e^2/h)")
+    o = validate_options(dict(locals()))
     p = Path(path)
     if p.is_dir():
         files = sorted(f for f in p.glob(pattern) if f.is_file() and f.suffix.lower() in _SUFFIXES)
@@ -250,57 +273,99 @@ def load_traces(
             )
     else:
         files = [p]
+    o["series"] = float(series_resistance)
+    o["reference"] = reference_resistance
+    o["min_points"] = int(min_points)
     tally = Tally()
     traces: list[Trace] = []
-    opts = dict(
-        field=field,
-        signal=signal,
-        field_unit=field_unit,
-        signal_unit=signal_unit,
-        group_by=group_by,
-        group_rtol=group_rtol,
-        delimiter=delimiter,
-        comment=comment,
-        decimal=decimal,
-        series=float(series_resistance),
-        terminals=terminals,
-        reference=reference_resistance,
-        split_sweeps=split_sweeps,
-        reversal_fraction=reversal_fraction,
-        out_of_order=out_of_order,
-        duplicates=duplicates,
-        min_points=int(min_points),
-        temperature=temperature,
-    )
     for f in files:
-        traces.extend(_load_file(f, tally, **opts))
+        traces.extend(_load_file(f, tally, o))
     if not traces:
         raise TraceFormatError(f"{p}: no trace with at least {min_points} valid points")
     return LoadResult(traces=tuple(traces), report=LoadReport(**tally.counts()))
 
 
-def _load_file(path: Path, tally: Tally, **o) -> list[Trace]:
-    labels, data, lines, header = read_table(path, o["delimiter"], o["comment"], o["decimal"])
-    ncol = data.shape[1]
-    infos = (
-        [parse_label(x) for x in labels]
-        if labels is not None
-        else [ColumnInfo(f"column {j}", f"column {j}", None, None, None) for j in range(ncol)]
+def _file_temperature(
+    path: Path, table, option: float | None
+) -> tuple[float | None, str, str | None]:
+    """Temperature in K of a whole file: option, else ``# T = ...`` header, else file name.
+
+    Returns (kelvin or None, source, caveat or None). A negative header temperature refuses
+    the file; a value without a unit is ignored with a caveat.
+    """
+    if option is not None:
+        return float(option), "option", None
+    caveat = None
+    for key, value in table.meta.items():
+        if key in ("T", "T_mc", "T_sample") or key.lower() in _TEMP_KEYS:
+            kelvin, problem = header_temperature(value)
+            where = f"{path}, line {table.meta_lines[key]}"
+            if problem is not None and "negative" in problem:
+                raise TraceFormatError(
+                    f"{where}: header {key} = {value!r}: {problem}; "
+                    "fix the header or give the temperature option (--temperature)"
+                )
+            if problem is not None:
+                caveat = f"{where}: header {key} = {value!r} not used as temperature: {problem}"
+                continue
+            return kelvin, f"header line {table.meta_lines[key]}", None
+    t = temperature_from_text(path.stem)
+    return t, ("file name" if t is not None else ""), caveat
+
+
+def _unit_conflict(info: ColumnInfo, option: str | None, what: str) -> str | None:
+    """Message when a unit option contradicts the unit written in the column label."""
+    if option is None or info.unit is None or info.factor is None:
+        return None
+    quantity, factor = parse_unit(option)
+    if quantity == info.quantity and np.isclose(factor, info.factor, rtol=1e-12, atol=0):
+        return None
+    if quantity == info.quantity:
+        return (
+            f"contradicts the header label {info.label!r} (unit {info.unit!r}): values would "
+            f"be scaled by {factor / info.factor:.6g} relative to the header; drop the "
+            f"{what} unit option (the header unit is used) or fix the header"
+        )
+    return (
+        f"is a {quantity} unit but the header label {info.label!r} is a {info.quantity} "
+        f"column: drop the {what} unit option or pick another column"
     )
+
+
+def _load_file(path: Path, tally: Tally, o: dict) -> list[Trace]:
+    table = read_table(path, o["delimiter"], o["comment"], o["decimal"], o["max_bytes"])
+    data = table.data
+    ncol = data.shape[1]
+    infos = _column_infos(table.labels, ncol)
     tally.files.append(str(path))
+    conflicts: list[tuple[str, str, str]] = []
     # field column
     if o["field"] is not None:
         jf = _pick(o["field"], infos, path, "field")
     else:
         cands = [j for j, c in enumerate(infos) if c.quantity == "field"]
+        if len(cands) > 1:
+            choices = ", ".join(repr(infos[j].label) for j in cands)
+            raise ParameterError(
+                "field", None, f"{path.name} has field columns {choices}: pick one"
+            )
         jf = cands[0] if cands else 0
+    msg = _unit_conflict(infos[jf], o["field_unit"], "field")
+    if msg:
+        conflicts.append(("field_unit", o["field_unit"], msg))
     f_factor = parse_unit(o["field_unit"])[1] if o["field_unit"] else infos[jf].factor
     if f_factor is None or (o["field_unit"] is None and infos[jf].quantity != "field"):
         raise TraceFormatError(
             f"{path}: unit of field column {infos[jf].label!r} unknown; give field_unit "
             "(T, mT, G, ...) or a header like 'B (T)'"
         )
-    jg = _pick(o["group_by"], infos, path, "group_by") if o["group_by"] is not None else None
+    if o["group_by"] == GROUP_AUTO:
+        temps = [j for j, c in enumerate(infos) if c.quantity == "temperature" and j != jf]
+        jg = temps[0] if len(temps) == 1 else None
+    elif o["group_by"] is not None:
+        jg = _pick(o["group_by"], infos, path, "group_by")
+    else:
+        jg = None
     # signal columns
     if o["signal"] is None:
         js = [j for j, c in enumerate(infos) if c.quantity in ("R", "G") and j not in (jf, jg)]
@@ -314,18 +379,16 @@ def _load_file(path: Path, tally: Tally, **o) -> list[Trace]:
             js = rest
     else:
         specs = o["signal"] if isinstance(o["signal"], (list, tuple)) else [o["signal"]]
-        js = [_pick(s, infos, path, "signal") for s in specs]
-    file_temp = o["temperature"]
-    if file_temp is None:
-        for key, value in header.items():
-            if key.lower() in ("t", "temp", "temperature", "t_mc", "t_sample"):
-                file_temp = temperature_from_text(value)
-                break
-    if file_temp is None:
-        file_temp = temperature_from_text(path.stem)
+        js = [_pick(sp, infos, path, "signal") for sp in specs]
+    file_temp, temp_source, temp_caveat = _file_temperature(path, table, o["temperature"])
+    if temp_caveat:
+        tally.caveats.append(temp_caveat)
     out: list[Trace] = []
     for j in js:
         info = infos[j]
+        msg = _unit_conflict(info, o["signal_unit"], "signal")
+        if msg:
+            conflicts.append(("signal_unit", o["signal_unit"], msg))
         if o["signal_unit"]:
             quantity, s_factor = parse_unit(o["signal_unit"])
         else:
@@ -335,50 +398,62 @@ def _load_file(path: Path, tally: Tally, **o) -> list[Trace]:
                 f"{path}: unit of signal column {info.label!r} unknown; give signal_unit "
                 "(Ohm, kOhm, S, e^2/h, ...) or a header like 'R (Ohm)'"
             )
-        out.extend(
-            _column_traces(
-                path,
-                data,
-                lines,
-                jf,
-                j,
-                jg,
-                infos,
-                quantity,
-                f_factor,
-                s_factor,
-                file_temp,
-                header,
-                tally,
-                o,
+        if conflicts and not o["override_units"]:
+            name, value, msg = conflicts[0]
+            raise ParameterError(
+                name, value, f"{msg} ({path.name}; override_units=True or --force to keep it)"
             )
+        ctx = dict(
+            path=path,
+            table=table,
+            jf=jf,
+            j=j,
+            jg=jg,
+            infos=infos,
+            quantity=quantity,
+            f_factor=f_factor,
+            s_factor=s_factor,
+            file_temp=file_temp,
+            temp_source=temp_source,
+            conflicts=conflicts,
         )
+        out.extend(_column_traces(ctx, tally, o))
     return out
 
 
-def _column_traces(
-    path, data, lines, jf, j, jg, infos, quantity, f_factor, s_factor, file_temp, header, tally, o
-) -> list[Trace]:
-    where_all = np.array([f"{path.name}:{n}" for n in lines])
+def _column_traces(ctx: dict, tally: Tally, o: dict) -> list[Trace]:
+    path, table, jf, j, jg = ctx["path"], ctx["table"], ctx["jf"], ctx["j"], ctx["jg"]
+    infos, quantity, file_temp = ctx["infos"], ctx["quantity"], ctx["file_temp"]
+    data, header = table.data, table.meta
+    where_all = np.array([f"{path.name}:{n}" for n in table.lines])
     tally.n_points += data.shape[0]
-    b_all = data[:, jf] * f_factor
+    empty = np.array([r is not None for r in table.row_reason], dtype=bool)
+    tally.add("drop", "empty row (no values)", list(where_all[empty]))
+    with np.errstate(over="ignore", invalid="ignore"):
+        b_all = data[:, jf] * ctx["f_factor"]
     v_all = data[:, j]
-    nan_b = ~np.isfinite(b_all)
-    nan_v = ~np.isfinite(v_all) & ~nan_b
+    nan_b = ~np.isfinite(b_all) & ~empty
+    nan_v = ~np.isfinite(v_all) & ~nan_b & ~empty
     tally.add("drop", "NaN, empty or infinite field value", list(where_all[nan_b]))
     tally.add("drop", "NaN, empty or infinite signal value", list(where_all[nan_v]))
-    ok = ~(nan_b | nan_v)
+    ok = ~(nan_b | nan_v | empty)
+    ginfo = infos[jg] if jg is not None else None
     if jg is not None:
         gv = data[:, jg]
         nan_g = ~np.isfinite(gv) & ok
         tally.add("drop", "NaN or empty group value", list(where_all[nan_g]))
         ok &= ~nan_g
-    g_all, bad, reason = to_conductance(
-        v_all, quantity, s_factor, o["series"], o["terminals"], o["reference"]
+        if ginfo.quantity == "temperature":
+            neg = ok & (gv < 0)
+            tally.add("drop", "negative temperature in the group column", list(where_all[neg]))
+            ok &= ~neg
+    g_all, bad_list = to_conductance(
+        v_all, quantity, ctx["s_factor"], o["series"], o["terminals"], o["reference"]
     )
-    bad &= ok
-    tally.add("drop", reason, list(where_all[bad]))
-    ok &= ~bad
+    for bad, reason in bad_list:
+        bad = bad & ok
+        tally.add("drop", reason, list(where_all[bad]))
+        ok &= ~bad
     caveats = []
     if quantity == "R" and o["terminals"] == "four":
         caveats.append(_CAVEAT_4T)
@@ -389,6 +464,15 @@ def _column_traces(
             )
     elif o["terminals"] == "four":
         caveats.append("four-terminal conductance: not the conductance of the ring alone")
+    if o["group_by"] == GROUP_AUTO and jg is not None:
+        caveats.append(
+            f"{path.name}: traces grouped by the temperature column {ginfo.label!r} "
+            "(group_by='auto'; give group_by=None to keep the rows together)"
+        )
+    caveats.extend(
+        f"{path.name}: {name} = {value!r} {msg} (kept: override_units=True)"
+        for name, value, msg in ctx["conflicts"]
+    )
     tally.caveats.extend(caveats)
     groups: list[tuple[float | None, np.ndarray]] = []
     if jg is not None:
@@ -408,17 +492,18 @@ def _column_traces(
             groups.append((float(np.median(gvals[sel])), sel))
     else:
         groups.append((None, ok))
-    ginfo = infos[jg] if jg is not None else None
     out: list[Trace] = []
     for gval, sel in groups:
         idx = np.nonzero(sel)[0]
         b, g, where = b_all[idx], g_all[idx], where_all[idx]
-        temp = file_temp
+        temp, temp_source = file_temp, ctx["temp_source"]
         gl = ""
         if gval is not None:
             gl = f" {ginfo.name}={gval:g}" + (f" {ginfo.unit}" if ginfo.unit else "")
             if ginfo.quantity == "temperature" and ginfo.factor is not None:
-                temp = gval * ginfo.factor
+                temp, temp_source = gval * ginfo.factor, f"column {ginfo.label!r}"
+        elif temp is not None:
+            gl = f" T={temp:g} K"
         if b.size == 0:
             continue
         if np.ptp(b) == 0:
@@ -463,7 +548,9 @@ def _column_traces(
                 "reference_resistance": o["reference"],
                 "direction": dname,
                 "temperature": temp,
+                "temperature_source": temp_source,
                 "group": gval,
+                "header_line": table.header_line,
                 "lines": (str(sw[0]), str(sw[-1])),
                 "caveats": tuple(caveats),
                 "header": dict(header),
