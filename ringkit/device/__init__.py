@@ -28,7 +28,7 @@ from ringkit.device.device import (
     dispersion_error,
 )
 from ringkit.device.gate import ARMS, ArmGate
-from ringkit.device.geometry import SHAPES, RingGeometry
+from ringkit.device.geometry import SHAPES, LeadSpec, RingGeometry
 from ringkit.device.material import PRESET_NAMES, Material
 from ringkit.device.presets import PUBLISHED_RINGS, PublishedRing, published_ring
 
@@ -36,6 +36,7 @@ __all__ = [
     "Material",
     "PRESET_NAMES",
     "RingGeometry",
+    "LeadSpec",
     "SHAPES",
     "ArmGate",
     "ARMS",

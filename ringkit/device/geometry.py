@@ -5,11 +5,18 @@ API
 RingGeometry
     Frozen dataclass with constructors ``circular``, ``from_mean_radius``, ``rectangular``,
     ``chain``; vectorised shape predicates used by the lattice builder.
+LeadSpec
+    One lead: attachment angle (rad) and strip width (m). ``leads=[...]`` (2 to 4 specs) in
+    the constructors describes multi-terminal rings (docs/multiterminal.md).
 
 Conventions
 -----------
 * The ring is centred at the origin; x points from the left (source, lead 0) to the right
   (drain, lead 1) lead; both leads are horizontal strips running along -x and +x.
+* Leads 2 and 3 (``extra_leads``, optional) are horizontal strips too, running along -x from
+  an attachment on the left half of the ring or along +x from the right half (never
+  vertical: the uniform-field gauge A = (-By, 0) is exact only for field-free leads along x,
+  docs/multiterminal.md "Gauge"). Strips on the same side must not overlap.
 * ``lead_angles = (left, right)`` are the polar angles (rad) of the attachment points on the
   centre line; left in (pi/2, 3pi/2), right in (-pi/2, pi/2). The *upper* arm is the part
   of the ring swept counter-clockwise from the right to the left attachment angle, the *lower*
@@ -27,6 +34,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any, Literal
 
@@ -34,10 +42,69 @@ import numpy as np
 
 from ringkit._validation import ParameterError, check_choice, check_positive
 
-__all__ = ["RingGeometry", "SHAPES"]
+__all__ = ["RingGeometry", "LeadSpec", "SHAPES", "MAX_LEADS"]
 
 SHAPES: tuple[str, ...] = ("circular", "rectangular", "chain")
+MAX_LEADS = 4
 _TWO_PI = 2.0 * math.pi
+
+
+@dataclass(frozen=True)
+class LeadSpec:
+    """One lead of a ring: a horizontal strip attached at polar angle ``angle``.
+
+    Attributes
+    ----------
+    angle : float
+        Attachment angle in rad on the ring's centre line; the left half (pi/2, 3pi/2) gives
+        a lead along -x, the right half (-pi/2, pi/2) a lead along +x.
+    width : float or None
+        Strip width in m (None: the geometry's ``lead_width``; always None for a chain).
+    """
+
+    angle: float
+    width: float | None = None
+
+    @classmethod
+    def coerce(cls, obj: Any, name: str) -> LeadSpec:
+        """A LeadSpec from a LeadSpec, a mapping ``{angle, width}`` or a pair."""
+        if isinstance(obj, LeadSpec):
+            return obj
+        try:
+            if isinstance(obj, dict):
+                return cls(float(obj["angle"]), _opt_float(obj.get("width")))
+            seq = tuple(obj) if not isinstance(obj, (int, float)) else (obj,)
+            return cls(float(seq[0]), _opt_float(seq[1]) if len(seq) > 1 else None)
+        except (KeyError, TypeError, ValueError, IndexError):
+            raise ParameterError(
+                name, obj, "must be a LeadSpec(angle, width), {'angle':..., 'width':...} or a pair"
+            ) from None
+
+
+def _opt_float(v: Any) -> float | None:
+    return None if v is None else float(v)
+
+
+def lead_side(angle: float) -> int:
+    """-1 for an attachment on the left half (lead along -x), +1 on the right, 0 on the y axis."""
+    c = math.cos(float(angle))
+    if abs(c) < 1e-12:
+        return 0
+    return -1 if c < 0 else 1
+
+
+def _norm_side(angle: float, name: str) -> float:
+    """Left-half angles to [0, 2pi), right-half ones to (-pi, pi]; refuse the y axis."""
+    side = lead_side(angle)
+    if side == 0:
+        raise ParameterError(
+            name,
+            angle,
+            "must lie in the left half (pi/2, 3pi/2) or the right half (-pi/2, pi/2) of the "
+            "ring: leads run along -x or +x (docs/multiterminal.md)",
+            "rad",
+        )
+    return _norm_left(angle) if side < 0 else _norm_right(angle)
 
 
 def _attachment_angles(geo: RingGeometry) -> np.ndarray:
@@ -88,6 +155,8 @@ class RingGeometry:
         Rectangle outer size and vertical-bar width in m.
     n_sites : int or None
         Number of chain sites (None: chosen from the lattice spacing).
+    extra_leads : tuple of LeadSpec
+        Leads 2 and 3 (empty for a two-terminal ring); ``leads`` lists all of them.
     """
 
     shape: Literal["circular", "rectangular", "chain"]
@@ -101,6 +170,7 @@ class RingGeometry:
     height: float | None = None
     side_width: float | None = None
     n_sites: int | None = None
+    extra_leads: tuple[LeadSpec, ...] = ()
 
     # ------------------------------------------------------------------ constructors
     @classmethod
@@ -113,17 +183,21 @@ class RingGeometry:
         width_lower: float | None = None,
         lead_angles: tuple[float, float] = (math.pi, 0.0),
         lead_width: float | None = None,
+        leads: Sequence[LeadSpec] | None = None,
     ) -> RingGeometry:
         """Circular ring between ``r_in`` and ``r_out`` [m].
 
         ``width_upper``/``width_lower`` [m] default to ``r_out - r_in`` (a narrower arm is
         centred on the mean radius); ``lead_width`` [m] defaults to ``r_out - r_in``.
+        ``leads`` (2 to 4 :class:`LeadSpec`) replaces ``lead_angles``/``lead_width``: leads 0
+        (left half) and 1 (right half) share one width, leads 2 and 3 may have their own.
         """
         r_in = check_positive("r_in", r_in, "m")
         r_out = check_positive("r_out", r_out, "m")
         if not r_out > r_in:
             raise ParameterError("r_in", r_in, f"must be < r_out = {r_out:g} m", "m")
         w = r_out - r_in
+        lead_angles, lead_width, extra = _split_leads(leads, lead_angles, lead_width)
         return cls(
             shape="circular",
             r_in=r_in,
@@ -132,6 +206,7 @@ class RingGeometry:
             width_lower=w if width_lower is None else width_lower,
             lead_angles=tuple(lead_angles),
             lead_width=w if lead_width is None else lead_width,
+            extra_leads=extra,
         )
 
     @classmethod
@@ -154,12 +229,13 @@ class RingGeometry:
         width_lower: float | None = None,
         lead_angles: tuple[float, float] = (math.pi, 0.0),
         lead_width: float | None = None,
+        leads: Sequence[LeadSpec] | None = None,
     ) -> RingGeometry:
         """Rectangular (square for ``length == height``) ring, outer size ``length x height``.
 
         ``width`` [m] is the width of the vertical bars; ``width_upper``/``width_lower`` [m]
         (default ``width``) those of the top and bottom bars; ``lead_width`` defaults to
-        ``width``.
+        ``width``. ``leads``: as in :meth:`circular`.
         """
         length = check_positive("length", length, "m")
         height = check_positive("height", height, "m")
@@ -173,6 +249,7 @@ class RingGeometry:
                 "width_upper", wu, f"width_upper + width_lower must be < height = {height:g} m", "m"
             )
         a_in = (length - 2 * width) * (height - wu - wl)
+        lead_angles, lead_width, extra = _split_leads(leads, lead_angles, lead_width)
         return cls(
             shape="rectangular",
             r_in=math.sqrt(a_in / math.pi),
@@ -184,6 +261,7 @@ class RingGeometry:
             length=length,
             height=height,
             side_width=width,
+            extra_leads=extra,
         )
 
     @classmethod
@@ -193,13 +271,16 @@ class RingGeometry:
         *,
         n_sites: int | None = None,
         lead_angles: tuple[float, float] = (math.pi, 0.0),
+        leads: Sequence[LeadSpec | float] | None = None,
     ) -> RingGeometry:
         """Strictly one-dimensional single-channel ring of radius ``radius`` [m].
 
         ``n_sites`` (>= 4) fixes the number of sites; by default it follows from the lattice
-        spacing chosen by :class:`ringkit.device.RingDevice`.
+        spacing chosen by :class:`ringkit.device.RingDevice`. ``leads``: 2 to 4 angles (or
+        :class:`LeadSpec` without width) of single-channel leads.
         """
         radius = check_positive("radius", radius, "m")
+        lead_angles, _, extra = _split_leads(leads, lead_angles, None)
         return cls(
             shape="chain",
             r_in=radius,
@@ -209,6 +290,7 @@ class RingGeometry:
             lead_angles=tuple(lead_angles),
             lead_width=None,
             n_sites=n_sites,
+            extra_leads=extra,
         )
 
     # ------------------------------------------------------------------ validation
@@ -219,6 +301,7 @@ class RingGeometry:
             raise ParameterError("lead_angles", self.lead_angles, "must be a pair (left, right)")
         left, right = self.lead_angles
         set_("lead_angles", (_norm_left(left), _norm_right(right)))
+        set_("extra_leads", self._checked_extra_leads())
         set_("r_in", check_positive("r_in", self.r_in, "m"))
         set_("r_out", check_positive("r_out", self.r_out, "m"))
         if self.shape == "chain":
@@ -232,6 +315,7 @@ class RingGeometry:
             set_("width_upper", 0.0)
             set_("width_lower", 0.0)
             set_("lead_width", None)
+            self._check_distinct_chain_leads()
             return
         if self.n_sites is not None:
             raise ParameterError("n_sites", self.n_sites, "only a chain ring has n_sites")
@@ -250,24 +334,148 @@ class RingGeometry:
                     raise ParameterError(key, None, "required for a rectangular ring", "m")
         lw = check_positive("lead_width", self.lead_width, "m")
         set_("lead_width", lw)
-        for side in (0, 1):
-            yc = self.lead_center(side)
+        for k, spec in enumerate(self.extra_leads):
+            if spec.width is not None:
+                check_positive(f"extra_leads[{k}].width", spec.width, "m")
+        for idx in range(self.n_leads):
+            yc = self.lead_center(idx)
             lo, hi = self._centreline_y_range()
             room = 2 * min(hi - yc, yc - lo)
+            angle_name, width_name = _lead_names(idx)
             if room <= 0:
                 raise ParameterError(
-                    f"lead_angles[{side}]",
-                    self.lead_angles[side],
+                    angle_name,
+                    self.leads[idx].angle,
                     "must hit the ring's left/right side (attachment outside the centre line)",
                 )
-            if lw > room * (1 + 1e-12):
+            w = self.lead_width_of(idx)
+            if w > room * (1 + 1e-12):
                 raise ParameterError(
-                    "lead_width",
-                    lw,
+                    width_name,
+                    w,
                     f"must be <= {room:.6g} m: the lead is wider than the ring at its attachment "
                     f"point (the strip must stay within {lo:.6g} <= y <= {hi:.6g} m)",
                     "m",
                 )
+        self._check_lead_overlap()
+
+    # ------------------------------------------------------------------ leads
+    def _checked_extra_leads(self) -> tuple[LeadSpec, ...]:
+        raw = self.extra_leads
+        if raw is None:
+            raw = ()
+        if isinstance(raw, (LeadSpec, dict)):
+            raw = (raw,)
+        specs = [LeadSpec.coerce(x, f"extra_leads[{k}]") for k, x in enumerate(raw)]
+        if len(specs) > MAX_LEADS - 2:
+            raise ParameterError(
+                "leads", len(specs) + 2, f"must be 2 to {MAX_LEADS} leads (got {len(specs) + 2})"
+            )
+        out = []
+        for k, spec in enumerate(specs):
+            angle = _norm_side(spec.angle, f"leads[{k + 2}].angle")
+            width = spec.width
+            if self.shape == "chain":
+                if width is not None:
+                    raise ParameterError(
+                        f"leads[{k + 2}].width", width, "must be None for a chain (1D leads)", "m"
+                    )
+            out.append(LeadSpec(angle, width))
+        return tuple(out)
+
+    @property
+    def n_leads(self) -> int:
+        """Number of leads (2 to 4)."""
+        return 2 + len(self.extra_leads)
+
+    @property
+    def leads(self) -> tuple[LeadSpec, ...]:
+        """All leads in terminal order, with resolved widths (None for a chain)."""
+        first = tuple(LeadSpec(a, self.lead_width) for a in self.lead_angles)
+        return first + tuple(
+            LeadSpec(s.angle, self.lead_width if s.width is None else s.width)
+            for s in self.extra_leads
+        )
+
+    def lead_width_of(self, index: int) -> float | None:
+        """Strip width in m of lead ``index`` (None for a chain)."""
+        return self.leads[index].width
+
+    def lead_side(self, index: int) -> int:
+        """-1 if lead ``index`` runs along -x (left half), +1 along +x (right half)."""
+        return lead_side(self.leads[index].angle)
+
+    def _lead_y_range(self, index: int) -> tuple[float, float]:
+        yc = self.lead_center(index)
+        w = self.lead_width_of(index) or 0.0
+        return yc - w / 2, yc + w / 2
+
+    def _check_lead_overlap(self) -> None:
+        n = self.n_leads
+        for i in range(n):
+            for j in range(i + 1, n):
+                if self.lead_side(i) != self.lead_side(j):
+                    continue
+                lo_i, hi_i = self._lead_y_range(i)
+                lo_j, hi_j = self._lead_y_range(j)
+                if min(hi_i, hi_j) > max(lo_i, lo_j):
+                    side = "left" if self.lead_side(i) < 0 else "right"
+                    raise ParameterError(
+                        "leads",
+                        [round(s.angle, 6) for s in self.leads],
+                        f"leads {i} and {j} on the {side} side overlap (strips y in "
+                        f"[{lo_i:.4g}, {hi_i:.4g}] and [{lo_j:.4g}, {hi_j:.4g}] m); allowed: "
+                        "strips on the same side separated in y, i.e. |y_i - y_j| >= "
+                        "(w_i + w_j)/2 with y = r sin(angle) (move an angle or narrow a lead)",
+                    )
+
+    def _check_distinct_chain_leads(self) -> None:
+        angles = [s.angle % _TWO_PI for s in self.leads]
+        for i in range(len(angles)):
+            for j in range(i + 1, len(angles)):
+                d = abs(math.remainder(angles[i] - angles[j], _TWO_PI))
+                if d < 1e-9:
+                    raise ParameterError(
+                        "leads",
+                        [round(a, 6) for a in angles],
+                        f"leads {i} and {j} attach at the same angle; allowed: distinct angles "
+                        "(at least one lattice site apart)",
+                    )
+
+    def lead_outlines(self, length_factor: float = 0.6) -> list[dict[str, Any]]:
+        """Outline of every lead for drawing the device (m).
+
+        Returns one dict per lead (terminal order) with ``index``, ``angle`` [rad], ``side``
+        (-1: along -x, +1: along +x), ``width`` [m] (0 for a chain), ``attach`` (x, y) of
+        the attachment point on the centre line, and ``polygon`` (4, 2): the horizontal strip
+        from the attachment point out to ``|x| = outer_extent * (1 + length_factor)``.
+        """
+        out = []
+        x_far = self.outer_extent * (1.0 + float(length_factor))
+        for idx, spec in enumerate(self.leads):
+            side = self.lead_side(idx)
+            yc = self.lead_center(idx)
+            x0 = float(self._centreline_point(np.array([spec.angle]))[0, 0])
+            w = spec.width or 0.0
+            poly = np.array(
+                [
+                    [x0, yc - w / 2],
+                    [side * x_far, yc - w / 2],
+                    [side * x_far, yc + w / 2],
+                    [x0, yc + w / 2],
+                ]
+            )
+            out.append(
+                dict(
+                    index=idx,
+                    angle=float(spec.angle),
+                    side=side,
+                    width=float(w),
+                    attach=(x0, float(yc)),
+                    polygon=poly,
+                )
+            )
+        return out
 
     # ------------------------------------------------------------------ derived sizes
     @property
@@ -377,8 +585,9 @@ class RingGeometry:
         return np.array([dist * c, dist * s])
 
     def lead_center(self, side: int) -> float:
-        """y coordinate in m of the centre of the lead strip (0 = left, 1 = right)."""
-        angle = self.lead_angles[side]
+        """y coordinate in m of the centre of the strip of lead ``side`` (0 = left, 1 = right,
+        2 and 3 = the extra leads)."""
+        angle = self.leads[side].angle
         if self.shape == "rectangular":
             xc = (self.length - self.side_width) / 2
             return float(xc * abs(math.tan(angle)) * math.copysign(1.0, math.sin(angle)))
@@ -437,6 +646,10 @@ class RingGeometry:
         """Plain dict of the fields (JSON-serialisable)."""
         d = dataclasses.asdict(self)
         d["lead_angles"] = list(self.lead_angles)
+        if self.extra_leads:
+            d["extra_leads"] = [{"angle": s.angle, "width": s.width} for s in self.extra_leads]
+        else:
+            d.pop("extra_leads")  # two-lead rings keep today's dict
         return d
 
     @classmethod
@@ -444,4 +657,45 @@ class RingGeometry:
         """Inverse of :meth:`to_dict`."""
         data = dict(data)
         data["lead_angles"] = tuple(data["lead_angles"])
+        extra = data.get("extra_leads") or ()
+        data["extra_leads"] = tuple(LeadSpec.coerce(x, "extra_leads") for x in extra)
         return cls(**data)
+
+
+def _lead_names(idx: int) -> tuple[str, str]:
+    """Parameter names of the angle and width of lead ``idx`` (for error messages)."""
+    if idx < 2:
+        return f"lead_angles[{idx}]", "lead_width"
+    return f"leads[{idx}].angle", f"leads[{idx}].width"
+
+
+def _split_leads(
+    leads: Sequence[Any] | None, lead_angles: tuple[float, float], lead_width: float | None
+) -> tuple[tuple[float, float], float | None, tuple[LeadSpec, ...]]:
+    """``leads=[...]`` of a constructor -> (lead_angles, lead_width, extra_leads)."""
+    if leads is None:
+        return tuple(lead_angles), lead_width, ()
+    specs = [LeadSpec.coerce(x, f"leads[{k}]") for k, x in enumerate(leads)]
+    if not 2 <= len(specs) <= MAX_LEADS:
+        raise ParameterError("leads", len(specs), f"must be 2 to {MAX_LEADS} leads")
+    for k in (0, 1):
+        if lead_side(specs[k].angle) != (-1 if k == 0 else 1):
+            half = "left half (pi/2, 3pi/2)" if k == 0 else "right half (-pi/2, pi/2)"
+            raise ParameterError(
+                f"leads[{k}].angle",
+                specs[k].angle,
+                f"must lie in the {half}: leads 0 and 1 are the source and drain of the "
+                "two-terminal limit and define the upper/lower arms",
+                "rad",
+            )
+    w0, w1 = specs[0].width, specs[1].width
+    if w0 is not None and w1 is not None and not math.isclose(w0, w1, rel_tol=1e-12):
+        raise ParameterError(
+            "leads[1].width",
+            w1,
+            f"must equal leads[0].width = {w0:g} m (leads 0 and 1 share "
+            "lead_width; leads 2 and 3 may differ)",
+            "m",
+        )
+    width = w0 if w0 is not None else (w1 if w1 is not None else lead_width)
+    return (specs[0].angle, specs[1].angle), width, tuple(specs[2:])

@@ -12,8 +12,11 @@ Energies inside kwant are in units of the hopping t = hbar^2/(2 m* a^2), measure
 bottom (on-site 4t on the square lattice, 2t on a chain); positions are in lattice spacings.
 Lead 0 is the left lead (source, along -x), lead 1 the right lead (drain, along +x); both are
 clean, field-free square-lattice strips of ``round(lead_width/a)`` sites (1D chains for a chain
-ring). ``device.lead_stub`` columns of each lead belong to the scattering region (labelled
-``"lead-contact"``); disorder and gate act on ring sites only.
+ring). Leads 2 and 3 (``geometry.extra_leads``) are the same kind of strips along -x or +x,
+attached at their own heights; all strips of one side end at the same interface column, so
+the field fills the scattering region and stops at one line on each side
+(docs/multiterminal.md). ``device.lead_stub`` columns of each lead belong to the scattering
+region (labelled ``"lead-contact"``); disorder and gate act on ring sites only.
 
 kwant parameters: ``B`` [T] (uniform mode, Landau gauge, see :mod:`ringkit.tightbinding.fields`)
 or ``flux`` [Wb through the hole] (flux-tube mode), and ``gate`` (arm potential in units of t)
@@ -80,7 +83,10 @@ class TightBindingRing:
     loop_area : float
         Area in m^2 enclosed by the ring's centre line (exact polygon area for a chain).
     lead_sites : int
-        Number of sites across each lead.
+        Number of sites across lead 0 (and lead 1).
+    lead_info : tuple of dict
+        Per lead (terminal order): ``index``, ``side`` (-1 along -x, +1 along +x),
+        ``angle`` [rad], ``n_sites`` across, ``interface`` (site indices of the interface).
     """
 
     fsyst: Any
@@ -97,12 +103,18 @@ class TightBindingRing:
     born_mean_free_path: float | None
     loop_area: float
     lead_sites: int
+    lead_info: tuple = ()
 
     # ---------------------------------------------------------------- conveniences
     @property
     def n_sites(self) -> int:
         """Number of sites in the scattering region."""
         return len(self.positions)
+
+    @property
+    def n_leads(self) -> int:
+        """Number of leads (terminals without probes)."""
+        return len(self.fsyst.leads)
 
     @property
     def field_mode(self) -> str:
@@ -264,12 +276,15 @@ def _lattice_sites(device: RingDevice) -> dict[str, Any]:
     hole = geo.hole_mask(gx * a, gy * a, tol)
     stub = np.zeros_like(ring)
     rows = []
-    for side, sign in ((0, -1), (1, +1)):
-        yc = geo.lead_center(side) / a
-        j0 = round(yc - (n_rows - 1) / 2)
-        r = np.arange(j0, j0 + n_rows)
+    for idx in range(geo.n_leads):
+        sign = geo.lead_side(idx)
+        n_r = max(1, round(float(geo.lead_width_of(idx)) / a))
+        yc = geo.lead_center(idx) / a
+        j0 = round(yc - (n_r - 1) / 2)
+        r = np.arange(j0, j0 + n_r)
         rows.append(r)
         stub |= np.isin(gy, r) & (sign * gx >= 0) & ~hole & ~ring
+    _check_lead_rows(geo, rows, a)
     keep = ring | stub
     tags = np.stack([gx[keep], gy[keep]], axis=1)
     is_stub = stub[keep]
@@ -290,6 +305,25 @@ def _lattice_sites(device: RingDevice) -> dict[str, Any]:
             "m",
         )
     return dict(tags=tags, is_stub=is_stub, rows=rows, x_edge=x_edge, n_rows=n_rows)
+
+
+def _check_lead_rows(geo, rows: list[np.ndarray], a: float) -> None:
+    """Leads on one side need disjoint lattice rows with at least one free row between them."""
+    for i in range(len(rows)):
+        for j in range(i + 1, len(rows)):
+            if geo.lead_side(i) != geo.lead_side(j):
+                continue
+            gap = max(rows[i][0] - rows[j][-1], rows[j][0] - rows[i][-1]) - 1
+            if gap < 1:
+                what = "share lattice rows" if gap < 0 else "touch (no free row between them)"
+                raise ParameterError(
+                    "leads",
+                    [round(s.angle, 6) for s in geo.leads],
+                    f"leads {i} and {j} {what} at lattice spacing {a:.4g} m (rows "
+                    f"{rows[i][0]}..{rows[i][-1]} and {rows[j][0]}..{rows[j][-1]}); allowed: "
+                    "strips on the same side at least one lattice row apart (move an angle, "
+                    "narrow a lead or refine the lattice)",
+                )
 
 
 def _adjacency(tags: np.ndarray) -> sp.csr_matrix:
@@ -351,8 +385,8 @@ def _build_square(device: RingDevice, seed: int, *, direct: bool | None = None) 
 
     x_edge = info["x_edge"]
     leads_geo, lead_builders, interfaces = [], [], []
-    for side, direction in ((0, -1), (1, 1)):
-        rows = info["rows"][side]
+    for side, rows in enumerate(info["rows"]):
+        direction = device.geometry.lead_side(side)
         lead = kwant.Builder(kwant.TranslationalSymmetry((direction, 0)))
         for y in rows:
             lead[lat(0, int(y))] = 4.0
@@ -360,7 +394,7 @@ def _build_square(device: RingDevice, seed: int, *, direct: bool | None = None) 
         lead_builders.append(lead)
         # the outermost stub column: where kwant's attach_lead puts the interface
         interfaces.append([(direction * x_edge, int(y)) for y in rows])
-        leads_geo.append((direction * x_edge, rows[0] - 0.5, rows[-1] + 0.5, side))
+        leads_geo.append((direction * x_edge, rows[0] - 0.5, rows[-1] + 0.5, int(direction > 0)))
     _check_cut(device, crossing_stub, leads_geo)
 
     onsite = 4.0 + pot / t
@@ -385,6 +419,7 @@ def _build_square(device: RingDevice, seed: int, *, direct: bool | None = None) 
     inv = np.empty_like(order)
     inv[order] = np.arange(len(order))
     return TightBindingRing(
+        lead_info=_lead_info(device, fsyst, [len(r) for r in info["rows"]]),
         fsyst=fsyst,
         device=device,
         seed=int(seed),
@@ -402,6 +437,20 @@ def _build_square(device: RingDevice, seed: int, *, direct: bool | None = None) 
     )
 
 
+def _lead_info(device: RingDevice, fsyst, widths: list[int]) -> tuple:
+    geo = device.geometry
+    return tuple(
+        {
+            "index": k,
+            "side": geo.lead_side(k),
+            "angle": float(geo.leads[k].angle),
+            "n_sites": int(widths[k]),
+            "interface": np.asarray(fsyst.lead_interfaces[k]).tolist(),
+        }
+        for k in range(geo.n_leads)
+    )
+
+
 # ------------------------------------------------------------------------------------ chain
 def _build_chain(device: RingDevice, seed: int) -> TightBindingRing:
     a, t = device.spacing, device.hopping
@@ -411,9 +460,20 @@ def _build_chain(device: RingDevice, seed: int) -> TightBindingRing:
     theta_l, theta_r = geo.lead_angles
     phi = theta_l + 2 * math.pi * np.arange(n) / n
     pos = radius * np.stack([np.cos(phi), np.sin(phi)], axis=1)
-    n_r = round(((theta_r - theta_l) % (2 * math.pi)) / (2 * math.pi / n)) % n
+    k_leads = [
+        round(((spec.angle - theta_l) % (2 * math.pi)) / (2 * math.pi / n)) % n
+        for spec in geo.leads
+    ]
+    n_r = k_leads[1]
     if n_r == 0:
         raise ParameterError("lead_angles", geo.lead_angles, "must attach to different sites")
+    if len(set(k_leads)) != len(k_leads):
+        raise ParameterError(
+            "leads",
+            [round(s.angle, 6) for s in geo.leads],
+            f"two leads attach to the same chain site (sites {k_leads} of {n}); allowed: "
+            "angles at least one site spacing (2 pi/n_sites) apart",
+        )
     lattice = kwant.lattice.general([(1.0, 0.0), (0.0, 1.0)], basis=pos, norbs=1)
     ring_sites = [sub(0, 0) for sub in lattice.sublattices]
     # lower arm: sites swept counter-clockwise from the left to the right junction
@@ -442,7 +502,8 @@ def _build_chain(device: RingDevice, seed: int) -> TightBindingRing:
 
     stub_sites, stub_pos, stub_tags = [], [], []
     leads_geo = []
-    for side, (k_att, direction) in enumerate(((0, -1.0), (n_r, 1.0))):
+    for side, k_att in enumerate(k_leads):
+        direction = float(geo.lead_side(side))
         fam = kwant.lattice.Monatomic([[1.0, 0.0]], offset=pos[k_att], name=f"lead{side}", norbs=1)
         prev = ring_sites[k_att]
         for s in range(1, device.lead_stub + 1):
@@ -458,7 +519,7 @@ def _build_chain(device: RingDevice, seed: int) -> TightBindingRing:
         lead[fam.neighbors()] = -1.0
         syst.attach_lead(lead)
         y0 = pos[k_att][1]
-        leads_geo.append((pos[k_att][0], y0 - 0.5, y0 + 0.5, side))
+        leads_geo.append((pos[k_att][0], y0 - 0.5, y0 + 0.5, int(direction > 0)))
     _check_cut(device, False, leads_geo)
 
     fsyst = syst.finalized()
@@ -472,6 +533,7 @@ def _build_chain(device: RingDevice, seed: int) -> TightBindingRing:
     inv[order] = np.arange(len(order))
     poly_area = 0.5 * n * radius**2 * math.sin(2 * math.pi / n) * a**2
     return TightBindingRing(
+        lead_info=_lead_info(device, fsyst, [1] * geo.n_leads),
         fsyst=fsyst,
         device=device,
         seed=int(seed),
