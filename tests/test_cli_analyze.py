@@ -66,7 +66,7 @@ def test_json_contract_and_values(capsys, geometry):
 
 def test_readable_summary(capsys):
     code = main(
-        ["analyze", UPDOWN, "--series-resistance", "1200", "--r-in", "6e-7", "--r-out", "6.6e-7"]
+        ["analyze", UPDOWN, "--series-resistance", "1200", "--r-in", "6e-7m", "--r-out", "6.6e-7 m"]
     )
     out = capsys.readouterr().out
     assert code == 0

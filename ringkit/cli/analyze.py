@@ -29,6 +29,7 @@ from pathlib import Path
 from typing import Any
 
 from ringkit.cli import UserError
+from ringkit.cli._analyze_text import lab_lines, series_lines
 
 __all__ = ["register", "run", "parse_length"]
 
@@ -36,17 +37,49 @@ _LENGTH_UNITS = {"m": 1.0, "mm": 1e-3, "um": 1e-6, "µm": 1e-6, "nm": 1e-9}
 
 
 def parse_length(text: str) -> float:
-    """Length in m from ``"6.3e-7"``, ``"630nm"``, ``"0.63um"`` or ``"0.63 µm"``."""
+    """Length in m from ``"630nm"``, ``"0.63um"``, ``"0.63 µm"`` or ``"6.3e-7m"``.
+
+    A bare number is refused with a message naming the unit to write (``600`` could be nm
+    or m; read as metres it gives a ring of 600 m and an unrelated sampling error).
+    """
     m = re.fullmatch(r"\s*([-+0-9.eE]+)\s*([a-zµ]*)\s*", text)
     if not m or m[2] not in ("", *_LENGTH_UNITS):
-        raise argparse.ArgumentTypeError(f"not a length: {text!r} (e.g. 630nm, 0.63um, 6.3e-7)")
+        raise argparse.ArgumentTypeError(f"not a length: {text!r} (e.g. 630nm, 0.63um, 6.3e-7m)")
     try:
-        value = float(m[1]) * (_LENGTH_UNITS[m[2]] if m[2] else 1.0)
+        number = float(m[1])
     except ValueError:
         raise argparse.ArgumentTypeError(f"not a length: {text!r}") from None
+    if not m[2]:
+        guess = f"{m[1]}nm" if abs(number) >= 1 else f"{m[1]}m"
+        raise argparse.ArgumentTypeError(
+            f"length {text!r} has no unit: write it with one, e.g. {guess} (units: nm, um, mm, m)"
+        )
+    value = number * _LENGTH_UNITS[m[2]]
     if not (math.isfinite(value) and value > 0):
         raise argparse.ArgumentTypeError(f"length must be > 0: {text!r}")
     return value
+
+
+def _quantity(kind: str):
+    def parse(text: str) -> float:
+        from ringkit.analysis.labunits import parse_quantity
+
+        try:
+            return parse_quantity(text, kind)
+        except ValueError as err:
+            raise argparse.ArgumentTypeError(str(err)) from None
+
+    parse.__name__ = kind
+    return parse
+
+
+def _temperature(text: str) -> float:
+    from ringkit.analysis._textfile import header_temperature
+
+    kelvin, problem = header_temperature(text)
+    if kelvin is None or kelvin <= 0:
+        raise argparse.ArgumentTypeError(problem or f"temperature must be > 0: {text!r}")
+    return kelvin
 
 
 def _column(text: str) -> str | int:
@@ -71,7 +104,14 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     g.add_argument("--signal", type=_column, help="R or G column (name or 0-based index)")
     g.add_argument("--field-unit", help="unit of the field column, e.g. T, mT, G")
     g.add_argument("--signal-unit", help="unit of the signal column, e.g. Ohm, kOhm, S, e^2/h")
-    g.add_argument("--group-by", type=_column, help="column splitting the traces (e.g. T)")
+    g.add_argument(
+        "--group-by",
+        type=_column,
+        help="column splitting the traces, or 'temperature': the file's temperature column "
+        "(default when there is one) or each file's header/name temperature; a temperature "
+        "series is then fitted for L_phi(T)",
+    )
+    g.add_argument("--temperature", type=_temperature, help="temperature of every trace, e.g. 0.3K")
     g.add_argument("--delimiter", help="column delimiter, e.g. ',' or tab (default: detected)")
     g.add_argument("--decimal", default=".", help="decimal mark ('.' or ',')")
     g.add_argument(
@@ -108,6 +148,35 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="without --r-in/--r-out: the dominant peak is h/e (1) or h/2e (2)",
     )
     a.add_argument("--trace", type=int, default=0, help="trace reported in --json (default 0)")
+    a.add_argument(
+        "--force",
+        action="store_true",
+        help="report results the cross-checks refuse (and unit options that contradict the "
+        "header); the refusals are kept as warnings",
+    )
+    lab = p.add_argument_group("lab units and detectability (resistance in Ohm, noise floor)")
+    lab.add_argument("--current", type=_quantity("current"), help="measurement current, e.g. 10nA")
+    lab.add_argument(
+        "--noise", type=_quantity("noise"), help="voltage noise density, e.g. 5nV/rtHz"
+    )
+    lab.add_argument(
+        "--bandwidth",
+        type=_quantity("bandwidth"),
+        help="equivalent noise bandwidth of one reading, e.g. 1Hz",
+    )
+    t = p.add_argument_group("temperature series: L_phi(T)")
+    t.add_argument(
+        "--thermal",
+        default="none",
+        choices=("none", "ballistic", "diffusive"),
+        help="thermal averaging factor of the L_phi(T) fit (default none)",
+    )
+    t.add_argument(
+        "--thermal-energy",
+        type=_quantity("energy"),
+        help="E_c of the thermal factor, e.g. 2K or 0.17meV (fitted if omitted)",
+    )
+    t.add_argument("--exponent", type=float, help="fix p of L_phi ~ T^-p (fitted if omitted)")
     o = p.add_argument_group("output")
     o.add_argument("--json", action="store_true", help="print one JSON object")
     o.add_argument("--figures", metavar="DIR", help="write PNG figures into DIR")
@@ -200,40 +269,112 @@ def _summary_lines(rec: dict[str, Any]) -> list[str]:
         f"  points          {rec['n_points_used']} used, "
         f"{rec['n_points_trimmed_background']} trimmed by the background",
     ]
-    return lines
+    return lines + lab_lines(rec)
+
+
+def _load(args: argparse.Namespace, path: Path, series: bool):
+    from ringkit.analysis import load_traces
+
+    group = args.group_by
+    if series or group is None:
+        group = "auto"
+    return load_traces(
+        path,
+        field=args.field,
+        signal=args.signal,
+        field_unit=args.field_unit,
+        signal_unit=args.signal_unit,
+        group_by=group,
+        delimiter={"\\t": "\t", "tab": "\t"}.get(args.delimiter, args.delimiter),
+        decimal=args.decimal,
+        series_resistance=args.series_resistance,
+        terminals="four" if args.four_terminal else "two",
+        reference_resistance=args.reference_resistance,
+        split_sweeps=not args.no_split,
+        temperature=args.temperature,
+        override_units=args.force,
+    )
+
+
+def _lab_record(args: argparse.Namespace, trace, res) -> dict[str, Any]:
+    """dR in Ohm, dR/R in % and (with --current/--noise/--bandwidth) detectability."""
+    from ringkit.analysis.labunits import detectability, lab_amplitudes
+
+    if res.mean_conductance <= 0 or (
+        trace.metadata.get("quantity") != "R" and args.current is None
+    ):
+        return {}
+    rec: dict[str, Any] = dict(lab_amplitudes(res, trace))
+    if args.current is not None:
+        nyq = 0.5 / res.field_step
+        widths = {
+            key: res.bands[n][1] - res.bands[n][0] + 2 * res.band_margin
+            for n, key in ((1, "he"), (2, "h2e"))
+        }
+        rec["detectability"] = detectability(
+            {"he": rec["amplitude_he_ohm"], "h2e": rec["amplitude_h2e_ohm"]},
+            current=args.current,
+            noise_density=args.noise,
+            bandwidth=args.bandwidth,
+            band_widths=widths,
+            nyquist=nyq,
+        )
+    return rec
+
+
+def _series(args, traces, records) -> dict[str, Any]:
+    from ringkit.analysis.tseries import lphi_from_series
+
+    usable = [r for r in records if "error" not in r and not r.get("refused")]
+    if not usable:
+        raise UserError("temperature series: no trace passed the analysis and its checks")
+    if args.r_in is not None:
+        radius = 0.5 * (args.r_in + args.r_out)
+    else:
+        radius = sum(r["radius_m"] for r in usable) / len(usable)
+    temps = [r["temperature_K"] if r in usable else None for r in records]
+    try:
+        out = lphi_from_series(
+            temps,
+            [r.get("amplitude_he_e2h", float("nan")) for r in records],
+            [r.get("noise_he_rms_e2h", float("nan")) for r in records],
+            radius=radius,
+            thermal=args.thermal,
+            thermal_energy=args.thermal_energy,
+            p=args.exponent,
+        )
+    except ValueError as err:
+        raise UserError(f"temperature series: {err}") from err
+    out["radius_m"] = radius
+    out["n_traces_left_out"] = len(records) - sum(q["n_traces"] for q in out["points"])
+    return out
 
 
 def run(args: argparse.Namespace) -> int:
     """Run ``ringkit analyze``."""
-    from ringkit.analysis import extract_oscillations, load_traces
+    from ringkit.analysis import extract_oscillations
+    from ringkit.analysis.checks import check_result, refusals
 
     if (args.r_in is None) != (args.r_out is None):
         raise UserError("give both --r-in and --r-out, or neither")
     if args.r_in is not None and args.r_out < args.r_in:
         raise UserError(f"--r-out ({args.r_out:g} m) must be >= --r-in ({args.r_in:g} m)")
+    lab = (args.current, args.noise, args.bandwidth)
+    if any(x is not None for x in lab) and any(x is None for x in lab):
+        raise UserError("give --current, --noise and --bandwidth together (e.g. 10nA 5nV/rtHz 1Hz)")
+    series = isinstance(args.group_by, str) and args.group_by.lower() in ("temperature", "temp")
     path = Path(args.file)
     if not path.exists():
         raise UserError(f"{path}: no such file or folder")
+    radii = None if args.r_in is None else (args.r_in, args.r_out)
+    terminals = "four" if args.four_terminal else "two"
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        loaded = load_traces(
-            path,
-            field=args.field,
-            signal=args.signal,
-            field_unit=args.field_unit,
-            signal_unit=args.signal_unit,
-            group_by=args.group_by,
-            delimiter={"\\t": "\t", "tab": "\t"}.get(args.delimiter, args.delimiter),
-            decimal=args.decimal,
-            series_resistance=args.series_resistance,
-            terminals="four" if args.four_terminal else "two",
-            reference_resistance=args.reference_resistance,
-            split_sweeps=not args.no_split,
-        )
+        loaded = _load(args, path, series)
         if not 0 <= args.trace < len(loaded.traces):
             raise UserError(f"--trace {args.trace}: the file has {len(loaded.traces)} trace(s)")
-        records, results = [], []
-        geometry = {} if args.r_in is None else {"r_in": args.r_in, "r_out": args.r_out}
+        records, results, findings = [], [], []
+        geometry = {} if radii is None else {"r_in": args.r_in, "r_out": args.r_out}
         for i, tr in enumerate(loaded.traces):
             opts = {"degree": args.degree} if args.background == "polynomial" else {}
             try:
@@ -252,9 +393,31 @@ def run(args: argparse.Namespace) -> int:
                 if i == args.trace:
                     raise UserError(f"{tr.label}: {err}") from err
                 res, error = None, str(err)
-            records.append(_trace_record(i, tr, res, loaded.report, error))
+            rec = _trace_record(i, tr, res, loaded.report, error)
+            found = []
+            if res is not None:
+                found = check_result(
+                    res, radii=radii, terminals=terminals, series_resistance=args.series_resistance
+                )
+                rec["checks"] = [f.as_dict() for f in found]
+                rec["refused"] = bool(refusals(found)) and not args.force
+                rec.update(_lab_record(args, tr, res))
+            findings.append(found)
+            records.append(rec)
             results.append(res)
+    top_refusals = refusals(findings[args.trace])
+    if top_refusals and not args.force:
+        raise UserError(
+            f"{loaded.traces[args.trace].label}: {top_refusals[0].message} "
+            "(--force reports the numbers anyway)"
+        )
     messages = list(dict.fromkeys(str(w.message) for w in caught))
+    for tr, found in zip(loaded.traces, findings, strict=True):
+        for f in found:
+            prefix = "forced past refusal: " if f.level == "refuse" else ""
+            messages.append(f"{tr.label}: {prefix}{f.message}")
+    messages = list(dict.fromkeys(messages))
+    lphi_series = _series(args, loaded.traces, records) if series else None
     figures: list[str] = []
     if args.figures:
         out = Path(args.figures)
@@ -277,6 +440,8 @@ def run(args: argparse.Namespace) -> int:
             figures=figures,
             traces=records,
         )
+        if lphi_series is not None:
+            top["lphi_series"] = lphi_series
         json.dump(_clean(top), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
         return 0
@@ -284,6 +449,8 @@ def run(args: argparse.Namespace) -> int:
     print(report.summary())
     for rec in records:
         print("\n".join(_summary_lines(rec)))
+    if lphi_series is not None:
+        print("\n".join(series_lines(lphi_series)))
     for m in messages:
         print(f"warning: {m}")
     for f in figures:

@@ -1,0 +1,136 @@
+"""L_phi(T) from a temperature series of analysed traces (kwant-free helper for CLI and panel).
+
+Public API
+----------
+group_by_temperature(temperatures, rtol=1e-3) -> list of index lists
+lphi_from_series(temperatures, amplitudes_rms, noise_rms, *, radius, ...) -> dict
+
+Traces at the same temperature (up and down sweeps, several columns) are averaged: the
+cosine amplitude is ``sqrt(2) x`` the mean band rms, and its 1-sigma error combines the
+noise-floor contribution of each trace (``noise_rms / sqrt(n)``) with the scatter between the
+sweeps (standard error of the mean). The fit is
+:func:`ringkit.analysis.fitting.fit_lphi_temperature` with the path length of
+:func:`ringkit.conventions.path_length` (h/e: ``L = pi r``); its parameter errors are the
+fit's. docs/measured-data.md, "Temperature series".
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ringkit._validation import ParameterError
+from ringkit.analysis.fitting import fit_lphi_temperature, lphi_at
+from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+
+__all__ = ["group_by_temperature", "lphi_from_series"]
+
+
+def group_by_temperature(temperatures: list[float | None], rtol: float = 1e-3) -> list[list[int]]:
+    """Indices of equal temperatures (within ``rtol``), sorted by temperature; None skipped."""
+    known = sorted((t, i) for i, t in enumerate(temperatures) if t is not None)
+    groups: list[list[int]] = []
+    ref = None
+    for t, i in known:
+        if ref is None or abs(t - ref) > rtol * max(abs(ref), 1e-300):
+            groups.append([])
+            ref = t
+        groups[-1].append(i)
+    return groups
+
+
+def lphi_from_series(
+    temperatures: list[float | None],
+    amplitudes_rms: list[float],
+    noise_rms: list[float],
+    *,
+    radius: float,
+    order: int = 1,
+    thermal: str = "none",
+    thermal_energy: float | None = None,
+    p: float | None = None,
+) -> dict:
+    """Average per temperature and fit L_phi(T) (module docstring).
+
+    Parameters
+    ----------
+    temperatures : list of float or None
+        Temperature of each trace in K (traces without one are left out, and counted).
+    amplitudes_rms, noise_rms : list of float
+        Band rms amplitude and its noise-floor contribution of each trace (e^2/h); NaN
+        entries (not analysed) are left out.
+    radius : float
+        Ring radius in m (path length ``order * pi * radius``).
+    order, thermal, thermal_energy, p
+        Passed to :func:`~ringkit.analysis.fitting.fit_lphi_temperature`.
+
+    Returns
+    -------
+    dict
+        ``points`` (T, amplitude, error, n traces), ``fit`` (values, errors, units,
+        reduced chi2, model), ``lphi_at_points`` (L_phi and error at each T), ``path_length_m``,
+        ``lphi_convention``, ``n_traces_without_temperature``.
+    """
+    amps = np.asarray(amplitudes_rms, dtype=float)
+    noise = np.asarray(noise_rms, dtype=float)
+    usable = [
+        t if (t is not None and math.isfinite(amps[i]) and amps[i] > 0) else None
+        for i, t in enumerate(temperatures)
+    ]
+    groups = group_by_temperature(usable)
+    if len(groups) < 3:
+        raise ParameterError(
+            "temperature series",
+            f"{len(groups)} distinct temperatures",
+            "need at least 3 temperatures with an h/e amplitude (give group_by or a "
+            "temperature in each file's header or name)",
+        )
+    pts = []
+    for idx in groups:
+        a = amps[idx]
+        nz = np.where(np.isfinite(noise[idx]), noise[idx], 0.0)
+        n = len(idx)
+        var = float(np.mean(nz**2)) / n + (float(np.var(a, ddof=1)) / n if n > 1 else 0.0)
+        pts.append(
+            {
+                "temperature_K": float(np.mean([temperatures[i] for i in idx])),
+                "amplitude_e2h": math.sqrt(2) * float(np.mean(a)),
+                "amplitude_err_e2h": math.sqrt(2) * math.sqrt(var),
+                "n_traces": n,
+            }
+        )
+    t = np.array([q["temperature_K"] for q in pts])
+    a = np.array([q["amplitude_e2h"] for q in pts])
+    err = np.array([q["amplitude_err_e2h"] for q in pts])
+    length = float(path_length(radius, order))
+    fit = fit_lphi_temperature(
+        t,
+        a,
+        path_length=length,
+        order=order,
+        amplitude_err=err if np.all(err > 0) else None,
+        thermal=thermal,
+        thermal_energy=thermal_energy,
+        p=p,
+    )
+    lphi, lphi_err = lphi_at(fit, t)
+    return {
+        "points": pts,
+        "fit": {
+            "values": dict(fit.values),
+            "errors": dict(fit.errors),
+            "units": dict(fit.units),
+            "reduced_chi2": fit.reduced_chi2,
+            "dof": fit.dof,
+            "model": fit.model,
+            "success": fit.success,
+        },
+        "lphi_at_points_m": [float(x) for x in np.ravel(lphi)],
+        "lphi_err_at_points_m": [float(x) for x in np.ravel(lphi_err)],
+        "path_length_m": length,
+        "order": order,
+        "thermal": thermal,
+        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        "n_traces_without_temperature": sum(1 for x in temperatures if x is None),
+    }
