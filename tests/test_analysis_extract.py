@@ -46,10 +46,12 @@ def test_area_radius_amplitudes_known_answer():
     b, g = _trace(rng, f1)
     res = extract_oscillations(b, g, r_in=r_in, r_out=r_out)
     area_true = np.pi * r_true**2
-    assert abs(res.area - area_true) < res.area_err
-    # no intrinsic width: the error is half the resolution (common practice)
-    assert res.area_err == pytest.approx(PHI0 / (2 * (b[-1] - b[0])), rel=0.05)
-    assert abs(res.radius - r_true) < res.radius_err
+    # 3 sigma of the noise-driven error (a Gaussian deviate exceeds it with p = 0.0027)
+    assert abs(res.area - area_true) < 3 * res.area_err
+    # a single line has no intrinsic spread: the window's own width is removed and what is
+    # left (noise in the band) is far below one resolution bin 1/range
+    assert res.area_spread < 0.15 * PHI0 / (b[-1] - b[0])
+    assert abs(res.radius - r_true) < 3 * res.radius_err
     assert res.period_he == pytest.approx(1 / f1, rel=5e-3)
     # rms of a cosine = A/sqrt(2), peak-to-peak 2A; noise 0.002 with ~60 bins per band
     assert res.amplitude_he_rms == pytest.approx(0.05 / np.sqrt(2), rel=0.02)
@@ -82,7 +84,7 @@ def test_without_geometry_uses_dominant_peak():
     b, g = _trace(rng, f1, span=(-0.1, 0.1))
     res = extract_oscillations(b, g)
     assert res.band_source == "dominant peak"
-    assert res.frequency_he == pytest.approx(f1, abs=res.frequency_he_err)
+    assert res.frequency_he == pytest.approx(f1, abs=3 * res.frequency_he_err)
     assert res.bands[1] == pytest.approx((0.9 * f1, 1.1 * f1), rel=3e-3)
     assert res.amplitude_he_rms == pytest.approx(0.05 / np.sqrt(2), rel=0.03)
     # an ensemble-averaged trace: only the h/2e (AAS) line, declared as such
@@ -104,7 +106,7 @@ def test_ensemble_average_with_geometry_takes_area_from_h2e():
     with pytest.warns(ResolutionWarning, match="area taken from the h/2e band"):
         res = extract_oscillations(b, g, r_in=0.6e-6, r_out=0.66e-6)
     assert res.area_order == 2
-    assert abs(res.radius - r_true) < res.radius_err
+    assert abs(res.radius - r_true) < 3 * res.radius_err
     assert res.amplitude_h2e_rms == pytest.approx(0.02 / np.sqrt(2), rel=0.01)
 
 
@@ -129,7 +131,7 @@ def test_lombscargle_extraction_of_a_sweep_with_a_gap():
     g = 3 + 2 * b**2 + 0.04 * np.cos(2 * np.pi * f1 * b) + 0.001 * rng.normal(size=b.size)
     res = extract_oscillations(b, g, r_in=0.6e-6, r_out=0.66e-6, method="lombscargle")
     assert res.spectrum.method == "lombscargle"
-    assert abs(res.radius - 0.63e-6) < res.radius_err
+    assert abs(res.radius - 0.63e-6) < 3 * res.radius_err
     assert res.amplitude_he_rms == pytest.approx(0.04 / np.sqrt(2), rel=0.03)
     # the interpolated FFT fills the hole with a spline: flagged, not silently low
     with pytest.warns(UndersampledWarning, match="lombscargle"):
@@ -146,9 +148,10 @@ def test_wide_band_centroid_and_width():
     g = 5.0 + sum(0.01 * np.cos(2 * np.pi * f * b + rng.uniform(0, 2 * np.pi)) for f in freqs)
     res = extract_oscillations(b, g, r_in=r_in, r_out=r_out)
     assert res.frequency_he == pytest.approx(0.5 * (f_lo + f_hi), rel=0.01)
-    # intrinsic rms width of a uniform band: (f_hi - f_lo)/sqrt(12)
-    assert res.area_err_width / PHI0 == pytest.approx((f_hi - f_lo) / np.sqrt(12), rel=0.1)
-    assert res.area_err_range == pytest.approx(PHI0 / 2 / 1.0, rel=1e-9)
+    # intrinsic rms width of a uniform band: (f_hi - f_lo)/sqrt(12) -- reported as the
+    # spread of areas, not as the error of the effective area (noise-free trace: ~0)
+    assert res.area_spread / PHI0 == pytest.approx((f_hi - f_lo) / np.sqrt(12), rel=0.1)
+    assert res.area_err < 1e-3 * res.area_spread
     assert res.amplitude_he_rms == pytest.approx(0.01 * np.sqrt(60 / 2), rel=0.02)
 
 
@@ -242,3 +245,63 @@ def test_analysis_imports_neither_kwant_nor_matplotlib():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+def _quiet_extract(b, g, **kw):
+    import warnings
+
+    with warnings.catch_warnings():  # noise-only traces warn "no clear h/e peak" by design
+        warnings.simplefilter("ignore", ResolutionWarning)
+        return extract_oscillations(b, g, **kw)
+
+
+def test_noise_floor_is_unbiased_on_white_noise():
+    """Mean of 200 white-noise traces recovers sigma within 5 % (issue 15, point 2).
+
+    Closed form: with a one-sided periodogram normalised so that the bins sum to the variance,
+    white noise of variance sigma^2 has mean power 2 sigma^2/N per bin, so the band of K bins
+    holds noise rms sigma sqrt(2 K/N). A bin is chi-square with 2 degrees of freedom: median =
+    ln 2 x mean (docs/physics.md, "Periodogram statistics"; Press et al., Numerical Recipes,
+    periodogram section, from memory) -- a median-only floor came out at 0.83 of the truth.
+    """
+    rng = np.random.default_rng(20150)
+    n, sigma = 1000, 0.01
+    b = np.linspace(-0.05, 0.05, n)
+    ratios = []
+    for _ in range(200):
+        res = _quiet_extract(b, 1 + sigma * rng.normal(size=n), r_in=0.6e-6, r_out=0.66e-6)
+        k = np.count_nonzero(res.spectrum.band_mask(res.bands[1], margin=res.band_margin))
+        ratios.append(res.noise_he_rms / (sigma * np.sqrt(2 * k / n)))
+        assert res.noise_floor == pytest.approx(res.noise_he_rms**2 / k)
+    assert np.mean(ratios) == pytest.approx(1.0, abs=0.05)
+
+
+def test_area_error_coverage_at_three_signal_to_noise_ratios():
+    """The true area lies inside +-1 sigma in 60-76 % of 250 noisy traces, at A/sigma = 1, 3, 10.
+
+    The reported error is propagated from the periodogram statistics (docs/physics.md,
+    "Centroid uncertainty"); it must scale as 1/SNR and respect the Cramer-Rao bound of a
+    sinusoid's frequency, sigma_f >= sqrt(3) sigma / (pi A sqrt(N) T) (Rife and Boorstyn,
+    IEEE Trans. Inf. Theory 20, 591 (1974), from memory; N samples over a field range T).
+    """
+    rng = np.random.default_rng(4151)
+    n, sigma = 1000, 0.01
+    b = np.linspace(-0.05, 0.05, n)
+    r_true = 0.63e-6
+    f0 = np.pi * r_true**2 / PHI0
+    area_true = np.pi * r_true**2
+    mean_err = {}
+    for snr in (1.0, 3.0, 10.0):
+        amp = snr * sigma
+        inside, errs = 0, []
+        for _ in range(250):
+            g = 1 + amp * np.cos(2 * np.pi * f0 * b + rng.uniform(0, 2 * np.pi))
+            g = g + sigma * rng.normal(size=n)
+            res = _quiet_extract(b, g, r_in=0.6e-6, r_out=0.66e-6, background="none")
+            inside += abs(res.area - area_true) < res.area_err
+            errs.append(res.frequency_he_err)
+        assert 0.60 <= inside / 250 <= 0.76, (snr, inside / 250)
+        mean_err[snr] = float(np.mean(errs))
+        crb = np.sqrt(3) * sigma / (np.pi * amp * np.sqrt(n) * (b[-1] - b[0]))
+        assert 1.0 < mean_err[snr] / crb < 4.0  # a Hann-window centroid is not efficient
+    assert mean_err[3.0] / mean_err[10.0] == pytest.approx(10 / 3, rel=0.15)

@@ -15,17 +15,26 @@ What is measured (conventions)
 * Effective area ``A = f_c h/e`` with f_c the power-weighted centroid of the h/e band
   (noise floor subtracted); radius ``sqrt(A/pi)``. When only the h/2e line is clear (an
   ensemble-averaged trace, or ``dominant_order=2``) f_c is half the h/2e centroid
-  (``area_order = 2``). Uncertainty: the intrinsic rms width of
-  the band content (observed rms width with the window's own width removed in quadrature;
-  the spread of enclosed areas) combined in quadrature with half the frequency resolution
-  ``1/(2 field range)`` (common practice).
+  (``area_order = 2``). Two separate numbers (``docs/physics.md``, "Centroid uncertainty"):
+
+  - ``area_err`` (and ``frequency_he_err``, ``period_he_err``, ``radius_err``): the 1-sigma
+    uncertainty of the effective-area *estimate* caused by the noise in the trace,
+    propagated exactly from the periodogram statistics (depends on the signal-to-noise
+    ratio and the field range; 0 for noise-free data, where the Hann-window centroid of a
+    line is exact to < 1e-7 bin);
+  - ``area_spread`` (``frequency_he_spread``): the intrinsic rms width of the band content
+    (observed rms width with the window's own width removed in quadrature), i.e. the
+    spread of the areas enclosed by the interfering paths -- a property of the ring, not
+    an error bar.
 * ``amplitude_*_rms``: rms of the band content (Parseval; a cosine of amplitude A gives
   A/sqrt(2)); ``amplitude_*_pp``: twice the mean envelope of the band-pass filtered trace
   (:func:`band_filter`) over the central half of the range (2A for a cosine of amplitude A;
-  physics notes §12.5).
+  ``docs/physics.md``, "Oscillation amplitudes").
   ``relative_amplitude_*`` = rms / mean conductance.
-* ``noise_*_rms``: rms that the noise floor (median power outside the bands) contributes
-  to each band, for judging the amplitudes.
+* ``noise_floor``: mean noise power per bin, ``median / ln 2`` of the bins outside the bands
+  (unbiased for Gaussian noise: a periodogram bin is exponentially distributed, chi-square
+  with 2 degrees of freedom; ``docs/physics.md``, "Periodogram statistics").
+  ``noise_*_rms``: rms that this floor contributes to each band, for judging the amplitudes.
 
 Failure modes (never a wrong number)
 ------------------------------------
@@ -58,8 +67,14 @@ from ringkit.analysis._common import (
     is_uniform,
     validate_trace,
 )
+from ringkit.analysis._noise import centroid_error, noise_floor
 from ringkit.analysis.background import BackgroundResult, remove_background
-from ringkit.analysis.spectrum import OscillationSpectrum, ab_bands, oscillation_spectrum
+from ringkit.analysis.spectrum import (
+    OscillationSpectrum,
+    _window_on,
+    ab_bands,
+    oscillation_spectrum,
+)
 from ringkit.units import PHI0
 
 __all__ = ["OscillationResult", "extract_oscillations", "band_filter"]
@@ -78,17 +93,22 @@ class OscillationResult:
     period_he, period_he_err : float
         h/e period and its uncertainty in T.
     frequency_he, frequency_he_err : float
-        Centroid of the h/e band and its uncertainty in 1/T.
+        Centroid of the h/e band and its 1-sigma noise uncertainty in 1/T.
+    frequency_he_spread : float
+        Intrinsic rms width of the h/e band content in 1/T (spread, not an error).
     area, area_err : float
-        Effective enclosed area ``frequency_he * h/e`` and uncertainty in m^2.
-    area_err_width, area_err_range : float
-        The two parts of ``area_err`` (intrinsic band width; half the resolution) in m^2.
+        Effective enclosed area ``frequency_he * h/e`` and its 1-sigma uncertainty (from the
+        noise) in m^2.
+    area_spread : float
+        rms spread of the enclosed areas ``frequency_he_spread * h/e`` in m^2.
     radius, radius_err : float
         Effective radius ``sqrt(area/pi)`` and uncertainty in m.
     amplitude_he_rms, amplitude_he_pp, amplitude_h2e_rms, amplitude_h2e_pp : float
         Band rms and mean peak-to-peak amplitude of the h/e and h/2e content.
     relative_amplitude_he, relative_amplitude_h2e : float
         rms amplitude / mean conductance (NaN if the mean is not positive).
+    noise_floor : float
+        Mean noise power per spectral bin (signal units squared), ``median / ln 2``.
     noise_he_rms, noise_h2e_rms : float
         Expected noise-floor contribution to each band rms.
     mean_conductance : float
@@ -121,10 +141,10 @@ class OscillationResult:
     period_he_err: float
     frequency_he: float
     frequency_he_err: float
+    frequency_he_spread: float
     area: float
     area_err: float
-    area_err_width: float
-    area_err_range: float
+    area_spread: float
     radius: float
     radius_err: float
     amplitude_he_rms: float
@@ -135,6 +155,7 @@ class OscillationResult:
     relative_amplitude_h2e: float
     noise_he_rms: float
     noise_h2e_rms: float
+    noise_floor: float
     mean_conductance: float
     bands: dict
     band_margin: float
@@ -409,24 +430,29 @@ def extract_oscillations(
     elif 2 * margin > gap:
         margin = 0.5 * gap
 
-    # Noise floor: median power between min search frequency and Nyquist outside the bands.
+    # Noise floor: mean noise power per bin (median / ln 2) between the lowest search
+    # frequency and Nyquist, outside the bands.
     f = sp.frequency
     out = (f > max(4.0 / frange, 2 * sp.lobe_halfwidth)) & (f < min(nyq, f[-1]))
     for lo, hi in bands.values():
         out &= ~((f >= lo - 2 * margin) & (f <= hi + 2 * margin))
-    floor = float(np.median(sp.power[out])) if np.count_nonzero(out) >= 8 else 0.0
+    floor = noise_floor(sp.power, out)
 
     def band_stats(n: int) -> tuple[float, float, float]:
         """Centroid, observed rms width (1/T) and peak significance of band n."""
         m = sp.band_mask(bands[n], margin=margin)
         if not np.any(m) or bands[n][1] + margin > nyq:
             return float("nan"), float("nan"), 0.0
-        p = np.maximum(sp.power[m] - floor, 0.0)
+        sig = float(np.max(sp.power[m]) / floor) if floor > 0 else float("inf")
+        # clear line: unclipped weights (noise bins average to zero weight, no bias);
+        # otherwise clipped ones, which keep the centroid inside the band
+        p = sp.power[m] - floor
+        if sig < MIN_PEAK_SIGNIFICANCE:
+            p = np.maximum(p, 0.0)
         if not np.sum(p) > 0:
             p = sp.power[m]
         c = float(np.sum(f[m] * p) / np.sum(p))
-        w = float(np.sqrt(np.sum((f[m] - c) ** 2 * p) / np.sum(p)))
-        sig = float(np.max(sp.power[m]) / floor) if floor > 0 else float("inf")
+        w = float(np.sqrt(max(np.sum((f[m] - c) ** 2 * p) / np.sum(p), 0.0)))
         return c, w, sig
 
     stats = {n: band_stats(n) for n in (1, 2)}
@@ -436,8 +462,15 @@ def extract_oscillations(
     fc_n, width_obs, significance = stats[order]
     fc = fc_n / order
     sigma_w = float(np.sqrt(max(width_obs**2 - sp.lobe_rms_width**2, 0.0))) / order
-    sigma_r = 0.5 / frange / order
-    sigma_f = float(np.hypot(sigma_w, sigma_r))
+    bb = b if bgr is None else bgr.field[bgr.valid]
+    rr = s - np.mean(s) if bgr is None else bgr.residual[bgr.valid]
+    m_o = sp.band_mask(bands[order], margin=margin)
+    if np.isfinite(fc) and np.any(m_o):
+        sigma_f = (
+            centroid_error(bb, rr, _window_on(bb, window), f[m_o], sp.power[m_o], floor) / order
+        )
+    else:
+        sigma_f = float("nan")
     if stats[1][2] < MIN_PEAK_SIGNIFICANCE:
         _warn(
             notes,
@@ -447,8 +480,6 @@ def extract_oscillations(
             ResolutionWarning,
         )
 
-    bb = b if bgr is None else bgr.field[bgr.valid]
-    rr = s - np.mean(s) if bgr is None else bgr.residual[bgr.valid]
     amp = {}
     for n in (1, 2):
         lo, hi = bands[n]
@@ -494,9 +525,9 @@ def extract_oscillations(
         frequency_he=fc,
         frequency_he_err=sigma_f,
         area=area,
+        frequency_he_spread=sigma_w,
         area_err=sigma_f * PHI0,
-        area_err_width=sigma_w * PHI0,
-        area_err_range=sigma_r * PHI0,
+        area_spread=sigma_w * PHI0,
         radius=float(np.sqrt(area / np.pi)),
         radius_err=float(np.sqrt(area / np.pi)) * 0.5 * sigma_f / fc,
         amplitude_he_rms=amp[1][0],
@@ -507,6 +538,7 @@ def extract_oscillations(
         relative_amplitude_h2e=rel(amp[2][0]),
         noise_he_rms=amp[1][2],
         noise_h2e_rms=amp[2][2],
+        noise_floor=floor,
         mean_conductance=g_mean,
         bands=bands,
         band_margin=margin,
