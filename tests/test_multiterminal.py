@@ -27,7 +27,7 @@ from test_reference_fisher_lee import _cut_phase_sign, _strip_self_energy
 
 from ringkit._validation import ParameterError
 from ringkit.contacts import Contacts, resistance_from_conductance
-from ringkit.device import LeadSpec, Material, RingDevice, RingGeometry
+from ringkit.device import ArmGate, LeadSpec, Material, RingDevice, RingGeometry
 from ringkit.tightbinding import build_ring
 from ringkit.transport import field_sweep
 from ringkit.transport import multiterminal as mt
@@ -401,3 +401,57 @@ def test_clean_symmetric_four_lead_chain_ring_matches_network():
                 ref = resistance_from_conductance(g, c)
                 worst = max(worst, abs(r_ours[f_idx, c_idx] - ref) / max(1.0, abs(ref)))
     assert worst < 1e-9
+
+
+# ------------------------------------------------------------------------------- electric AB
+def _gated_chain_ring(n_leads: int):
+    """Clean 40-site chain ring (r = 150 nm), gate on the upper arm (between leads 1 and 0)."""
+    n, radius = 40, 150e-9
+    a_chain = 2 * math.pi * radius / n
+    t = constants.hbar**2 / (2 * 0.067 * constants.m_e * a_chain**2)
+    mat = Material(0.067, fermi_energy=1.1 * t)  # k a = 1.10 (coarse on purpose: short ring)
+    angles = [3 * math.pi / 4, math.pi / 4, 5 * math.pi / 4, -math.pi / 4][:n_leads]
+    geo = RingGeometry.chain(radius, n_sites=n, leads=angles)
+    dev = RingDevice(mat, geo, field_mode="flux_tube", gate=ArmGate("upper", 0.0), max_kfa=1.2)
+    return build_ring(dev), t
+
+
+def test_two_terminal_ab_phase_is_rigid_under_an_arm_gate():
+    """Phase rigidity: G(Phi) = G(-Phi) for two terminals (Büttiker 1986; Yacoby et al.,
+    PRL 74, 4047 (1995)), so the h/e phase is 0 or pi at every gate value (to 1e-8)."""
+    from ringkit.analysis.fourterminal import phase_versus_gate
+
+    fluxes = np.linspace(-1.0, 1.0, 65) * PHI0  # symmetric about 0
+    gates_t = np.linspace(0.0, 0.6, 13)
+    for n_leads, cfg in ((2, "0,1,0,1"), (4, "0,1,0,1"), (4, "0,2,0,2")):
+        ring, t = _gated_chain_ring(n_leads)
+        ds = mt.gate_conductance_sweep(ring, gates_t * t, fluxes, energy=1.1 * t)
+        r = mt.resistance_sweep(ds, cfg, allow_shared=True).R.values[..., 0]
+        ph = phase_versus_gate(gates_t * t, fluxes, r, 1.0 / PHI0)
+        dist = np.abs(np.angle(np.exp(2j * ph.phase.values)))  # 0 for phases 0 or pi
+        assert dist.max() < 1e-8
+        assert ph.amplitude.values.max() > 1e-3  # there is an h/e component to speak of
+
+
+def test_four_terminal_ab_phase_moves_continuously_with_the_gate():
+    """R_02,13 (current 0 -> 2 on the left, voltage 1 - 3 on the right) of the four-lead chain
+    ring: the h/e phase is not pinned and moves by more than pi/2 as the upper-arm gate goes
+    from 0 to 0.6 t (0 to 0.61 meV for this ring, t = 1.02 meV), continuously (steps
+    < 0.5 rad between 25 gate values, amplitude never below 30 % of its maximum)."""
+    from ringkit.analysis.fourterminal import phase_versus_gate
+
+    ring, t = _gated_chain_ring(4)
+    assert math.isclose(t / constants.e * 1e3, 1.02, rel_tol=0.01)  # t in meV
+    fluxes = np.linspace(-1.0, 1.0, 65) * PHI0
+    gates = np.linspace(0.0, 0.6, 25) * t
+    ds = mt.gate_conductance_sweep(ring, gates, fluxes, energy=1.1 * t)
+    r = mt.resistance_sweep(ds, "0,2,1,3").R.values[..., 0]
+    ph = phase_versus_gate(gates, fluxes, r, 1.0 / PHI0)
+    un = ph.phase_unwrapped.values
+    assert np.abs(np.diff(un)).max() < 0.5
+    assert np.ptp(un) > math.pi / 2
+    amp = ph.amplitude.values
+    assert amp.min() > 0.3 * amp.max()
+    # and its odd part in flux is a sizeable part of the trace (not phase-rigid)
+    odd = 0.5 * (r - r[:, ::-1])
+    assert np.abs(odd).max() > 0.1 * np.ptp(r, axis=1).max()
