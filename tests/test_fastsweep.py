@@ -253,3 +253,72 @@ def test_schur_bound_state_in_continuum_falls_back_to_lu():
     got = sw.transmission(fluxes)
     assert np.max(np.abs(got - ref)) < 1e-10
     assert sw.n_fallbacks == len(fluxes)
+
+
+# ------------------------------------------------------------------ no open channel (issue 11)
+# First subband of a clean square-lattice strip of width W (on-site 4t, hopping t): band
+# bottom 2t (1 - cos(pi/(W+1))) (closed form of the transverse standing waves); W = 5:
+# 0.268t. Below it (and below the band bottom 0) a lead has no open channel and G = 0 exactly;
+# kwant.smatrix returns 0 there too. Regression: IndexError in _tmatrix_from.
+NO_CHANNEL_ENERGIES = (-0.3, 0.1)
+E_FIRST_SUBBAND_W5 = 2.0 * (1.0 - np.cos(np.pi / 6.0))
+
+
+@pytest.mark.parametrize("method", ["schur", "lu"])
+def test_no_open_channel_gives_zero_not_a_crash(method):
+    from types import SimpleNamespace
+
+    fsyst = square_ring(14, 9, 5, disorder=1.0, seed=5)
+    values = np.array([0.0, 0.004, -0.01])
+    probes = SimpleNamespace(sites=np.array([30, 150, 300]), eta=0.2)
+    for energy in NO_CHANNEL_ENERGIES + (E_FIRST_SUBBAND_W5 + 0.03,):
+        sw = FieldSweeper(fsyst, field_param="phi", energy=energy, method=method)
+        ref = np.array([_kwant_t(fsyst, energy, "phi", v) for v in values])
+        assert np.max(np.abs(sw.transmission(values) - ref)) < TOL
+        assert np.max(np.abs(sw.conductance(values) - ref)) < TOL
+        sk = kwant.smatrix(fsyst, energy, params={"phi": values[1]})
+        assert np.max(np.abs(sw.conductance_matrix(values[1]) - sk.conductance_matrix())) < TOL
+        swp = FieldSweeper(fsyst, field_param="phi", energy=energy, method=method, probes=probes)
+        g = swp.conductance(values)
+        assert np.all(np.isfinite(g))
+        if energy < E_FIRST_SUBBAND_W5:
+            assert np.all(ref == 0.0)
+            assert np.all(g == 0.0)  # no channel in source/drain: exactly zero
+        else:  # one open channel: the sweep is alive (kwant gives T > 0)
+            assert np.all(ref > 1e-3) and np.all(g > 1e-3)
+
+
+def test_kron_reduce_with_a_dead_terminal_is_zero():
+    # source without any coupling, two probes coupled only to each other: C_pp is singular
+    c = np.zeros((4, 4))
+    c[2, 2] = c[3, 3] = 0.3
+    c[2, 3] = c[3, 2] = -0.3
+    assert kron_reduce(c, 0, 1) == 0.0
+    assert np.all(kron_reduce(np.stack([c, c]), 0, 1) == 0.0)
+
+
+def test_no_open_channel_every_ringkit_path():
+    """Issue 11 device (GaAs, r_in 110 nm, r_out 150 nm, a = 6 nm) at 0.5 meV, below the first
+    lead subband (hbar^2 pi^2 / (2 m* W^2) ~ 3 meV for the ~40 nm lead, closed form): G = 0
+    on the kwant path, the fast uniform path and the flux tube (probes: see the sweeper
+    tests above; their L_phi calibration needs an open channel at the Fermi energy)."""
+    import warnings
+
+    from scipy.constants import e as q_e
+
+    from ringkit.device import DiscretisationWarning, Material, RingDevice, RingGeometry
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.conductance import conductance, field_sweep
+
+    mat = Material(0.067, fermi_energy=5e-3 * q_e, mobility=4.0)
+    geo = RingGeometry.circular(110e-9, 150e-9)
+    energy = 0.5e-3 * q_e
+    for mode, vals in (("uniform", [0.0, 0.05]), ("flux_tube", [0.0, 0.3 * PHI0])):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DiscretisationWarning)
+            dev = RingDevice(mat, geo, lattice_spacing=6e-9, field_mode=mode)
+        ring = build_ring(dev, seed=1)
+        assert conductance(ring, energy=energy) == 0.0
+        for kw in ({"method": "kwant"}, {}):
+            ds = field_sweep(ring, vals, energy=energy, **kw)
+            assert np.all(ds.G.values == 0.0), (mode, kw)

@@ -485,3 +485,17 @@ def test_core_flux_tube_ring_equals_kwant():
     )
     np.testing.assert_allclose(got, ref, rtol=0, atol=TOL)
     np.testing.assert_allclose(sweeper.transmission(-FLUXES), got, rtol=0, atol=TOL)
+
+
+def test_no_open_channel_gives_zero_like_kwant():
+    """Below the first lead subband (clean strip of width 4: 2t (1 - cos(pi/5)) = 0.382t,
+    closed form) the flux-tube sweeper returns T = 0 exactly, as kwant.smatrix does; with a
+    probe the floating-probe conductance is 0 too (no channel in source or drain)."""
+    fsyst = flux_tube_ring(disorder=0.5, seed=4)
+    for energy in (-0.2, 0.3):
+        sw = FluxTubeSweeper(fsyst, energy=energy)
+        assert np.all(kwant_t(fsyst, energy, FLUXES[:3]) == 0.0)
+        assert np.all(sw.transmission(FLUXES[:3]) == 0.0)
+        assert np.all(sw.conductance_matrix(FLUXES[:3]) == 0.0)
+        swp = FluxTubeSweeper(fsyst, energy=energy, probe_sites=[40, 90], probe_eta=0.3)
+        assert np.all(swp.conductance(FLUXES[:3]) == 0.0)

@@ -304,6 +304,8 @@ class MumpsKernel:
     def solve(self, rhs: np.ndarray) -> np.ndarray:
         """Solve with the LU factors (``method="lu"``); ``rhs`` has all variables as rows."""
         b = np.asfortranarray(rhs, dtype=complex).copy(order="F")
+        if b.ndim == 2 and b.shape[1] == 0:  # no open channel: nothing to solve (MUMPS -45)
+            return b
         self.inst.set_dense_rhs(b)
         self.inst.job = 3
         self.inst.call()

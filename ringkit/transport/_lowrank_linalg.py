@@ -145,7 +145,10 @@ def gamma_factor(sigma: np.ndarray) -> np.ndarray:
     gamma = 1j * (sigma - sigma.conj().T)
     gamma = 0.5 * (gamma + gamma.conj().T)
     lam, u = np.linalg.eigh(gamma)
-    keep = lam > 1e-12 * max(float(np.max(np.abs(lam))), 1e-300)
+    # relative to the self-energy itself: below the first subband Sigma is real up to
+    # rounding (evanescent modes only) and no channel may survive (T = 0 exactly, as kwant)
+    scale = max(float(np.max(np.abs(sigma))), float(np.max(np.abs(lam))), 1e-300)
+    keep = lam > 1e-12 * scale
     return u[:, keep] * np.sqrt(lam[keep])
 
 

@@ -71,8 +71,33 @@ def kron_reduce(cmat: np.ndarray, source: int = 0, drain: int = 1) -> np.ndarray
     c_pp = cmat[..., others, :][..., :, others]
     c_ps = cmat[..., others, source]
     c_sp = cmat[..., source, others]
-    v_p = np.linalg.solve(c_pp, -c_ps[..., None])[..., 0]
-    return c_ss + np.einsum("...i,...i->...", c_sp, v_p)
+    try:
+        v_p = np.linalg.solve(c_pp, -c_ps[..., None])[..., 0]
+    except np.linalg.LinAlgError:
+        # a group of floating probes without any path to source or drain (e.g. no open
+        # channel in a lead at this energy): their voltage is undetermined but they carry no
+        # current to the source, so any solution gives the same G; take the minimum-norm one
+        pp = c_pp.reshape(-1, len(others), len(others))
+        ps = c_ps.reshape(-1, len(others))
+        v_p = np.stack([np.linalg.lstsq(a, -b, rcond=None)[0] for a, b in zip(pp, ps, strict=True)])
+        v_p = v_p.reshape(c_ps.shape)
+    g = c_ss + np.einsum("...i,...i->...", c_sp, v_p)
+    # a terminal without any open channel carries no current: G = 0 exactly (kwant gives 0)
+    dead = ~(_coupled(cmat, source) & _coupled(cmat, drain))
+    return np.where(dead, 0.0, g)
+
+
+def _coupled(cmat: np.ndarray, k: int) -> np.ndarray:
+    """Per matrix of the batch: does terminal ``k`` exchange any current (nonzero row/column)?"""
+    return np.any(cmat[..., k, :] != 0, axis=-1) | np.any(cmat[..., :, k] != 0, axis=-1)
+
+
+def _indicator(sizes: np.ndarray) -> np.ndarray:
+    """(n_blocks, sum(sizes)) matrix summing consecutive segments of the given sizes."""
+    sizes = np.asarray(sizes, dtype=np.int64)
+    out = np.zeros((len(sizes), int(sizes.sum())))
+    out[np.repeat(np.arange(len(sizes)), sizes), np.arange(int(sizes.sum()))] = 1.0
+    return out
 
 
 class FieldSweeper:
@@ -279,6 +304,8 @@ class FieldSweeper:
         self._w = np.array(col_w)
         self._rstart = np.r_[0, np.cumsum(self._row_sizes)[:-1]].astype(np.int64)
         self._cstart = np.r_[0, np.cumsum(self._col_sizes)[:-1]].astype(np.int64)
+        self._row_sum = _indicator(self._row_sizes)
+        self._col_sum = _indicator(self._col_sizes)
         rows_d, cols_d, starts = [], [], []
         for k, orbs in enumerate(self._probe_orbs):
             j = nl + k
@@ -368,7 +395,9 @@ class FieldSweeper:
         - 2 eta sum_a Im X_aa (the first term is the diagonal block sum).
         """
         p = x.real**2 + x.imag**2
-        blocks = np.add.reduceat(np.add.reduceat(p, self._rstart, axis=0), self._cstart, axis=1)
+        # block sums by indicator matrices: exact for empty blocks (a lead without an open
+        # channel has no rows/columns; np.add.reduceat would fail or repeat a neighbour)
+        blocks = self._row_sum @ p @ self._col_sum.T
         w = self._w
         tm = blocks * w[:, None] * w[None, :]
         if len(self._pdiag_rows):
