@@ -324,6 +324,10 @@ def test_resistance_errors_name_the_parameter():
     ds = mt.conductance_matrix_sweep(ring, [0.0, 0.3 * PHI0], energy=1.2 * T_HOP)
     with pytest.raises(ParameterError, match="singular"):
         mt.resistance_sweep(ds, "0,1,2,0", allow_shared=True)
+    uniform = build_ring(RingDevice(mat, geo, lattice_spacing=A), seed=0)
+    with pytest.raises(ParameterError, match="no open channel") as err:
+        mt.conductance_matrix_sweep(uniform, [0.0, 0.1], energy=1.2 * T_HOP)
+    assert err.value.name == "energy"
 
 
 # ------------------------------------------------------------------------------- 1D network

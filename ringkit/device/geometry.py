@@ -41,95 +41,29 @@ from typing import Any, Literal
 import numpy as np
 
 from ringkit._validation import ParameterError, check_choice, check_positive
+from ringkit.device._leads import (
+    MAX_LEADS,
+    LeadSpec,
+    check_distinct_chain_leads,
+    check_lead_overlap,
+    checked_extra_leads,
+    lead_param_names,
+    lead_side,
+    norm_left,
+    norm_right,
+    split_leads,
+)
+from ringkit.device._leads import lead_outlines as _lead_outlines
 
 __all__ = ["RingGeometry", "LeadSpec", "SHAPES", "MAX_LEADS"]
 
 SHAPES: tuple[str, ...] = ("circular", "rectangular", "chain")
-MAX_LEADS = 4
 _TWO_PI = 2.0 * math.pi
-
-
-@dataclass(frozen=True)
-class LeadSpec:
-    """One lead of a ring: a horizontal strip attached at polar angle ``angle``.
-
-    Attributes
-    ----------
-    angle : float
-        Attachment angle in rad on the ring's centre line; the left half (pi/2, 3pi/2) gives
-        a lead along -x, the right half (-pi/2, pi/2) a lead along +x.
-    width : float or None
-        Strip width in m (None: the geometry's ``lead_width``; always None for a chain).
-    """
-
-    angle: float
-    width: float | None = None
-
-    @classmethod
-    def coerce(cls, obj: Any, name: str) -> LeadSpec:
-        """A LeadSpec from a LeadSpec, a mapping ``{angle, width}`` or a pair."""
-        if isinstance(obj, LeadSpec):
-            return obj
-        try:
-            if isinstance(obj, dict):
-                return cls(float(obj["angle"]), _opt_float(obj.get("width")))
-            seq = tuple(obj) if not isinstance(obj, (int, float)) else (obj,)
-            return cls(float(seq[0]), _opt_float(seq[1]) if len(seq) > 1 else None)
-        except (KeyError, TypeError, ValueError, IndexError):
-            raise ParameterError(
-                name, obj, "must be a LeadSpec(angle, width), {'angle':..., 'width':...} or a pair"
-            ) from None
-
-
-def _opt_float(v: Any) -> float | None:
-    return None if v is None else float(v)
-
-
-def lead_side(angle: float) -> int:
-    """-1 for an attachment on the left half (lead along -x), +1 on the right, 0 on the y axis."""
-    c = math.cos(float(angle))
-    if abs(c) < 1e-12:
-        return 0
-    return -1 if c < 0 else 1
-
-
-def _norm_side(angle: float, name: str) -> float:
-    """Left-half angles to [0, 2pi), right-half ones to (-pi, pi]; refuse the y axis."""
-    side = lead_side(angle)
-    if side == 0:
-        raise ParameterError(
-            name,
-            angle,
-            "must lie in the left half (pi/2, 3pi/2) or the right half (-pi/2, pi/2) of the "
-            "ring: leads run along -x or +x (docs/multiterminal.md)",
-            "rad",
-        )
-    return _norm_left(angle) if side < 0 else _norm_right(angle)
 
 
 def _attachment_angles(geo: RingGeometry) -> np.ndarray:
     """Lead attachment angles mapped to [0, 2 pi)."""
     return np.mod(np.asarray(geo.lead_angles, float), _TWO_PI)
-
-
-def _norm_left(angle: float) -> float:
-    """Map an angle to [0, 2pi) and check it lies in (pi/2, 3pi/2)."""
-    a = float(angle) % _TWO_PI
-    if not (math.pi / 2 < a < 1.5 * math.pi):
-        raise ParameterError(
-            "lead_angles[0]", angle, "must lie in (pi/2, 3 pi/2) rad (left half of the ring)"
-        )
-    return a
-
-
-def _norm_right(angle: float) -> float:
-    """Map an angle to (-pi, pi] and check it lies in (-pi/2, pi/2)."""
-    a = math.remainder(float(angle), _TWO_PI)
-    if not (-math.pi / 2 < a < math.pi / 2):
-        raise ParameterError(
-            "lead_angles[1]", angle, "must lie in (-pi/2, pi/2) rad (right half of the ring)"
-        )
-    return a
 
 
 @dataclass(frozen=True)
@@ -197,7 +131,7 @@ class RingGeometry:
         if not r_out > r_in:
             raise ParameterError("r_in", r_in, f"must be < r_out = {r_out:g} m", "m")
         w = r_out - r_in
-        lead_angles, lead_width, extra = _split_leads(leads, lead_angles, lead_width)
+        lead_angles, lead_width, extra = split_leads(leads, lead_angles, lead_width)
         return cls(
             shape="circular",
             r_in=r_in,
@@ -249,7 +183,7 @@ class RingGeometry:
                 "width_upper", wu, f"width_upper + width_lower must be < height = {height:g} m", "m"
             )
         a_in = (length - 2 * width) * (height - wu - wl)
-        lead_angles, lead_width, extra = _split_leads(leads, lead_angles, lead_width)
+        lead_angles, lead_width, extra = split_leads(leads, lead_angles, lead_width)
         return cls(
             shape="rectangular",
             r_in=math.sqrt(a_in / math.pi),
@@ -280,7 +214,7 @@ class RingGeometry:
         :class:`LeadSpec` without width) of single-channel leads.
         """
         radius = check_positive("radius", radius, "m")
-        lead_angles, _, extra = _split_leads(leads, lead_angles, None)
+        lead_angles, _, extra = split_leads(leads, lead_angles, None)
         return cls(
             shape="chain",
             r_in=radius,
@@ -300,8 +234,8 @@ class RingGeometry:
         if len(tuple(self.lead_angles)) != 2:
             raise ParameterError("lead_angles", self.lead_angles, "must be a pair (left, right)")
         left, right = self.lead_angles
-        set_("lead_angles", (_norm_left(left), _norm_right(right)))
-        set_("extra_leads", self._checked_extra_leads())
+        set_("lead_angles", (norm_left(left), norm_right(right)))
+        set_("extra_leads", checked_extra_leads(self))
         set_("r_in", check_positive("r_in", self.r_in, "m"))
         set_("r_out", check_positive("r_out", self.r_out, "m"))
         if self.shape == "chain":
@@ -315,7 +249,7 @@ class RingGeometry:
             set_("width_upper", 0.0)
             set_("width_lower", 0.0)
             set_("lead_width", None)
-            self._check_distinct_chain_leads()
+            check_distinct_chain_leads(self)
             return
         if self.n_sites is not None:
             raise ParameterError("n_sites", self.n_sites, "only a chain ring has n_sites")
@@ -341,7 +275,7 @@ class RingGeometry:
             yc = self.lead_center(idx)
             lo, hi = self._centreline_y_range()
             room = 2 * min(hi - yc, yc - lo)
-            angle_name, width_name = _lead_names(idx)
+            angle_name, width_name = lead_param_names(idx)
             if room <= 0:
                 raise ParameterError(
                     angle_name,
@@ -357,32 +291,9 @@ class RingGeometry:
                     f"point (the strip must stay within {lo:.6g} <= y <= {hi:.6g} m)",
                     "m",
                 )
-        self._check_lead_overlap()
+        check_lead_overlap(self)
 
     # ------------------------------------------------------------------ leads
-    def _checked_extra_leads(self) -> tuple[LeadSpec, ...]:
-        raw = self.extra_leads
-        if raw is None:
-            raw = ()
-        if isinstance(raw, (LeadSpec, dict)):
-            raw = (raw,)
-        specs = [LeadSpec.coerce(x, f"extra_leads[{k}]") for k, x in enumerate(raw)]
-        if len(specs) > MAX_LEADS - 2:
-            raise ParameterError(
-                "leads", len(specs) + 2, f"must be 2 to {MAX_LEADS} leads (got {len(specs) + 2})"
-            )
-        out = []
-        for k, spec in enumerate(specs):
-            angle = _norm_side(spec.angle, f"leads[{k + 2}].angle")
-            width = spec.width
-            if self.shape == "chain":
-                if width is not None:
-                    raise ParameterError(
-                        f"leads[{k + 2}].width", width, "must be None for a chain (1D leads)", "m"
-                    )
-            out.append(LeadSpec(angle, width))
-        return tuple(out)
-
     @property
     def n_leads(self) -> int:
         """Number of leads (2 to 4)."""
@@ -405,43 +316,6 @@ class RingGeometry:
         """-1 if lead ``index`` runs along -x (left half), +1 along +x (right half)."""
         return lead_side(self.leads[index].angle)
 
-    def _lead_y_range(self, index: int) -> tuple[float, float]:
-        yc = self.lead_center(index)
-        w = self.lead_width_of(index) or 0.0
-        return yc - w / 2, yc + w / 2
-
-    def _check_lead_overlap(self) -> None:
-        n = self.n_leads
-        for i in range(n):
-            for j in range(i + 1, n):
-                if self.lead_side(i) != self.lead_side(j):
-                    continue
-                lo_i, hi_i = self._lead_y_range(i)
-                lo_j, hi_j = self._lead_y_range(j)
-                if min(hi_i, hi_j) > max(lo_i, lo_j):
-                    side = "left" if self.lead_side(i) < 0 else "right"
-                    raise ParameterError(
-                        "leads",
-                        [round(s.angle, 6) for s in self.leads],
-                        f"leads {i} and {j} on the {side} side overlap (strips y in "
-                        f"[{lo_i:.4g}, {hi_i:.4g}] and [{lo_j:.4g}, {hi_j:.4g}] m); allowed: "
-                        "strips on the same side separated in y, i.e. |y_i - y_j| >= "
-                        "(w_i + w_j)/2 with y = r sin(angle) (move an angle or narrow a lead)",
-                    )
-
-    def _check_distinct_chain_leads(self) -> None:
-        angles = [s.angle % _TWO_PI for s in self.leads]
-        for i in range(len(angles)):
-            for j in range(i + 1, len(angles)):
-                d = abs(math.remainder(angles[i] - angles[j], _TWO_PI))
-                if d < 1e-9:
-                    raise ParameterError(
-                        "leads",
-                        [round(a, 6) for a in angles],
-                        f"leads {i} and {j} attach at the same angle; allowed: distinct angles "
-                        "(at least one lattice site apart)",
-                    )
-
     def lead_outlines(self, length_factor: float = 0.6) -> list[dict[str, Any]]:
         """Outline of every lead for drawing the device (m).
 
@@ -450,32 +324,7 @@ class RingGeometry:
         the attachment point on the centre line, and ``polygon`` (4, 2): the horizontal strip
         from the attachment point out to ``|x| = outer_extent * (1 + length_factor)``.
         """
-        out = []
-        x_far = self.outer_extent * (1.0 + float(length_factor))
-        for idx, spec in enumerate(self.leads):
-            side = self.lead_side(idx)
-            yc = self.lead_center(idx)
-            x0 = float(self._centreline_point(np.array([spec.angle]))[0, 0])
-            w = spec.width or 0.0
-            poly = np.array(
-                [
-                    [x0, yc - w / 2],
-                    [side * x_far, yc - w / 2],
-                    [side * x_far, yc + w / 2],
-                    [x0, yc + w / 2],
-                ]
-            )
-            out.append(
-                dict(
-                    index=idx,
-                    angle=float(spec.angle),
-                    side=side,
-                    width=float(w),
-                    attach=(x0, float(yc)),
-                    polygon=poly,
-                )
-            )
-        return out
+        return _lead_outlines(self, length_factor)
 
     # ------------------------------------------------------------------ derived sizes
     @property
@@ -660,42 +509,3 @@ class RingGeometry:
         extra = data.get("extra_leads") or ()
         data["extra_leads"] = tuple(LeadSpec.coerce(x, "extra_leads") for x in extra)
         return cls(**data)
-
-
-def _lead_names(idx: int) -> tuple[str, str]:
-    """Parameter names of the angle and width of lead ``idx`` (for error messages)."""
-    if idx < 2:
-        return f"lead_angles[{idx}]", "lead_width"
-    return f"leads[{idx}].angle", f"leads[{idx}].width"
-
-
-def _split_leads(
-    leads: Sequence[Any] | None, lead_angles: tuple[float, float], lead_width: float | None
-) -> tuple[tuple[float, float], float | None, tuple[LeadSpec, ...]]:
-    """``leads=[...]`` of a constructor -> (lead_angles, lead_width, extra_leads)."""
-    if leads is None:
-        return tuple(lead_angles), lead_width, ()
-    specs = [LeadSpec.coerce(x, f"leads[{k}]") for k, x in enumerate(leads)]
-    if not 2 <= len(specs) <= MAX_LEADS:
-        raise ParameterError("leads", len(specs), f"must be 2 to {MAX_LEADS} leads")
-    for k in (0, 1):
-        if lead_side(specs[k].angle) != (-1 if k == 0 else 1):
-            half = "left half (pi/2, 3pi/2)" if k == 0 else "right half (-pi/2, pi/2)"
-            raise ParameterError(
-                f"leads[{k}].angle",
-                specs[k].angle,
-                f"must lie in the {half}: leads 0 and 1 are the source and drain of the "
-                "two-terminal limit and define the upper/lower arms",
-                "rad",
-            )
-    w0, w1 = specs[0].width, specs[1].width
-    if w0 is not None and w1 is not None and not math.isclose(w0, w1, rel_tol=1e-12):
-        raise ParameterError(
-            "leads[1].width",
-            w1,
-            f"must equal leads[0].width = {w0:g} m (leads 0 and 1 share "
-            "lead_width; leads 2 and 3 may differ)",
-            "m",
-        )
-    width = w0 if w0 is not None else (w1 if w1 is not None else lead_width)
-    return (specs[0].angle, specs[1].angle), width, tuple(specs[2:])
