@@ -315,3 +315,216 @@ def test_no_kwant_import_anywhere_in_analysis_sources():
     code = "import sys, ringkit.analysis.traces; print('kwant' in sys.modules)"
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+# --- issue 16: no silent wrong answers on the loader (docs/measured-data.md) -------------
+
+
+def _rows(b, v, fmt="{},{}\n"):
+    return "".join(fmt.format(x, y) for x, y in zip(b, v, strict=True))
+
+
+B10 = [round(0.01 * i, 2) for i in range(10)]
+R10 = [1000.0 + i for i in range(10)]
+
+
+@pytest.mark.parametrize(
+    ("text", "kelvin"),
+    [
+        ("0,3 K", 0.3),  # decimal comma (read as 3 K before)
+        ("3.00e-01 K", 0.3),  # scientific notation (1 K before)
+        ("1.50e+00 K", 1.5),  # (0 K before)
+        ("1e-3 K", 0.001),  # (3 K before)
+        ("300 mK", 0.3),
+        ("0.3 K (mixing chamber)", 0.3),
+    ],
+)
+def test_header_temperatures_read_exactly(tmp_path, text, kelvin):
+    p = tmp_path / "run.csv"
+    p.write_text(f"# T = {text}\nB (T),R (Ohm)\n" + _rows(B10, R10))
+    (tr,) = load_traces(p).traces
+    assert tr.temperature == kelvin  # exact: float of the written digits
+    assert f"T={kelvin:g} K" in tr.label
+
+
+def test_negative_header_temperature_refused(tmp_path):
+    p = tmp_path / "run.csv"
+    p.write_text("# T = -5 K\nB (T),R (Ohm)\n" + _rows(B10, R10))
+    with pytest.raises(TraceFormatError, match=r"run.csv, line 1: .*-5 K.*negative"):
+        load_traces(p)
+    (tr,) = load_traces(p, temperature=0.05).traces  # the option overrides the header
+    assert tr.temperature == 0.05
+
+
+def test_temperature_in_file_name_with_decimal_comma(tmp_path):
+    p = tmp_path / "ring_0,3K.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    assert load_traces(p).traces[0].temperature == 0.3  # was 3 K
+
+
+def test_malformed_first_row_of_headerless_file_is_not_a_header(tmp_path):
+    p = tmp_path / "nohead.csv"
+    p.write_text("0.001,abc\n" + _rows(B10, R10))
+    with pytest.raises(TraceFormatError, match=r"nohead.csv, line 1: cannot read 'abc'"):
+        load_traces(p, field_unit="T", signal_unit="Ohm")
+
+
+@pytest.mark.parametrize("empty", ["\t", "\t\t", ",", " , "])
+def test_empty_rows_counted_whatever_the_delimiter(tmp_path, empty):
+    d = "\t" if "\t" in empty else ","
+    p = tmp_path / "gap.txt"
+    body = _rows(B10[:5], R10[:5], "{}" + d + "{}\n") + empty + "\n"
+    body += _rows(B10[5:], R10[5:], "{}" + d + "{}\n")
+    p.write_text(f"B (T){d}R (Ohm)\n" + body)
+    res = load_traces(p)
+    assert res.report.dropped == {"empty row (no values)": 1}
+    assert res.report.examples["empty row (no values)"] == ("gap.txt:7",)
+    assert res.report.n_points == 11 and res.report.n_used == 10
+
+
+def test_no_non_finite_value_reaches_a_trace(tmp_path):
+    p = tmp_path / "huge.csv"
+    g = ["1e-3"] * 10
+    g[3] = "1e305"  # S: 1e305 / (e^2/h) overflows to inf in e^2/h
+    p.write_text("B (T),G (S)\n" + _rows(B10, g))
+    res = load_traces(p)
+    reason = "value out of range: conductance not finite after unit conversion"
+    assert res.report.dropped == {reason: 1}
+    assert res.report.examples[reason] == ("huge.csv:5",)
+    p2 = tmp_path / "tiny.csv"
+    r = ["1000"] * 10
+    r[2], r[6] = "1e-309", "5e-324"  # 1/R overflows
+    p2.write_text("B (T),R (Ohm)\n" + _rows(B10, r))
+    res2 = load_traces(p2)
+    assert res2.report.n_dropped == 2
+    for tr in (*res.traces, *res2.traces):
+        assert np.all(np.isfinite(tr.conductance)) and np.all(np.isfinite(tr.field))
+
+
+def test_duplicate_column_labels_disambiguated(tmp_path):
+    p = tmp_path / "dup.csv"
+    p.write_text("B (T),R (Ohm),R (Ohm)\n" + "".join(f"{b},{1000 + b},{2000 + b}\n" for b in B10))
+    res = load_traces(p)
+    labels = [tr.label for tr in res]
+    assert len(set(labels)) == 2, labels
+    assert res.traces[1].conductance[0] == pytest.approx(1 / (2000 * E2H), rel=1e-12)
+    with pytest.raises(ParameterError, match=r"matches 2 columns.*'R \(Ohm\)#1'.*'R \(Ohm\)#2'"):
+        load_traces(p, signal="R")
+    (only,) = load_traces(p, signal="R (Ohm)#2").traces
+    assert only.conductance[0] == pytest.approx(1 / (2000 * E2H), rel=1e-12)
+
+
+@pytest.mark.parametrize(
+    "options",
+    [
+        {"field_unit": 0},
+        {"delimiter": ""},
+        {"comment": 5},
+        {"min_points": "x"},
+        {"min_points": True},
+        {"signal_unit": ["Ohm"]},
+        {"field_unit": "Ohm"},  # a resistance unit for the field
+        {"group_rtol": "a"},
+        {"split_sweeps": "no"},
+        {"decimal": 1},
+        {"terminals": ["two"]},
+        {"temperature": -1.0},
+        {"max_bytes": 0},
+        {"field": 1.5},
+        {"delimiter": "."},
+    ],
+)
+def test_every_option_error_is_a_parameter_error(tmp_path, options):
+    p = tmp_path / "ok.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    with pytest.raises(ParameterError) as info:
+        load_traces(p, **options)
+    assert next(iter(options)) in str(info.value)
+    with pytest.raises(ParameterError, match="path"):
+        load_traces(12345)
+
+
+def test_special_files_refused_without_reading(tmp_path):
+    import os
+    import threading
+
+    with pytest.raises(TraceFormatError, match="device"):
+        load_traces("/dev/zero")
+    fifo = tmp_path / "pipe.csv"
+    os.mkfifo(fifo)
+    outcome = []
+
+    def target():
+        try:
+            load_traces(fifo)
+        except Exception as err:  # the outcome is asserted below
+            outcome.append(err)
+
+    th = threading.Thread(target=target, daemon=True)
+    th.start()
+    th.join(5.0)
+    if th.is_alive():  # unblock the reader of the old code before failing
+        fd = os.open(fifo, os.O_WRONLY | os.O_NONBLOCK)
+        os.close(fd)
+        th.join(5.0)
+    assert outcome and isinstance(outcome[0], TraceFormatError), outcome
+    assert "FIFO" in str(outcome[0])
+    big = tmp_path / "big.csv"
+    big.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    with pytest.raises(TraceFormatError, match="max_bytes"):
+        load_traces(big, max_bytes=100)
+
+
+def test_trailing_delimiters_and_comment_after_data(tmp_path):
+    p = tmp_path / "trail.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10, "{},{},\n") + "# end of sweep\n")
+    (tr,) = load_traces(p).traces
+    assert tr.field == pytest.approx(B10, abs=0)
+    assert tr.conductance == pytest.approx(1 / (np.array(R10) * E2H), rel=1e-12)
+    # header in a comment line before the data; a comment after the data must not replace it
+    p2 = tmp_path / "trail2.txt"
+    p2.write_text("# B (T)\tR (Ohm)\n" + _rows(B10, R10, "{}\t{}\t\n") + "# stopped\n")
+    (tr2,) = load_traces(p2).traces
+    assert tr2.metadata["column"] == "R (Ohm)"
+    assert tr2.conductance == pytest.approx(tr.conductance, rel=1e-12)
+
+
+def test_temperature_series_grouped_automatically():
+    """A series in one file becomes one trace per temperature, each with its temperature."""
+    t = TRUTH["ring_temperatures.csv"]
+    res = load_traces(DATA / "ring_temperatures.csv")  # no group_by given
+    assert [tr.temperature for tr in res] == pytest.approx(list(t["temperatures"]))
+    assert len({tr.label for tr in res}) == len(res.traces)
+    assert any("grouped by the temperature column" in c for c in res.report.caveats)
+    flat = load_traces(DATA / "ring_temperatures.csv", group_by=None)
+    assert all(tr.temperature is None for tr in flat)  # explicit opt-out keeps the old split
+
+
+def test_unit_option_contradicting_the_header(tmp_path):
+    p = tmp_path / "mt.csv"
+    p.write_text("B [mT],R [Ohm]\n" + _rows([10 * b for b in B10], R10))
+    with pytest.raises(ParameterError, match=r"field_unit = 'T'.*'B \[mT\]'.*1000"):
+        load_traces(p, field_unit="T")
+    with pytest.raises(ParameterError, match=r"signal_unit = 'kOhm'.*'R \[Ohm\]'"):
+        load_traces(p, signal_unit="kOhm")
+    with pytest.raises(ParameterError, match="signal_unit"):
+        load_traces(p, signal_unit="S")  # a conductance unit over a resistance column
+    res = load_traces(p, field_unit="mT")  # agreeing with the header is fine
+    assert res.traces[0].field[1] == pytest.approx(1e-4, rel=1e-12)
+    forced = load_traces(p, signal_unit="kOhm", override_units=True)
+    assert any("kOhm" in c for c in forced.report.caveats)
+
+
+def test_four_terminal_caveat_cites_a_document_in_the_repository(tmp_path):
+    import re
+
+    p = tmp_path / "fourt.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    caveat = load_traces(p, terminals="four").report.caveats[0]
+    assert "1761" in caveat and "Phys. Rev. Lett. 57" in caveat  # Buttiker 1986
+    cited = re.findall(r"docs/[\w.-]+\.md", caveat)
+    assert cited
+    root = Path(__file__).parents[1]
+    for doc in cited:
+        text = (root / doc).read_text()
+        assert "Four-terminal data" in text and "1761" in text

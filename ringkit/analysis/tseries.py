@@ -68,7 +68,8 @@ def lphi_from_series(
     Returns
     -------
     dict
-        ``points`` (T, amplitude, error, n traces), ``fit`` (values, errors, units,
+        ``lphi_ref_m``, ``lphi_ref_err_m`` (L_phi at the reference temperature and its
+        1-sigma error), ``points`` (T, amplitude, error, n traces), ``fit`` (values, errors, units,
         reduced chi2, model), ``lphi_at_points`` (L_phi and error at each T), ``path_length_m``,
         ``lphi_convention``, ``n_traces_without_temperature``.
     """
@@ -115,7 +116,11 @@ def lphi_from_series(
         p=p,
     )
     lphi, lphi_err = lphi_at(fit, t)
+    ref_name = next(k for k in fit.values if k.replace("_", "") == "lphiref")
     return {
+        "lphi_ref_m": float(fit.values[ref_name]),
+        "lphi_ref_err_m": float(fit.errors[ref_name]),
+        "reference_temperature_K": float(fit.fixed.get("reference_temperature", 1.0)),
         "points": pts,
         "fit": {
             "values": dict(fit.values),
