@@ -32,6 +32,8 @@ from ringkit.tightbinding import build_ring
 from ringkit.transport import field_sweep
 from ringkit.transport import multiterminal as mt
 from ringkit.transport.ensemble import SerialExecutor
+from ringkit.transport.sweep import ring_correlation_energy
+from ringkit.transport.thermal import thermal_weights
 
 PHI0 = constants.h / constants.e  # CODATA via scipy
 A = 10e-9
@@ -268,13 +270,24 @@ def test_two_lead_ring_limit_equals_field_sweep(mode):
     geo = RingGeometry.circular(45e-9, 85e-9, lead_angles=(math.pi + 0.2, 0.25))
     ring = build_ring(RingDevice(mat, geo, lattice_spacing=A, field_mode=mode), seed=2)
     fields = np.linspace(0, 0.4, 5) * (1.0 if mode == "uniform" else 2 * PHI0)
-    for opts in ({}, {"temperature": 0.4}, {"l_phi": 300e-9, "n_probes": 12}):
+    for opts in ({}, {"l_phi": 300e-9, "n_probes": 12}):
         ds = mt.conductance_matrix_sweep(ring, fields, energy=1.2 * T_HOP, **opts)
         ref = field_sweep(ring, fields, energy=1.2 * T_HOP, **opts).G.values
         assert np.abs(ds.G.values[:, 1, 0] + ref).max() < 1e-10
         assert np.abs(ds.G.values[:, 0, 0] - ref).max() < 1e-10
         two = mt.resistance_sweep(ds, "0,1,0,1", allow_shared=True).R.values[:, 0]
         assert np.abs(two - 1.0 / ref).max() < 1e-9 * np.abs(1 / ref).max()
+    # finite temperature: the -df/dE-weighted sum of today's G(E) on the documented grid
+    ds = mt.conductance_matrix_sweep(ring, fields, energy=1.2 * T_HOP, temperature=0.4)
+    grid = thermal_weights(
+        1.2 * T_HOP, 0.4, correlation_energy=ring_correlation_energy(ring) * ring.hopping
+    )
+    assert ds.attrs["n_energies"] == grid.n_energies > 1
+    ref = sum(
+        w * field_sweep(ring, fields, energy=e).G.values
+        for e, w in zip(grid.energies, grid.weights, strict=True)
+    )
+    assert np.abs(ds.G.values[:, 0, 0] - ref).max() < 1e-10
 
 
 @pytest.mark.parametrize("mode", ["uniform", "flux_tube"])
@@ -459,3 +472,16 @@ def test_four_terminal_ab_phase_moves_continuously_with_the_gate():
     # and its odd part in flux is a sizeable part of the trace (not phase-rigid)
     odd = 0.5 * (r - r[:, ::-1])
     assert np.abs(odd).max() > 0.1 * np.ptp(r, axis=1).max()
+
+
+def test_multiterminal_dataset_round_trips_through_netcdf(tmp_path):
+    from ringkit.transport import device_from_attrs, load_dataset, save_dataset
+
+    dev = _four_lead_device("flux_tube")
+    ring = build_ring(dev, seed=1)
+    ds = mt.conductance_matrix_sweep(ring, [0.0, 0.4 * PHI0], energy=1.3 * T_HOP)
+    res = mt.resistance_sweep(ds, ["0,1,2,3", "0,2,1,3"])
+    for d, name in ((ds, "g.nc"), (res, "r.nc")):
+        back = load_dataset(save_dataset(d, tmp_path / name))
+        assert back.identical(d)
+    assert device_from_attrs(ds.attrs) == dev
