@@ -31,13 +31,13 @@ __all__ = ["TraceFormatError", "Table", "read_table", "temperature_from_text", "
 _NAN_TOKENS = {"", "nan", "na", "n/a", "--", "null", "none"}
 _INF_TOKENS = {"inf", "+inf", "-inf", "infinity", "+infinity", "-infinity"}
 _NUMBER = {
-    ".": re.compile(r"^[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?$"),
-    ",": re.compile(r"^[+-]?(?:\d+(?:,\d*)?|,\d+)(?:[eE][+-]?\d+)?$"),
+    ".": re.compile(r"^[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$"),
+    ",": re.compile(r"^[+-]?(?:[0-9]+(?:,[0-9]*)?|,[0-9]+)(?:[eE][+-]?[0-9]+)?$"),
 }
-_NUM_TEXT = r"\d+(?:[.,]\d+)?(?:[eE][-+]?\d+)?"
+_NUM_TEXT = r"[0-9]+(?:[.,][0-9]+)?(?:[eE][-+]?[0-9]+)?"
 _TEMP_IN_NAME = re.compile(r"(?<![A-Za-z0-9.,])(" + _NUM_TEXT + r")\s*(mK|K)(?![A-Za-z])")
 _TEMP_VALUE = re.compile(
-    r"^\s*(?P<num>[-+]?(?:\d+(?:[.,]\d*)?|[.,]\d+)(?:[eE][-+]?\d+)?)\s*(?P<unit>mK|K)?"
+    r"^\s*(?P<num>[-+]?(?:[0-9]+(?:[.,][0-9]*)?|[.,][0-9]+)(?:[eE][-+]?[0-9]+)?)\s*(?P<unit>mK|K)?"
     r"(?:\s|$|[(\[;,])"
 )
 EMPTY_ROW = "empty row (no values)"
