@@ -448,6 +448,14 @@ def test_two_terminal_ab_phase_is_rigid_under_an_arm_gate():
         dist = np.abs(np.angle(np.exp(2j * ph.phase.values)))  # 0 for phases 0 or pi
         assert dist.max() < 1e-8
         assert ph.amplitude.values.max() > 1e-3  # there is an h/e component to speak of
+    # uniform field, disordered 2D four-lead ring, two-terminal R_01,01 (symmetric B grid)
+    ring = build_ring(_four_lead_device("uniform", gate=ArmGate("upper", 0.0)), seed=7)
+    fields = np.linspace(-0.4, 0.4, 41)
+    gates = np.array([0.0, 0.1, 0.2]) * T_HOP
+    ds = mt.gate_conductance_sweep(ring, gates, fields, energy=1.3 * T_HOP)
+    r = mt.resistance_sweep(ds, "0,1,0,1", allow_shared=True).R.values[..., 0]
+    ph = phase_versus_gate(gates, fields, r, ring.loop_area / PHI0)
+    assert np.abs(np.angle(np.exp(2j * ph.phase.values))).max() < 1e-8
 
 
 def test_four_terminal_ab_phase_moves_continuously_with_the_gate():

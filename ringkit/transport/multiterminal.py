@@ -184,6 +184,9 @@ def conductance_matrices(
             lattice_spacing=ring.lattice_spacing,
             params=params,
             zero_field={ring.field_param: 0.0},
+            # two leads: the default centre (as field_sweep); more leads: the ring's centre,
+            # since the interfaces of leads 0 and 1 may sit at any height
+            center=None if ring.n_leads == 2 else (0.0, 0.0),
         )
     sweeper = _sweeper(ring, e_t, params, probes)
     n_leads = ring.n_leads
