@@ -77,6 +77,8 @@ class Contacts:
             nums = list(text)
         else:
             nums = re.findall(r"\d+", str(text))
+            if len(nums) != 4 and len("".join(nums)) == 4:  # "I01V23": one digit per contact
+                nums = list("".join(nums))
         if len(nums) != 4:
             raise ParameterError(
                 "contacts",

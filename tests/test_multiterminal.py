@@ -326,6 +326,10 @@ def test_resistance_errors_name_the_parameter():
     assert err.value.name == "contacts.voltage"
     with pytest.raises(ParameterError):
         Contacts.parse("0,1,2")
+    for text in ("0,2,1,3", "0 2 1 3", "I02V13", "I0-2,V1-3", (0, 2, 1, 3)):
+        c = Contacts.parse(text)
+        assert c.current == (0, 2) and c.voltage == (1, 3) and c.label == "R_02,13"
+    assert Contacts.parse("0,2,1,3").reversed() == Contacts((1, 3), (0, 2))
     with pytest.raises(ParameterError):
         resistance_from_conductance(g, "0,1,2,7")
     # a physical case: a one-row lead is closed below E = 2t, its contact floats undefined
