@@ -203,3 +203,36 @@ def test_ensemble_average_keeps_h2e_and_averages_out_h_over_e():
     slope = np.polyfit(np.log(sizes), np.log(amp), 1)[0]
     # expected -1/2; the n = 16 point rests on 4 groups (rms error ~35 %): +-0.2
     assert slope == pytest.approx(-0.5, abs=0.2)
+
+
+def test_sweep_task_docstring_example_runs():
+    """The ``SweepTask`` docstring example (``functools.partial(build_ring, device)``, whose seed
+    is keyword-only) is executed as a doctest; it raised TypeError before (issue 11)."""
+    import doctest
+
+    from ringkit.transport.ensemble import SweepTask
+
+    finder = doctest.DocTestFinder(recurse=False)
+    runner = doctest.DocTestRunner(optionflags=doctest.ELLIPSIS)
+    tests = finder.find(SweepTask, "SweepTask", globs={"SweepTask": SweepTask})
+    assert tests and tests[0].examples
+    for t in tests:
+        runner.run(t)
+    assert runner.failures == 0 and runner.tries >= 5
+
+
+def test_workers_run_blas_single_threaded(monkeypatch):
+    """Inside a worker chunk BLAS is limited to the engine's thread count (default 1)."""
+    from threadpoolctl import threadpool_info
+
+    from ringkit.transport import ensemble
+
+    monkeypatch.delenv("RINGKIT_ENGINE_THREADS", raising=False)
+    seen = []
+
+    def task(seed):
+        seen.extend(i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas")
+        return np.zeros(1)
+
+    ensemble._run_chunk(task, [1])
+    assert seen and set(seen) == {1}

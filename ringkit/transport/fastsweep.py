@@ -40,6 +40,7 @@ from ringkit.transport._engine_linsys import (
     compute_lead_data,
 )
 from ringkit.transport._engine_model import PeierlsModel, build_peierls_model, lead_depends_on
+from ringkit.transport._engine_threads import limited
 
 __all__ = ["FieldSweeper", "kron_reduce", "BoundStateWarning"]
 
@@ -154,6 +155,7 @@ class FieldSweeper:
     >>> g = sw.transmission(np.linspace(0, 0.05, 201))           # doctest: +SKIP
     """
 
+    @limited
     def __init__(
         self,
         fsyst,
@@ -434,6 +436,7 @@ class FieldSweeper:
             raise ParameterError(self.field_param, values, "must be finite numbers (1D)")
         return arr, scalar
 
+    @limited
     def transmission(self, values, *, to_lead: int = 1, from_lead: int = 0) -> np.ndarray:
         """Coherent transmission ``T[to_lead <- from_lead]`` per field value (e^2/h per spin).
 
@@ -467,6 +470,7 @@ class FieldSweeper:
         np.fill_diagonal(tm, self._channels - off.sum(axis=0))
         return tm
 
+    @limited
     def transmission_matrix(self, values) -> np.ndarray:
         """All terminal-to-terminal transmissions ``T[i, j]`` (from j into i), e^2/h per spin.
 
@@ -488,6 +492,7 @@ class FieldSweeper:
         c[..., idx, idx] = -c.sum(axis=-2)
         return c
 
+    @limited
     def conductance(self, values, *, source: int = 0, drain: int = 1) -> np.ndarray:
         """Two-terminal conductance (e^2/h per spin) with all probes floating.
 
@@ -499,6 +504,7 @@ class FieldSweeper:
             return self.transmission(values, to_lead=drain, from_lead=source)
         return kron_reduce(self.conductance_matrix(values), source, drain)
 
+    @limited
     def smatrix(self, value: float) -> SMatrix:
         """kwant ``SMatrix`` between the real leads at one field value (all leads in and out)."""
         v = float(self._values(value)[0][0])

@@ -61,6 +61,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from ringkit._validation import ParameterError, check_choice, check_positive
+from ringkit.transport._engine_threads import limited
 from ringkit.transport._lowrank_cut import FluxCut, check_leads_flux_free, detect_flux_cut
 from ringkit.transport._lowrank_linalg import (
     Factorization,
@@ -212,6 +213,7 @@ class FluxTubeModel:
             new._lu = self._lu  # same pattern (one-orbital probes): reuse the symbolic analysis
         return new
 
+    @limited
     def local_dos(self, energy: float, flux: float = 0.0) -> np.ndarray:
         """LDOS per orbital at ``flux``, summed over the scattering states of all terminals.
 
@@ -329,6 +331,7 @@ class FluxTubeSweeper:
         Number of points solved directly so far.
     """
 
+    @limited
     def __init__(
         self,
         fsyst,
@@ -507,6 +510,7 @@ class FluxTubeSweeper:
             raise ParameterError(name, k, f"must be a terminal index in [0, {n})")
         return int(k)
 
+    @limited
     def transmission(self, fluxes, *, source: int = 0, drain: int = 1) -> np.ndarray:
         """Transmission ``T_{drain, source}`` (from ``source`` into ``drain``) at each flux.
 
@@ -531,6 +535,7 @@ class FluxTubeSweeper:
         t = self._amplitudes(f.ravel(), out_ch, in_ch)
         return (np.abs(t) ** 2).sum(axis=(1, 2)).reshape(f.shape)
 
+    @limited
     def transmission_matrix(self, fluxes) -> np.ndarray:
         """All ``T_ij`` (from terminal j into terminal i), shape ``fluxes.shape + (n, n)``.
 
@@ -565,6 +570,7 @@ class FluxTubeSweeper:
         c[..., idx, idx] = tm.sum(axis=-2)
         return c
 
+    @limited
     def conductance(self, fluxes, *, source: int = 0, drain: int = 1) -> np.ndarray:
         """Two-terminal conductance (e^2/h per spin) with every other terminal floating.
 
