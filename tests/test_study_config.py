@@ -52,8 +52,8 @@ def cfg(extra: str = "", base: str = MINIMAL):
         ("1 h/2e", "flux", sc.h / (2 * sc.e)),
         ("100 mK", "temperature", 0.1),
         ("inf", "length", math.inf),
-        (2.5e-7, "length", 2.5e-7),  # bare number = SI unit
-        (3, "temperature", 3.0),
+        (0, "temperature", 0.0),  # 0 and inf need no unit
+        (math.inf, "length", math.inf),
     ],
 )
 def test_parse_quantity_values(text, dimension, expected):
@@ -66,7 +66,10 @@ def test_parse_quantity_values(text, dimension, expected):
         ("140 mT", "length", "wrong unit, 'mT' is a magnetic field but x is a length"),
         ("1 K", "energy", "'K' is a temperature"),
         ("140 nmm", "length", "did you mean 'nm'?"),
-        ("140", "length", "a unit is missing"),
+        ("140", "length", 'x = 140 has no unit; write "140 nm"'),
+        (300, "length", 'x = 300 has no unit; write "300 nm"'),  # issue 16, point 6
+        (0.3, "temperature", 'x = 0.3 has no unit; write "0.3 K"'),
+        (-5.0, "field", 'x = -5.0 has no unit; write "-5.0 mT"'),
         ("abc", "length", "not a number with a unit"),
         (True, "length", "expected a length"),
         ([1, 2], "length", "expected a length"),

@@ -7,7 +7,10 @@ import argparse
 from ringkit.cli import UserError
 from ringkit.cli.study import add_run_options, parse_overrides, run_and_report
 
-__all__ = ["register", "run"]
+__all__ = ["register", "run", "DEFAULT_OUT"]
+
+DEFAULT_OUT = "ringkit-demo-output"
+"""Default output folder (the README and ``./bootstrap.sh demo`` use the same name)."""
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -21,7 +24,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
             "`ringkit example-config`). Resumable like `ringkit study`."
         ),
     )
-    add_run_options(p, out_default="ringkit-demo")
+    add_run_options(p, out_default=DEFAULT_OUT)
     p.set_defaults(func=run)
 
 

@@ -66,7 +66,30 @@ def add_run_options(parser: argparse.ArgumentParser, *, out_default: str | None)
         '"field.stop=50 mT" (repeatable; changing a physics value makes it another study, '
         "which needs a new --out or --restart)",
     )
-    parser.add_argument("--workers", type=int, metavar="N", help="number of local worker processes")
+    parser.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help="number of local worker processes (default: executor.workers or all cores; at "
+        "most the number of cores unless --oversubscribe)",
+    )
+    parser.add_argument(
+        "--oversubscribe",
+        action="store_true",
+        help="allow more worker processes than cores (they then compete for the cores)",
+    )
+    parser.add_argument(
+        "--yes",
+        action="store_true",
+        help="run even when the up-front estimate exceeds --confirm-above",
+    )
+    parser.add_argument(
+        "--confirm-above",
+        type=float,
+        default=30.0,
+        metavar="MINUTES",
+        help="estimated wall-clock time above which --yes is required (default: 30)",
+    )
     parser.add_argument(
         "--restart",
         action="store_true",
@@ -94,10 +117,12 @@ def parse_overrides(items: list[str]) -> dict[str, Any]:
 def run_and_report(config: Any, args: argparse.Namespace) -> int:
     """Run ``config`` into ``args.out`` and print where the results are."""
     from ringkit.study.checkpoint import CheckpointMismatch
-    from ringkit.study.runner import UnitFailed, run_study
+    from ringkit.study.cost import CostError, check_workers_option
+    from ringkit.study.runner import OutputWriteError, UnitFailed, run_study
 
-    if args.workers is not None and args.workers < 1:
-        raise UserError(f"--workers = {args.workers}: must be >= 1")
+    check_workers_option(args.workers)
+    if not args.confirm_above >= 0:  # also refuses nan
+        raise UserError(f"--confirm-above = {args.confirm_above}: must be >= 0 minutes")
     echo = None if args.quiet else (lambda msg: print(f"ringkit: {msg}", file=sys.stderr))
     out = Path(args.out)
     if out.exists() and not out.is_dir():
@@ -110,8 +135,11 @@ def run_and_report(config: Any, args: argparse.Namespace) -> int:
             restart=args.restart,
             workers=args.workers,
             echo=echo,
+            yes=args.yes,
+            confirm_above=args.confirm_above,
+            oversubscribe=args.oversubscribe,
         )
-    except (CheckpointMismatch, UnitFailed) as err:
+    except (CheckpointMismatch, UnitFailed, CostError, OutputWriteError) as err:
         raise UserError(str(err)) from err
     if not args.quiet:
         print(

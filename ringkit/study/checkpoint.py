@@ -28,6 +28,8 @@ import os
 import shutil
 import tempfile
 import time
+import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -37,13 +39,25 @@ import numpy as np
 from ringkit._version import __version__
 from ringkit.study.plan import StudyPlan
 
-__all__ = ["UnitResult", "Checkpoint", "CheckpointMismatch", "FORMAT"]
+__all__ = [
+    "UnitResult",
+    "Checkpoint",
+    "CheckpointMismatch",
+    "BrokenUnit",
+    "FORMAT",
+    "atomic_write_bytes",
+]
 
 FORMAT = "ringkit-study-checkpoint/1"
+_MAX_MANIFEST_BYTES = 64 * 2**20
 
 
 class CheckpointMismatch(ValueError):
     """The output directory holds a checkpoint of a different study."""
+
+
+class BrokenUnit(ValueError):
+    """A unit file of the checkpoint cannot be used (the message says why, in one line)."""
 
 
 @dataclass(frozen=True)
@@ -74,10 +88,11 @@ class UnitResult:
 class Checkpoint:
     """Unit files of one study in ``out_dir/checkpoint`` (see the module docstring)."""
 
-    def __init__(self, directory: Path, fingerprint: str) -> None:
+    def __init__(self, directory: Path, fingerprint: str, shape: tuple[int, int] = (1, 1)) -> None:
         self.directory = directory
         self.units_dir = directory / "units"
         self.fingerprint = fingerprint
+        self.shape = shape  # (temperatures, field points) of a unit's conductance
 
     @classmethod
     def open(cls, out_dir: str | Path, plan: StudyPlan, *, restart: bool = False) -> Checkpoint:
@@ -104,10 +119,15 @@ class Checkpoint:
             shutil.rmtree(directory)
         if manifest_path.exists():
             try:
+                if manifest_path.stat().st_size > _MAX_MANIFEST_BYTES:
+                    raise ValueError("file too large")
                 manifest = json.loads(manifest_path.read_text())
-            except (OSError, ValueError) as err:
+                if not isinstance(manifest, dict):
+                    raise ValueError("not a JSON object")
+            except (OSError, ValueError, RecursionError) as err:
+                reason = "nested too deeply" if isinstance(err, RecursionError) else err
                 raise CheckpointMismatch(
-                    f"{manifest_path}: unreadable checkpoint manifest ({err}); "
+                    f"{manifest_path}: unreadable checkpoint manifest ({reason}); "
                     "use --restart to discard it"
                 ) from None
             if manifest.get("format") != FORMAT or manifest.get("fingerprint") != fp:
@@ -116,7 +136,7 @@ class Checkpoint:
                     f"({manifest.get('study_name', '?')!r}, other physics parameters); "
                     "choose another --out directory or pass --restart to discard it"
                 )
-        ckpt = cls(directory, fp)
+        ckpt = cls(directory, fp, (len(plan.temperatures), len(plan.field)))
         ckpt.units_dir.mkdir(parents=True, exist_ok=True)
         if not manifest_path.exists():
             manifest = {
@@ -128,15 +148,42 @@ class Checkpoint:
                 "units": list(plan.uids),
                 "study_toml": plan.config.to_toml(),
             }
-            _atomic_write_bytes(manifest_path, json.dumps(manifest, indent=1).encode())
+            atomic_write_bytes(manifest_path, json.dumps(manifest, indent=1).encode())
         return ckpt
 
     def path(self, uid: str) -> Path:
         return self.units_dir / f"{uid}.npz"
 
     def done(self) -> set[str]:
-        """Ids of the finished units on disk."""
+        """Ids of the unit files on disk (not yet checked, see :meth:`load_done`)."""
         return {p.stem for p in self.units_dir.glob("*.npz")}
+
+    def load_done(self, uids) -> tuple[dict[str, UnitResult], list[str]]:
+        """Read the finished units among ``uids``; broken files are moved aside.
+
+        Returns
+        -------
+        results : dict of uid -> UnitResult
+            Units that read back completely and belong to this study.
+        broken : list of str
+            One line per unit file that could not be used (file name and reason); the file is
+            moved to ``checkpoint/broken/`` and the unit is computed again.
+        """
+        results: dict[str, UnitResult] = {}
+        broken: list[str] = []
+        for uid in sorted(self.done() & set(uids)):
+            try:
+                results[uid] = self.load(uid)
+            except BrokenUnit as err:
+                broken.append(f"{self.path(uid)}: {err}; it will be computed again")
+                self._set_aside(uid)
+        return results, broken
+
+    def _set_aside(self, uid: str) -> None:
+        target = self.directory / "broken"
+        target.mkdir(exist_ok=True)
+        with contextlib.suppress(OSError):
+            os.replace(self.path(uid), target / f"{uid}.npz")
 
     def save(self, result: UnitResult) -> None:
         """Write one unit atomically (temporary file, fsync, rename)."""
@@ -164,22 +211,98 @@ class Checkpoint:
             raise
 
     def load(self, uid: str) -> UnitResult:
-        """Read one finished unit; refuses a file of another study."""
-        with np.load(self.path(uid), allow_pickle=False) as data:
-            meta = json.loads(str(data["meta"]))
-            g = np.array(data["conductance"])
+        """Read one finished unit, checking everything before trusting it.
+
+        The file must be a zip archive with exactly the two members written by :meth:`save`:
+        ``conductance`` (float64, shape ``(temperatures, field points)`` of this study) and
+        ``meta`` (a JSON text with this study's fingerprint and the unit id). Headers are read
+        and checked before any data, so a crafted header (e.g. a 745 GiB shape) allocates
+        nothing; no pickled object is ever loaded.
+
+        Raises
+        ------
+        BrokenUnit
+            With a one-line reason (not a zip archive, a missing member, wrong shape, ...).
+        """
+        path = self.path(uid)
+        try:
+            with open(path, "rb") as fh:
+                magic = fh.read(4)
+            if magic != b"PK\x03\x04":
+                raise BrokenUnit("not a ringkit unit file (not a zip archive)")
+            with zipfile.ZipFile(path) as zf:
+                names = set(zf.namelist())
+                if names != {"conductance.npy", "meta.npy"}:
+                    raise BrokenUnit(f"unexpected members {sorted(names)[:4]}")
+                g = _read_npy(zf, "conductance.npy", "f8", self.shape)
+                text = str(_read_npy(zf, "meta.npy", "U", ())[()])
+            meta = json.loads(text)
+        except BrokenUnit:
+            raise
+        except RecursionError:
+            raise BrokenUnit("metadata nested too deeply") from None
+        except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile, zlib.error) as err:
+            raise BrokenUnit(f"unreadable ({type(err).__name__})") from None
+        if not isinstance(meta, dict):
+            raise BrokenUnit("metadata is not a JSON object")
         if meta.get("fingerprint") != self.fingerprint or meta.get("uid") != uid:
-            raise CheckpointMismatch(f"{self.path(uid)} belongs to another study; use --restart")
+            raise BrokenUnit("belongs to another study or unit")
+        n_e = meta.get("n_energies")
+        if not (
+            isinstance(n_e, list)
+            and len(n_e) == self.shape[0]
+            and all(isinstance(n, int) and not isinstance(n, bool) and n > 0 for n in n_e)
+            and isinstance(meta.get("elapsed"), int | float)
+            and isinstance(meta.get("info", {}), dict)
+        ):
+            raise BrokenUnit("metadata incomplete")
         return UnitResult(
             uid=uid,
             conductance=g,
-            n_energies=tuple(meta["n_energies"]),
+            n_energies=tuple(n_e),
             elapsed=float(meta["elapsed"]),
             info=meta.get("info", {}),
         )
 
 
-def _atomic_write_bytes(path: Path, data: bytes) -> None:
+_MAX_META_CHARS = 1_000_000
+
+
+def _read_npy(zf: zipfile.ZipFile, name: str, dtype: str, shape: tuple[int, ...]) -> np.ndarray:
+    """One ``.npy`` member with a checked header (kind/dtype and shape) before its data."""
+    fmt = np.lib.format
+    with zf.open(name) as fh:
+        version = fmt.read_magic(fh)
+        if version == (1, 0):
+            shp, fortran, dt = fmt.read_array_header_1_0(fh)
+        elif version == (2, 0):
+            shp, fortran, dt = fmt.read_array_header_2_0(fh)
+        else:
+            raise BrokenUnit(f"{name}: unsupported array format {version}")
+        if dt.hasobject:
+            raise BrokenUnit(f"{name}: holds Python objects (never loaded)")
+        if dtype == "U":
+            ok = dt.kind == "U" and shp == () and dt.itemsize <= 4 * _MAX_META_CHARS
+        else:
+            ok = dt == np.dtype(dtype) and tuple(shp) == tuple(shape) and not fortran
+        if not ok:
+            raise BrokenUnit(
+                f"{name}: array {dt.str} {tuple(shp)} instead of the expected "
+                f"{dtype} {tuple(shape)}"
+            )
+        size = dt.itemsize * int(np.prod(shp, dtype=np.int64))
+        data = fh.read(size + 1)
+    if len(data) != size:
+        raise BrokenUnit(f"{name}: truncated or too long")
+    return np.frombuffer(data, dtype=dt).reshape(shp).copy()
+
+
+def atomic_write_bytes(path: Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically (temporary file beside it, fsync, rename).
+
+    On any error (e.g. a full disk, ``OSError(ENOSPC)``) the temporary file is removed and the
+    error propagates; an existing ``path`` is left untouched.
+    """
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
     try:
         with os.fdopen(fd, "wb") as fh:

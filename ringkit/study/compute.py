@@ -1,30 +1,55 @@
 """Physics of one work unit: device -> tight-binding ring -> G(B) at every temperature.
 
 A unit (one disorder realization, Fermi energy, gate potential and dephasing length) builds the
-ring with :func:`ringkit.tightbinding.build_ring` (cached per worker process, so units of the
-same realization share the build; the gate is a kwant parameter), attaches floating dephasing
-probes for a finite L_phi (:func:`ringkit.transport.probes.attach_probes`) and sweeps the field
-with the engine's :class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
-:class:`~ringkit.transport.lowrank.FluxTubeModel`). Temperatures are thermal averages on the
-energy grid of :mod:`ringkit.transport.thermal`; energies shared by several temperatures are
-computed once. The result of a unit does not depend on which process computes it or on what
-that process computed before (tested bit for bit).
+ring with :func:`ringkit.tightbinding.build_ring` and sweeps the field with the engine's
+:class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
+:class:`~ringkit.transport.lowrank.FluxTubeSweeper`). Temperatures are thermal averages on the
+energy grid of :func:`ringkit.study.setup.thermal_grid`; energies shared by several
+temperatures are computed once. The result of a unit does not depend on which process computes
+it or on what that process computed before (tested bit for bit).
+
+What is reused (per worker process, :class:`_RingState`, at most two lattices kept):
+
+* the built lattice (units of one realization share it; the gate is a kwant parameter);
+* one field model per (lattice, gate): the flux-tube :class:`~ringkit.transport.lowrank.
+  FluxTubeModel` (the only evaluation of the Hamiltonian; models with probes are derived from
+  it with ``with_probes``) or the uniform-field Peierls model of the first
+  :class:`~ringkit.transport.fastsweep.FieldSweeper`;
+* the dephasing probes of (lattice, gate): the probe sites and the zero-field LDOS weights at
+  the unit's Fermi energy are computed once (:func:`ringkit.transport.probes.attach_probes`);
+  another L_phi only re-evaluates the coupling formula
+  (:func:`ringkit.transport.probes.coupling_from_lphi`).
+
+Dephasing convention: the probe coupling is mapped from L_phi **at the Fermi energy** of the
+unit and kept for every energy of the thermal window, as in
+:func:`ringkit.transport.sweep.fast_field_conductance` and the explorer (L_phi is a property of
+the sample at temperature T, not of each energy of the window). Sweepers (one sparse
+factorization each) are released after their energy, so memory stays flat over the window.
+
+BLAS threads: every unit runs with BLAS limited to ``UnitTask.blas_threads`` threads
+(threadpoolctl; default 1). The engine is a sequential MUMPS factorization plus small dense
+products for which extra threads only contend with the other workers (measured in
+benchmarks/RESULTS-study.md); one thread everywhere also makes results bit-identical on every
+executor.
 
 This module runs inside worker processes: the task payload holds plain data only.
 
 API
 ---
-UnitTask
+UnitTask, UnitEngine(state, task).conductance(energy)
+state_for(task), blas_limit(threads)
 make_tasks(plan, units) -> list of UnitTask
 compute_unit(task) -> UnitResult
+clear_cache()
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import time
 from collections import OrderedDict
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -33,7 +58,19 @@ from ringkit.study.checkpoint import UnitResult
 from ringkit.study.plan import StudyPlan, WorkUnit
 from ringkit.study.setup import make_device, thermal_grid
 
-__all__ = ["UnitTask", "make_tasks", "compute_unit"]
+__all__ = [
+    "UnitTask",
+    "UnitEngine",
+    "make_tasks",
+    "compute_unit",
+    "state_for",
+    "blas_limit",
+    "clear_cache",
+    "BLAS_THREADS",
+]
+
+BLAS_THREADS = 1
+"""BLAS threads per work unit (see the module docstring)."""
 
 
 @dataclass(frozen=True)
@@ -45,6 +82,7 @@ class UnitTask:
     field_name: str
     field: np.ndarray
     temperatures: tuple[float, ...]
+    blas_threads: int = BLAS_THREADS
 
 
 def make_tasks(plan: StudyPlan, units: list[WorkUnit]) -> list[UnitTask]:
@@ -62,46 +100,35 @@ def make_tasks(plan: StudyPlan, units: list[WorkUnit]) -> list[UnitTask]:
     ]
 
 
-# Per-process cache of built rings: units of one realization reuse the lattice.
-_CACHE: OrderedDict[str, Any] = OrderedDict()
+@dataclass
+class _RingState:
+    """A built lattice and what is reused with it (field models, probe weights)."""
+
+    ring: Any
+    models: OrderedDict = field(default_factory=OrderedDict)  # gate -> field model
+    probes: OrderedDict = field(default_factory=OrderedDict)  # gate -> DephasingProbes at E_F
+
+
+# Per-process cache of built lattices: units of one realization reuse the lattice.
+_CACHE: OrderedDict[str, _RingState] = OrderedDict()
 _CACHE_SIZE = 2
+_PER_RING = 2  # field models / probe sets kept per lattice (gate values)
 
 
-def _cached(key: str, make):
-    if key in _CACHE:
-        _CACHE.move_to_end(key)
-        return _CACHE[key]
+def clear_cache() -> None:
+    """Forget the lattices, models and probes kept by this process."""
+    _CACHE.clear()
+
+
+def _lru(cache: OrderedDict, key, make, size: int):
+    if key in cache:
+        cache.move_to_end(key)
+        return cache[key]
     value = make()
-    _CACHE[key] = value
-    while len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
+    cache[key] = value
+    while len(cache) > size:
+        cache.popitem(last=False)
     return value
-
-
-def _probes(ring, dephasing_length: float, energy_lattice: float, n_probes: int, params: dict):
-    """Floating dephasing probes for ``dephasing_length`` in m (None when coherent).
-
-    The coupling is rounded to 8 significant digits: the engine's mapping uses kwant's LDOS,
-    which varies in the last bits between identical calls (seen with kwant 1.5.0 and MUMPS
-    5.5), and a study must give bit-identical numbers on every executor and after a resume.
-    8 digits are far below the precision of the L_phi calibration.
-    """
-    if math.isinf(dephasing_length):
-        return None
-    from ringkit.transport.probes import attach_probes
-
-    probes = attach_probes(
-        ring.fsyst,
-        l_phi=dephasing_length,
-        energy=energy_lattice,
-        n_probes=n_probes,
-        lattice_spacing=ring.lattice_spacing,
-        params=params,
-        zero_field={ring.field_param: 0.0},
-    )
-    eta = np.asarray(probes.eta, dtype=float)
-    rounded = np.array([float(f"{x:.8g}") for x in eta.ravel()]).reshape(eta.shape)
-    return probes.with_eta(rounded if rounded.ndim else float(rounded))
 
 
 def _device_key(physics: dict[str, dict[str, Any]], unit: WorkUnit) -> str:
@@ -113,8 +140,8 @@ def _device_key(physics: dict[str, dict[str, Any]], unit: WorkUnit) -> str:
     return json.dumps([keep, extra], sort_keys=True, default=repr)
 
 
-def _ring_for(task: UnitTask):
-    """Built ring of the unit (cached per process; the gate is a kwant parameter)."""
+def state_for(task: UnitTask) -> _RingState:
+    """Built lattice of the unit and its reusable pieces (cached per process)."""
     import warnings
 
     from ringkit.tightbinding import build_ring
@@ -125,75 +152,160 @@ def _ring_for(task: UnitTask):
     def make():
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")  # reported once by check_setup in the parent
-            # any nonzero potential creates the gate parameter; the unit's value is set below
+            # any nonzero potential creates the gate parameter; the unit's value is set later
             device = make_device(task.physics, u.fermi_energy, 1.0 if gated else 0.0)
-        return build_ring(device, seed=u.seed)
+        return _RingState(build_ring(device, seed=u.seed))
 
-    return _cached(_device_key(task.physics, u), make)
+    return _lru(_CACHE, _device_key(task.physics, u), make, _CACHE_SIZE)
+
+
+def _round8(eta) -> Any:
+    """Coupling rounded to 8 significant digits.
+
+    The LDOS behind the coupling varies in the last bits between identical calls (seen with
+    kwant 1.5.0 and MUMPS 5.5), and a study must give bit-identical numbers on every executor
+    and after a resume; 8 digits are far below the precision of the L_phi calibration.
+    """
+    arr = np.asarray(eta, dtype=float)
+    rounded = np.array([float(f"{x:.8g}") for x in arr.ravel()]).reshape(arr.shape)
+    return rounded if rounded.ndim else float(rounded)
+
+
+class UnitEngine:
+    """G(field) at any energy of one unit, reusing the lattice's model and probe weights."""
+
+    def __init__(self, state: _RingState, task: UnitTask) -> None:
+        self.state = state
+        self.ring = ring = state.ring
+        self.task = task
+        u = task.unit
+        self.full_params = ring.params(gate=u.gate_potential if "gate" in ring.params() else None)
+        self.params = {k: v for k, v in self.full_params.items() if k != ring.field_param}
+        self.gate_key = self.full_params.get("gate")
+        self.field = np.asarray(task.field, float)
+        self.flux = task.field_name == "flux"
+        self.n_probes = int(task.physics["dephasing"]["probes"])
+        self.probes = None if math.isinf(u.dephasing_length) else self._probes(u.dephasing_length)
+        self.model = self._model() if self.flux else None
+
+    # ------------------------------------------------------------------ reused pieces
+    def _base_model(self):
+        """Probe-free flux-tube model of the lattice at this gate (cached with the lattice).
+
+        In uniform mode the Peierls model of the first :class:`FieldSweeper` is cached instead
+        (:meth:`conductance`).
+        """
+
+        from ringkit.transport.lowrank import FluxTubeModel
+
+        def make():
+            return FluxTubeModel(self.ring.fsyst, params=self.params)
+
+        return _lru(self.state.models, self.gate_key, make, _PER_RING)
+
+    def _probes(self, l_phi: float):
+        """Probes of the unit: sites and weights at E_F cached, coupling for ``l_phi``."""
+        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_lphi
+
+        ring = self.ring
+        e_f = ring.fermi_energy_lattice
+
+        def make():
+            ldos = None
+            if self.flux:
+                ldos = self._base_model().local_dos(e_f)
+            return attach_probes(
+                ring.fsyst, l_phi=l_phi, energy=e_f, n_probes=self.n_probes,
+                lattice_spacing=ring.lattice_spacing, params=self.params,
+                zero_field={ring.field_param: 0.0}, ldos=ldos,
+                positions=np.asarray(ring.tags, dtype=float),
+            )  # fmt: skip
+
+        base = _lru(self.state.probes, self.gate_key, make, _PER_RING)
+        info = base.info
+        eta = coupling_from_lphi(
+            l_phi / info["lattice_spacing"], velocity=info["velocity"],
+            probe_fraction=info["probe_fraction"], diffusion_constant=info["diffusion_constant"],
+            calibration=info["calibration"],
+        )  # fmt: skip
+        return DephasingProbes(base.sites, _round8(eta), l_phi, dict(info))
+
+    def _model(self):
+        base = self._base_model()
+        return base if self.probes is None else base.with_probes(self.probes)
+
+    # ------------------------------------------------------------------ one energy
+    def conductance(self, e_lattice: float) -> np.ndarray:
+        """Spin-degenerate G (e^2/h) over the field grid at ``e_lattice`` (units of t)."""
+        from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
+
+        if self.flux:
+            from ringkit.transport.lowrank import FluxTubeSweeper
+
+            sw = FluxTubeSweeper(self.model, energy=e_lattice)
+            if self.probes is None:
+                g = sw.transmission(self.field)
+            else:
+                g = kron_reduce(sw.conductance_matrix(self.field))
+        else:
+            model = self.state.models.get(self.gate_key)
+            sw = FieldSweeper(
+                self.ring.fsyst,
+                field_param=self.ring.field_param,
+                params=self.params,
+                energy=e_lattice,
+                probes=self.probes,
+                model=model,
+            )
+            if model is None:  # the Peierls model of this gate, shared by the next energies
+                _lru(self.state.models, self.gate_key, lambda: sw.model, _PER_RING)
+            g = sw.conductance(self.field)
+        return 2.0 * np.asarray(g, float)  # spin degeneracy
+
+
+def blas_limit(threads: int):
+    """Context limiting the BLAS libraries of this process to ``threads`` threads."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - a dependency of ringkit
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=int(threads), user_api="blas")
 
 
 def compute_unit(task: UnitTask) -> UnitResult:
     """Compute ``G[temperature, field]`` (e^2/h, spin-degenerate) of one work unit.
 
     Every temperature's thermal average uses the energies of
-    :func:`ringkit.transport.thermal.thermal_weights`; energies shared between temperatures
-    are computed once. Finite dephasing lengths add floating voltage probes whose voltages are
+    :func:`ringkit.study.setup.thermal_grid`; energies shared between temperatures are
+    computed once. Finite dephasing lengths add floating voltage probes whose voltages are
     eliminated (Kron reduction of the conductance matrix).
     """
-    from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
+    with blas_limit(task.blas_threads):
+        return _compute(task)
 
+
+def _compute(task: UnitTask) -> UnitResult:
     t0 = time.perf_counter()
-    u = task.unit
-    ring = _ring_for(task)
-    full_params = ring.params(gate=u.gate_potential if "gate" in ring.params() else None)
-    params = {k: v for k, v in full_params.items() if k != ring.field_param}
+    state = state_for(task)
+    ring = state.ring
+    engine = UnitEngine(state, task)
     grids = [thermal_grid(ring.device, t, task.physics["thermal"]) for t in task.temperatures]
-    n_probes = task.physics["dephasing"]["probes"]
     cache: dict[float, np.ndarray] = {}
-    model = None
-    flux_models: dict[float | None, Any] = {}
-    field = np.asarray(task.field, float)
     for grid in grids:
         for e_j in grid.energies:
-            if float(e_j) in cache:
-                continue
-            e_lat = ring.to_lattice_energy(float(e_j))
-            probes = _probes(ring, u.dephasing_length, e_lat, n_probes, full_params)
-            if task.field_name == "flux":
-                from ringkit.transport.lowrank import FluxTubeModel
-
-                key = None if probes is None else float(np.mean(probes.eta))
-                if key not in flux_models:
-                    kw = (
-                        {}
-                        if probes is None
-                        else {"probe_sites": probes.sites, "probe_eta": probes.eta}
-                    )
-                    flux_models[key] = FluxTubeModel(ring.fsyst, params=params, **kw)
-                sw = flux_models[key].sweeper(e_lat)
-                if probes is None:
-                    g = sw.transmission(field)
-                else:
-                    g = kron_reduce(sw.conductance_matrix(field))
-            else:
-                sw = FieldSweeper(
-                    ring.fsyst,
-                    field_param="B",
-                    params=params,
-                    energy=e_lat,
-                    probes=probes,
-                    model=model,
-                )
-                model = sw.model
-                g = sw.conductance(field)
-            cache[float(e_j)] = 2.0 * np.asarray(g, float)  # spin degeneracy
-    out = np.empty((len(task.temperatures), field.size))
+            if float(e_j) not in cache:
+                cache[float(e_j)] = engine.conductance(ring.to_lattice_energy(float(e_j)))
+    out = np.empty((len(task.temperatures), engine.field.size))
     for i, grid in enumerate(grids):
         out[i] = sum(w * cache[float(e)] for e, w in zip(grid.energies, grid.weights, strict=True))
+    info: dict[str, Any] = {"n_sites": int(ring.n_sites), "n_energies_total": len(cache)}
+    if engine.probes is not None:
+        info["n_probes"] = int(engine.probes.n)
+        info["probe_eta_t"] = float(np.mean(engine.probes.eta))
     return UnitResult(
-        uid=u.uid,
+        uid=task.unit.uid,
         conductance=out,
         n_energies=tuple(g.n_energies for g in grids),
         elapsed=time.perf_counter() - t0,
-        info={"n_sites": int(ring.n_sites), "n_energies_total": len(cache)},
+        info=info,
     )

@@ -22,6 +22,7 @@ The commented example printed by ``ringkit example-config`` is in
 
 from __future__ import annotations
 
+import dataclasses
 import difflib
 import hashlib
 import json
@@ -72,11 +73,18 @@ class StudyConfig:
         ``None``); lists of quantities are tuples of floats in SI units.
     source : str
         Where the configuration came from (file path or ``"<string>"``).
+    written : Mapping[str, str]
+        ``{"section.key": TOML literal}`` of every key as the user wrote it (file or
+        override), for the echo in reports.
+    text : str
+        The study file as written (TOML), followed by the command-line overrides as comments.
     """
 
     sections: Mapping[str, Mapping[str, Any]]
     source: str = "<string>"
     _given: frozenset[str] = field(default=frozenset(), repr=False, compare=False)
+    written: Mapping[str, str] = field(default_factory=dict, repr=False, compare=False)
+    text: str = field(default="", repr=False, compare=False)
 
     def __getitem__(self, section: str) -> Mapping[str, Any]:
         return self.sections[section]
@@ -96,12 +104,25 @@ class StudyConfig:
         return {f"{s}.{k}": v for s, sec in self.sections.items() for k, v in sec.items()}
 
     def describe(self) -> list[tuple[str, str, str]]:
-        """Rows ``(section.key, value with unit, help)`` of every parameter, for reports."""
+        """Rows ``(section.key, value, help)`` of every parameter, for reports.
+
+        The value is what the user wrote (e.g. ``"0.5 um"``), followed by the value in the
+        report's units when that reads differently (``"0.5 um" (500 nm)``); keys that were not
+        written show ``(default) <value>`` or ``(not set)``.
+        """
         rows = []
         for sec, (_doc, keys) in SCHEMA.items():
             for name, key in keys.items():
+                dotted = f"{sec}.{name}"
                 value = _display(key, self.sections[sec][name], self.sections)
-                rows.append((f"{sec}.{name}", value, key.doc))
+                if dotted in self.written:
+                    as_written = self.written[dotted]
+                    if value != "(not set)" and _bare(value) != _bare(as_written):
+                        as_written = f"{as_written} ({value})"
+                    value = as_written
+                elif value != "(not set)" and dotted not in self._given:
+                    value = f"(default) {value}"
+                rows.append((dotted, value, key.doc))
         return rows
 
     def to_toml(self) -> str:
@@ -121,7 +142,18 @@ class StudyConfig:
         """Return a new validated config with ``{"section.key": value}`` replaced."""
         raw = _raw_from_config(self)
         _apply_overrides(raw, overrides)
-        return _validate(raw, self.source)
+        new = _validate(raw, self.source)
+        written = {**self.written, **_written_overrides(overrides)}
+        return dataclasses.replace(
+            new,
+            _given=self._given | frozenset(overrides),
+            written=written,
+            text=self.text + _override_comment(overrides),
+        )
+
+
+def _bare(text: str) -> str:
+    return "".join(ch for ch in text if ch not in '"[] ')
 
 
 def _jsonable(obj: Any) -> Any:
@@ -196,9 +228,73 @@ def parse_config(
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{source}: invalid TOML: {err}") from None
+    written = _written_lines(text)
     if overrides:
         _apply_overrides(raw, overrides)
-    return _validate(raw, source)
+        written.update(_written_overrides(overrides))
+    cfg = _validate(raw, source)
+    return dataclasses.replace(cfg, written=written, text=text + _override_comment(overrides))
+
+
+def _written_lines(text: str) -> dict[str, str]:
+    """``{"section.key": literal as written}`` for the one-line ``key = value`` entries of ``text``.
+
+    Multi-line values (long strings) are left out; a missing entry only means that the report
+    shows the value in its own units.
+    """
+    out: dict[str, str] = {}
+    section = ""
+    for line in text.splitlines():
+        stripped = line.strip()
+        if stripped.startswith("[") and stripped.endswith("]") and "=" not in stripped:
+            section = stripped.strip("[]").strip()
+            continue
+        name, sep, value = stripped.partition("=")
+        name, value = name.strip(), _strip_comment(value.strip())
+        if not sep or not section or not name or name.startswith("#"):
+            continue
+        try:
+            tomllib.loads(f"v = {value}")
+        except tomllib.TOMLDecodeError:
+            continue
+        out[f"{section}.{name}"] = value
+    return out
+
+
+def _strip_comment(value: str) -> str:
+    """``'"5 nm"  # note'`` -> ``'"5 nm"'`` (a ``#`` outside quotes starts a comment)."""
+    quote = ""
+    for i, ch in enumerate(value):
+        if quote:
+            if ch == quote:
+                quote = ""
+        elif ch in "\"'":
+            quote = ch
+        elif ch == "#":
+            return value[:i].rstrip()
+    return value
+
+
+def _written_overrides(overrides: Mapping[str, Any]) -> dict[str, str]:
+    return {k: _literal(v) for k, v in overrides.items()}
+
+
+def _override_comment(overrides: Mapping[str, Any] | None) -> str:
+    if not overrides:
+        return ""
+    lines = ["", "# overrides given on the command line (--set):"]
+    lines += [f"#   {k} = {_literal(v)}" for k, v in overrides.items()]
+    return "\n".join(lines) + "\n"
+
+
+def _literal(value: Any) -> str:
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, list | tuple):
+        return "[" + ", ".join(_literal(v) for v in value) + "]"
+    return repr(value)
 
 
 def load_config(path: str | Path, overrides: Mapping[str, Any] | None = None) -> StudyConfig:
@@ -335,7 +431,29 @@ def _quantity(key: Key, value: Any, dotted: str, field_mode: str) -> float:
         lb = "(-inf" if low is None else ("[" if key.inclusive[0] else "(") + _fmt(low, dim)
         hb = "inf)" if high is None else _fmt(high, dim) + ("]" if key.inclusive[1] else ")")
         raise ParameterError(dotted, value, f"must lie in {lb}, {hb}")
+    floor = _PHYSICAL_FLOOR[dim]
+    if v != 0 and abs(v) < floor:
+        raise ParameterError(
+            dotted,
+            value,
+            f"is below any physical scale of a ring: a nonzero value must be at least "
+            f"{format_quantity(floor, dim)} in magnitude (typo in the exponent or the unit?)",
+        )
     return v
+
+
+#: Smallest magnitude of a nonzero value per dimension (smaller ones are typos, e.g. "1e-30 nm"
+#: or 5e-324): 0.1 nm is below an atomic spacing, 1 neV below any resolvable energy scale,
+#: 1 uK below any cryostat, 1 nT below the remanence of any magnet (common practice).
+_PHYSICAL_FLOOR = {
+    "length": 1e-10,
+    "energy": 1e-9 * DIMENSIONS["energy"][1]["eV"],
+    "temperature": 1e-6,
+    "field": 1e-9,
+    "flux": 1e-9 * DIMENSIONS["flux"][1]["h/e"],
+    "density": 1e8,  # 1e4 cm^-2
+    "mobility": 1e-8,  # 1e-4 cm^2/Vs
+}
 
 
 _PHI0 = DIMENSIONS["flux"][1]["h/e"]

@@ -1,9 +1,11 @@
 """Physical quantities written as text in study files: ``"250 nm"``, ``"-20 mT"``, ``"1.5 K"``.
 
-A study file may give every dimensional value either as a bare number in the SI base unit of
-its dimension (metres, tesla, kelvin, joules, ...) or as a string ``"<number> <unit>"``.
-:func:`parse_quantity` turns both into a float in SI units and rejects a unit of the wrong
-dimension with a message that lists the units that are allowed.
+A study file gives every dimensional value as a string ``"<number> <unit>"``.
+:func:`parse_quantity` turns it into a float in SI units and rejects a unit of the wrong
+dimension with a message that lists the units that are allowed. A bare number (``radius =
+300``) is an error that says which unit to write (``'radius = 300 has no unit; write "300
+nm"'``): reading it in SI units would make a 300 nm ring 300 m wide. Only ``0`` and ``"inf"``
+may be written without a unit (they mean the same in every unit).
 
 API
 ---
@@ -27,6 +29,7 @@ from ringkit import units as _u
 
 __all__ = [
     "DIMENSIONS",
+    "SUGGESTED_UNIT",
     "QuantityError",
     "parse_quantity",
     "format_quantity",
@@ -109,9 +112,9 @@ def parse_quantity(value: object, dimension: str, *, name: str) -> float:
 
     Parameters
     ----------
-    value : float, int or str
-        A bare number (taken to be in the SI unit of the dimension) or ``"<number> <unit>"``,
-        e.g. ``"250 nm"``, ``"1e11 cm^-2"``, ``"-5 h/e"``, ``"inf"``.
+    value : str, or the numbers 0 and inf
+        ``"<number> <unit>"``, e.g. ``"250 nm"``, ``"1e11 cm^-2"``, ``"-5 h/e"``, ``"inf"``.
+        Other bare numbers are refused (:data:`SUGGESTED_UNIT` names the unit to write).
     dimension : str
         One of :data:`DIMENSIONS`.
     name : str
@@ -127,15 +130,20 @@ def parse_quantity(value: object, dimension: str, *, name: str) -> float:
     QuantityError
         If the text is not a number with a unit, or the unit belongs to another dimension.
     """
-    si_unit, table = DIMENSIONS[dimension]
+    table = DIMENSIONS[dimension][1]
     if isinstance(value, bool):
         raise QuantityError(f"{name} = {value!r}: expected {_DIMENSION_WORDS[dimension]}")
     if isinstance(value, int | float):
-        return float(value)
+        number = float(value)
+        if number == 0 or math.isinf(number):
+            return number
+        if math.isnan(number):
+            raise QuantityError(f"{name} = nan: not a number; write a value with a unit")
+        raise QuantityError(_no_unit_message(name, value, dimension))
     if not isinstance(value, str):
         raise QuantityError(
-            f"{name} = {value!r}: expected {_DIMENSION_WORDS[dimension]} as a number in "
-            f'{si_unit} or a string like "1.5 {_example_unit(dimension)}"'
+            f"{name} = {value!r}: expected {_DIMENSION_WORDS[dimension]} as a string like "
+            f'"1.5 {_example_unit(dimension)}"'
         )
     m = _QUANTITY_RE.match(value)
     if not m:
@@ -146,12 +154,9 @@ def parse_quantity(value: object, dimension: str, *, name: str) -> float:
     number = float(m.group("num"))
     unit = m.group("unit")
     if unit == "":
-        if math.isinf(number):
+        if math.isinf(number) or number == 0:
             return number
-        raise QuantityError(
-            f"{name} = {value!r}: a unit is missing (allowed units: {_unit_list(dimension)}; "
-            f"a bare number without quotes is read in {si_unit})"
-        )
+        raise QuantityError(_no_unit_message(name, value, dimension))
     if unit in table:
         return number * table[unit]
     owner = _unit_owner(unit)
@@ -168,16 +173,29 @@ def parse_quantity(value: object, dimension: str, *, name: str) -> float:
     )
 
 
+#: Unit suggested for a bare number, per dimension (the usual unit of a mesoscopic ring study).
+SUGGESTED_UNIT = {
+    "length": "nm",
+    "field": "mT",
+    "flux": "h/e",
+    "temperature": "K",
+    "energy": "meV",
+    "density": "cm^-2",
+    "mobility": "cm^2/Vs",
+}
+
+
+def _no_unit_message(name: str, value: object, dimension: str) -> str:
+    text = value.strip() if isinstance(value, str) else repr(value)
+    unit = SUGGESTED_UNIT[dimension]
+    return (
+        f'{name} = {text} has no unit; write "{text} {unit}" '
+        f"(units of {_DIMENSION_WORDS[dimension]}: {_unit_list(dimension)})"
+    )
+
+
 def _example_unit(dimension: str) -> str:
-    return {
-        "length": "um",
-        "field": "mT",
-        "flux": "h/e",
-        "temperature": "K",
-        "energy": "meV",
-        "density": "cm^-2",
-        "mobility": "cm^2/Vs",
-    }[dimension]
+    return SUGGESTED_UNIT[dimension]
 
 
 _PREFERRED = {

@@ -25,6 +25,7 @@ write_outputs(plan, results, out_dir, *, setup) -> dict of name -> Path
 from __future__ import annotations
 
 import html
+import io
 import json
 import math
 import time
@@ -36,8 +37,9 @@ from typing import Any
 import numpy as np
 
 from ringkit._version import __version__
-from ringkit.study.analyse import analyse_dataset
+from ringkit.study.analyse import analyse_dataset, reference_area
 from ringkit.study.checkpoint import UnitResult
+from ringkit.study.checkpoint import atomic_write_bytes as _write_file
 from ringkit.study.plan import StudyPlan
 from ringkit.study.quantities import format_quantity
 from ringkit.study.schema import SCHEMA
@@ -184,6 +186,7 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
             "created": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
             "study_fingerprint": plan.config.fingerprint,
             "study_toml": plan.config.to_toml(),
+            "study_text_as_written": plan.config.text,
             "conventions": "SI units; conductance in e^2/h; B along +z; carriers electrons",
         }
     )
@@ -205,17 +208,22 @@ def _json_number(v: Any) -> Any:
     return v
 
 
-def _save_netcdf(ds, path: Path) -> None:
-    try:
-        from ringkit.transport.dataset import save_dataset
-    except ImportError:  # core I/O not available: plain xarray, same engine
-        save_dataset = None
-    tmp = path.with_name(f".{path.name}.tmp")
-    if save_dataset is not None:
-        save_dataset(ds, tmp)
-    else:
-        ds.to_netcdf(tmp, engine="h5netcdf")
-    tmp.replace(path)
+LAB_CAUTION = (
+    "Laboratory caution: cryostats, cryogens and superconducting magnets are hazardous; "
+    "follow your local safety rules and work with qualified staff."
+)
+
+
+def _netcdf_bytes(ds) -> bytes:
+    """The netCDF4 (HDF5, h5netcdf engine) file of ``ds`` built in memory.
+
+    The HDF5 library then never writes to the disk itself: a full disk surfaces as a plain
+    ``OSError`` from the atomic writer, which removes its temporary file (HDF5 crashed the
+    process when it wrote the file directly).
+    """
+    buf = io.BytesIO()
+    ds.to_netcdf(buf, engine="h5netcdf")
+    return buf.getvalue()
 
 
 def write_outputs(
@@ -233,7 +241,7 @@ def write_outputs(
     ds = ds.merge(analysis)
     files: dict[str, Path] = {}
     files["results"] = out_dir / RESULTS_NAME
-    _save_netcdf(ds, files["results"])
+    _write_file(files["results"], _netcdf_bytes(ds))
     summary = {
         "study": plan.config["study"]["name"],
         "ringkit_version": __version__,
@@ -246,7 +254,7 @@ def write_outputs(
         "analysis_warnings": notes,
     }
     files["summary"] = out_dir / SUMMARY_NAME
-    files["summary"].write_text(json.dumps(_json_number(summary), indent=2) + "\n")
+    _write_file(files["summary"], (json.dumps(_json_number(summary), indent=2) + "\n").encode())
     figure_files: dict[str, Path] = {}
     out_cfg = plan.config["output"]
     if out_cfg["figures"]:
@@ -260,7 +268,7 @@ def write_outputs(
     files["report"] = out_dir / ("report.md" if kind == "markdown" else "report.html")
     blocks = _report_blocks(plan, ds, setup, summary, figure_files, out_dir)
     text = _render_markdown(blocks) if kind == "markdown" else _render_html(blocks, plan)
-    files["report"].write_text(text, encoding="utf-8")
+    _write_file(files["report"], text.encode("utf-8"))
     return files
 
 
@@ -285,7 +293,7 @@ def _report_blocks(
     out_dir: Path,
 ) -> list[tuple]:
     cfg = plan.config
-    b: list[tuple] = [("h1", cfg["study"]["name"])]
+    b: list[tuple] = [("h1", cfg["study"]["name"]), ("em", LAB_CAUTION)]
     if cfg["study"]["description"]:
         b.append(("p", cfg["study"]["description"]))
     b.append(
@@ -315,27 +323,33 @@ def _report_blocks(
         "h/e rms single",
         "h/2e rms single",
     ]
+    flux_mode = plan.field_name == "flux"
+    if flux_mode:  # the equivalent field period for the mean radius (issue 16, point 6)
+        head.insert(6, "period as field (pi r_m²)")
+    a_ref = reference_area(setup)
     rows = []
     for c in summary["conditions"]:
         m, s = c["ensemble_mean"], c["single_realizations"]
         period_dim = "flux" if plan.field_name == "flux" else "field"
         area = m.get("area_m2")
-        rows.append(
-            [
-                _fmt(c["fermi_energy_J"], "energy"),
-                _fmt(c["gate_potential_J"], "energy"),
-                _fmt(c["temperature_K"], "temperature"),
-                _fmt(c["dephasing_length_m"], "length"),
-                _fmt(c["mean_conductance_e2h"]),
-                _fmt(m.get("period_he_Wb" if period_dim == "flux" else "period_he_T"), period_dim),
-                "-" if area is None else f"{area * 1e12:.4g}",
-                _fmt(m.get("radius_m"), "length"),
-                _fmt(m.get("amplitude_he_rms_e2h")),
-                _fmt(m.get("amplitude_h2e_rms_e2h")),
-                _fmt(s.get("amplitude_he_rms_e2h", {}).get("mean")),
-                _fmt(s.get("amplitude_h2e_rms_e2h", {}).get("mean")),
-            ]
-        )
+        row = [
+            _fmt(c["fermi_energy_J"], "energy"),
+            _fmt(c["gate_potential_J"], "energy"),
+            _fmt(c["temperature_K"], "temperature"),
+            _fmt(c["dephasing_length_m"], "length"),
+            _fmt(c["mean_conductance_e2h"]),
+            _fmt(m.get("period_he_Wb" if period_dim == "flux" else "period_he_T"), period_dim),
+            "-" if area is None else f"{area * 1e12:.4g}",
+            _fmt(m.get("radius_m"), "length"),
+            _fmt(m.get("amplitude_he_rms_e2h")),
+            _fmt(m.get("amplitude_h2e_rms_e2h")),
+            _fmt(s.get("amplitude_he_rms_e2h", {}).get("mean")),
+            _fmt(s.get("amplitude_h2e_rms_e2h", {}).get("mean")),
+        ]
+        if flux_mode:
+            p_wb = m.get("period_he_Wb")
+            row.insert(6, "-" if p_wb is None else _fmt(p_wb / a_ref, "field"))
+        rows.append(row)
     b.append(("table", head, rows))
     if summary.get("analysis_warnings"):
         b.append(("p", "Analysis warnings: " + "; ".join(summary["analysis_warnings"])))
@@ -364,7 +378,8 @@ def _report_blocks(
     )
     b.append(("table", ["parameter", "value", "meaning"], [list(r) for r in cfg.describe()]))
     b.append(("h2", "Study file"))
-    b.append(("code", cfg.to_toml()))
+    b.append(("p", "As written (the values in SI units are in the netCDF attribute study_toml)."))
+    b.append(("code", cfg.text or cfg.to_toml()))
     return b
 
 
@@ -383,6 +398,8 @@ def _render_markdown(blocks: list[tuple]) -> str:
         elif kind == "p":
             if blk[1]:
                 out += [blk[1], ""]
+        elif kind == "em":
+            out += [f"*{blk[1]}*", ""]
         elif kind == "table":
             head, rows = blk[1], blk[2]
             out.append("| " + " | ".join(_md_cell(h) for h in head) + " |")
@@ -413,6 +430,8 @@ def _render_html(blocks: list[tuple], plan: StudyPlan) -> str:
             out.append(f"<{kind}>{e(blk[1])}</{kind}>")
         elif kind == "p" and blk[1]:
             out.append(f"<p>{e(blk[1])}</p>")
+        elif kind == "em":
+            out.append(f"<p><em>{e(blk[1])}</em></p>")
         elif kind == "table":
             out.append("<table><tr>" + "".join(f"<th>{e(str(h))}</th>" for h in blk[1]) + "</tr>")
             out += [

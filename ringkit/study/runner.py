@@ -31,20 +31,24 @@ from concurrent.futures import (
     ProcessPoolExecutor,
     as_completed,
 )
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
-from ringkit.study import compute
+from ringkit.study import compute, cost
 from ringkit.study.checkpoint import Checkpoint, CheckpointMismatch, UnitResult
 from ringkit.study.config import ConfigError, StudyConfig
 from ringkit.study.plan import StudyPlan, WorkUnit, make_plan
 from ringkit.study.setup import StudySetup, check_setup
 
-__all__ = ["run_study", "StudyOutcome", "open_executor", "UnitFailed"]
+__all__ = ["run_study", "StudyOutcome", "open_executor", "UnitFailed", "OutputWriteError"]
 
 
 class UnitFailed(RuntimeError):
     """One or more work units raised; finished units are kept in the checkpoint."""
+
+
+class OutputWriteError(RuntimeError):
+    """The final outputs could not be written; the checkpoint is complete (run again)."""
 
 
 @dataclass(frozen=True)
@@ -89,7 +93,7 @@ def open_executor(config: StudyConfig, *, workers: int | None = None) -> Iterato
     dask would otherwise merge tasks with equal arguments.
     """
     ex = config["executor"]
-    n = workers or ex["workers"] or os.cpu_count() or 1
+    n = workers or ex["workers"] or cost.cpu_count()
     kind = ex["kind"]
     if kind == "serial":
         yield None
@@ -243,19 +247,16 @@ def _execute(
     *,
     progress: bool,
     n_done: int,
+    weights: dict[str, float] | None = None,
 ) -> None:
-    """Compute ``pending`` units (in this process when ``executor`` is None), saving each."""
-    from tqdm.auto import tqdm
+    """Compute ``pending`` units (in this process when ``executor`` is None), saving each.
 
+    The progress bar counts work, not units: each unit advances it by its estimated cost
+    (``weights``, seconds from :func:`ringkit.study.cost.estimate_cost`), so the ETA holds
+    when units differ in cost (dephasing probes, more thermal energies).
+    """
     tasks = compute.make_tasks(plan, pending)
-    bar = tqdm(
-        total=len(plan.units),
-        initial=n_done,
-        desc=f"{plan.config['study']['name']}",
-        unit="unit",
-        disable=not progress,
-        dynamic_ncols=True,
-    )
+    bar = _WorkBar(plan, pending, n_done, weights, progress)
     failures: list[str] = []
     with bar:
         if executor is None:
@@ -267,7 +268,7 @@ def _execute(
                     bar.write(f"ringkit: {failures[-1]}")
                     continue
                 ckpt.save(result)
-                bar.update(1)
+                bar.done(task.unit.uid)
         else:
             _run_on(executor, plan, tasks, ckpt, bar, failures)
     if failures:
@@ -277,12 +278,52 @@ def _execute(
         )
 
 
+class _WorkBar:
+    """tqdm bar whose total is the estimated work (seconds) and whose postfix counts units."""
+
+    def __init__(self, plan, pending, n_done: int, weights, progress: bool) -> None:
+        from tqdm.auto import tqdm
+
+        w = weights or {}
+        self.weights = {u.uid: max(float(w.get(u.uid, 1.0)), 1e-3) for u in plan.units}
+        pend = {u.uid for u in pending}
+        total = sum(self.weights.values())
+        done_w = sum(v for k, v in self.weights.items() if k not in pend)
+        self.n_done, self.n_total = n_done, len(plan.units)
+        self.bar = tqdm(
+            total=total,
+            initial=done_w,
+            desc=f"{plan.config['study']['name']}",
+            disable=not progress,
+            dynamic_ncols=True,
+            bar_format="{desc}: {percentage:3.0f}%|{bar}| {postfix} [{elapsed}<{remaining}]",
+        )
+        self._postfix()
+
+    def _postfix(self) -> None:
+        self.bar.set_postfix_str(f"{self.n_done}/{self.n_total} units", refresh=False)
+
+    def done(self, uid: str) -> None:
+        self.n_done += 1
+        self._postfix()
+        self.bar.update(self.weights[uid])
+
+    def write(self, text: str) -> None:
+        self.bar.write(text)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.bar.close()
+
+
 def _run_on(
     executor: Executor,
     plan: StudyPlan,
     tasks: list[compute.UnitTask],
     ckpt: Checkpoint,
-    bar,
+    bar: _WorkBar,
     failures: list[str],
 ) -> None:
     """Submit every task to ``executor``; save results as they complete.
@@ -304,7 +345,7 @@ def _run_on(
                 continue
             ckpt.save(fut.result())
             saved.add(unit.uid)
-            bar.update(1)
+            bar.done(unit.uid)
     except BaseException:
         for fut in futures:
             fut.cancel()
@@ -324,8 +365,17 @@ def run_study(
     restart: bool = False,
     workers: int | None = None,
     echo: Callable[[str], None] | None = None,
+    yes: bool = True,
+    confirm_above: float = 30.0,
+    oversubscribe: bool = False,
 ) -> StudyOutcome:
     """Run (or resume) a study and write its outputs into ``out_dir``.
+
+    Before anything is computed: the memory, disk and worker checks of
+    :func:`ringkit.study.cost.preflight` (no lattice built), every value of the study
+    (:func:`ringkit.study.setup.check_setup`), the checkpoint (broken unit files are named and
+    recomputed) and the cost estimate of :func:`ringkit.study.cost.estimate_cost`, all reported
+    through ``echo``.
 
     Parameters
     ----------
@@ -341,9 +391,16 @@ def run_study(
     restart : bool
         Discard an existing checkpoint in ``out_dir`` first.
     workers : int, optional
-        Overrides ``executor.workers``.
+        Overrides ``executor.workers``; at most the number of cores unless ``oversubscribe``.
     echo : callable, optional
         Receives one-line status messages (e.g. ``print``).
+    yes : bool
+        Run even when the estimate exceeds ``confirm_above`` minutes (the library default;
+        the command line asks for ``--yes``).
+    confirm_above : float
+        Minutes of estimated wall-clock time above which ``yes`` is required.
+    oversubscribe : bool
+        Allow more workers than cores.
 
     Returns
     -------
@@ -351,10 +408,14 @@ def run_study(
 
     Raises
     ------
+    ringkit.study.cost.CostError
+        The study does not fit (memory, disk, workers) or needs ``yes``.
     ringkit.study.checkpoint.CheckpointMismatch
         ``out_dir`` holds a checkpoint of a different study.
     UnitFailed
         Some units raised (the others are kept).
+    OutputWriteError
+        The final outputs could not be written (the checkpoint is kept; run again).
     KeyboardInterrupt
         Propagated after cancelling pending work; finished units stay in the checkpoint.
     """
@@ -362,22 +423,33 @@ def run_study(
     say = echo or (lambda _msg: None)
     out = Path(out_dir)
     plan = make_plan(config)
-    setup = check_setup(plan)  # device errors surface before any work starts
-    for note in setup.notes:
+    opts = _RunOptions(executor, progress, restart, workers, yes, confirm_above, oversubscribe)
+    pre = cost.preflight(plan, workers=workers, oversubscribe=oversubscribe, out_dir=out)
+    setup = check_setup(plan)  # every value is checked before any work starts
+    for note in (*setup.notes, *pre.notes):
         say(note)
     out.mkdir(parents=True, exist_ok=True)
     with _exclusive(out):
-        return _run_locked(plan, setup, out, executor, progress, restart, workers, say, t0)
+        return _run_locked(plan, setup, pre, out, opts, say, t0)
+
+
+@dataclass(frozen=True)
+class _RunOptions:
+    executor: Executor | None
+    progress: bool
+    restart: bool
+    workers: int | None
+    yes: bool
+    confirm_above: float
+    oversubscribe: bool
 
 
 def _run_locked(
     plan: StudyPlan,
     setup: StudySetup,
+    pre: cost.Preflight,
     out: Path,
-    executor: Executor | None,
-    progress: bool,
-    restart: bool,
-    workers: int | None,
+    opts: _RunOptions,
     say: Callable[[str], None],
     t0: float,
 ) -> StudyOutcome:
@@ -385,27 +457,47 @@ def _run_locked(
     from ringkit.study import report
 
     config = plan.config
-    ckpt = Checkpoint.open(out, plan, restart=restart)
-    done = ckpt.done() & set(plan.uids)
-    pending = [u for u in plan.units if u.uid not in done]
+    ckpt = Checkpoint.open(out, plan, restart=opts.restart)
+    results, broken = ckpt.load_done(plan.uids)
+    for line in broken:
+        say(line)
+    pending = [u for u in plan.units if u.uid not in results]
+    n_workers = max(1, min(pre.workers, len(pending) or 1))
+    pre = replace(pre, workers=n_workers)
     say(
         f"study {config['study']['name']!r}: {len(plan.units)} work units "
-        f"({setup.n_sites} sites, {len(plan.field)} field points); "
-        f"{len(done)} from the checkpoint, {len(pending)} to compute"
+        f"({setup.n_sites:,} sites, {len(plan.field)} field points); "
+        f"{len(results)} from the checkpoint, {len(pending)} to compute"
     )
+    estimate = None
     if pending:
-        if executor is not None or len(pending) == 1:
-            _execute(plan, pending, executor, ckpt, progress=progress, n_done=len(done))
+        estimate = cost.estimate_cost(plan, pre, pending)
+    for line in cost.describe(plan, pre, estimate, len(pending)):
+        say(line)
+    if estimate is not None:
+        cost.check_confirmation(estimate, yes=opts.yes, limit_minutes=opts.confirm_above)
+        weights = estimate.unit_seconds
+        run = dict(progress=opts.progress, n_done=len(results), weights=weights)
+        if opts.executor is not None or len(pending) == 1:
+            _execute(plan, pending, opts.executor, ckpt, **run)
         else:
-            with open_executor(config, workers=workers) as ex:
-                _execute(plan, pending, ex, ckpt, progress=progress, n_done=len(done))
-    results = {uid: ckpt.load(uid) for uid in plan.uids}
-    files = report.write_outputs(plan, results, out, setup=setup)
+            with open_executor(config, workers=n_workers) as ex:
+                _execute(plan, pending, ex, ckpt, **run)
+        results.update({u.uid: ckpt.load(u.uid) for u in pending})
+    try:
+        files = report.write_outputs(plan, results, out, setup=setup)
+    except OSError as err:
+        raise OutputWriteError(
+            f"could not write the outputs into {out} ({err.strerror or err}); all "
+            f"{len(plan.units)} computed work units are kept in {out / 'checkpoint'}: free "
+            "disk space (or fix the directory) and run the same command again, which writes "
+            "the outputs without recomputing anything"
+        ) from None
     return StudyOutcome(
         out_dir=out,
         files=files,
         n_units=len(plan.units),
         n_computed=len(pending),
-        n_reused=len(done),
+        n_reused=len(plan.units) - len(pending),
         elapsed=time.perf_counter() - t0,
     )

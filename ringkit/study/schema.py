@@ -108,9 +108,8 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
                 "effective_mass",
                 "float",
                 "Effective mass in units of the free electron mass m_e.",
-                low=0.0,
+                low=1e-3,
                 high=20.0,
-                inclusive=(False, True),
                 example="0.067",
             ),
             Key(

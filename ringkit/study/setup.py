@@ -25,6 +25,12 @@ from typing import Any
 import numpy as np
 
 from ringkit._validation import ParameterError
+from ringkit.study.checks import (
+    check_born_mean_free_path,
+    check_dephasing_lengths,
+    check_mean_free_path,
+    transverse_modes,
+)
 from ringkit.study.plan import StudyPlan
 from ringkit.study.quantities import format_quantity
 from ringkit.units import ab_period
@@ -98,23 +104,69 @@ class StudySetup:
         }
 
     def describe(self) -> list[tuple[str, str]]:
-        """Rows ``(quantity, value)`` for the report."""
+        """Rows ``(quantity, value)`` for the report, in lab units with 4 significant digits."""
+        r_m = 0.5 * (self.r_in + self.r_out)
+        area = math.pi * r_m**2
         rows = [
             ("lattice sites (realization 0)", f"{self.n_sites:,}"),
-            ("lattice spacing a", format_quantity(self.lattice_spacing, "length", 6)),
-            ("hopping t = hbar^2/(2 m* a^2)", format_quantity(self.hopping, "energy", 6)),
-            ("Fermi energy of the material", format_quantity(self.fermi_energy, "energy", 6)),
-            ("r_in", format_quantity(self.r_in, "length", 6)),
-            ("r_out", format_quantity(self.r_out, "length", 6)),
+            ("lattice spacing a", format_quantity(self.lattice_spacing, "length", 4)),
+            ("hopping t = hbar^2/(2 m* a^2)", format_quantity(self.hopping, "energy", 4)),
+            ("Fermi energy of the material", format_quantity(self.fermi_energy, "energy", 4)),
+            ("r_in, r_out", f"{_len(self.r_in)}, {_len(self.r_out)}"),
             (
-                "expected h/e period (mean radius)",
-                format_quantity(self.expected_period_he, "field", 6),
+                f"h/e period as a field (mean radius r_m = {_len(r_m)}, area pi r_m^2 = "
+                f"{area * 1e12:.4g} µm²)",
+                format_quantity(self.expected_period_he, "field", 4),
             ),
+            ("h/2e period as a field", format_quantity(self.expected_period_he / 2, "field", 4)),
         ]
-        rows += [
-            (k, f"{v:.6g}" if isinstance(v, float) else str(v)) for k, v in self.details.items()
-        ]
+        for key, value in self.details.items():
+            label, text = _lab_row(key, value)
+            rows.append((label, text))
         return rows
+
+
+def _len(v: float) -> str:
+    return format_quantity(v, "length", 4)
+
+
+#: details key -> (label, formatter) of the report rows (lab units; factors are definitions:
+#: 1 nm^-1 = 1e9 m^-1, 1 cm^-2 = 1e4 m^-2, 1 cm^2/Vs = 1e-4 m^2/Vs, 1 µm^2 = 1e-12 m^2)
+_LAB = {
+    "kF [1/m]": ("Fermi wavevector kF", lambda v: f"{v * 1e-9:.4g} nm^-1"),
+    "fermi_wavelength [m]": ("Fermi wavelength", _len),
+    "fermi_velocity [m/s]": ("Fermi velocity", lambda v: f"{v / 1e5:.4g} x 10^5 m/s"),
+    "sheet_density [m^-2]": ("sheet density", lambda v: f"{v * 1e-4:.4g} cm^-2"),
+    "kF a": ("kF a", lambda v: f"{v:.3g}"),
+    "dispersion_error": ("lattice dispersion error at E_F", lambda v: f"{100 * v:.2g} %"),
+    "effective_mass [m_e]": ("effective mass", lambda v: f"{v:.4g} m_e"),
+    "transverse_modes_per_arm": (
+        "transverse modes per arm, floor(kF W/pi) of the narrowest arm",
+        str,
+    ),
+    "open_channels_per_lead": ("open channels per lead on the lattice at E_F", str),
+    "lead_sites_across": ("lead width in sites", str),
+    "disorder_strength_W [J]": (
+        "Anderson disorder strength W",
+        lambda v: format_quantity(v, "energy", 4),
+    ),
+    "correlation_energy [J]": (
+        "correlation energy E_c of the arms",
+        lambda v: format_quantity(v, "energy", 4),
+    ),
+    "thermal_energies_per_temperature": ("energies of the thermal average per temperature", str),
+    "mean_area [m^2]": ("mean area pi r_m^2", lambda v: f"{v * 1e12:.4g} µm²"),
+    "mobility [m^2/Vs]": ("mobility", lambda v: f"{v * 1e4:.4g} cm²/Vs"),
+    "elastic_mean_free_path [m]": ("elastic mean free path (material)", _len),
+    "born_mean_free_path [m]": ("Born mean free path of the lattice disorder", _len),
+}
+
+
+def _lab_row(key: str, value: Any) -> tuple[str, str]:
+    if key in _LAB:
+        label, fmt = _LAB[key]
+        return label, fmt(value)
+    return key, f"{value:.4g}" if isinstance(value, float) else str(value)
 
 
 def make_device(
@@ -173,7 +225,7 @@ _STUDY_KEYS = {
 
 
 @contextlib.contextmanager
-def _study_names():
+def study_names():
     """Re-raise device-layer ParameterErrors under the study-file key they come from."""
     try:
         yield
@@ -185,17 +237,21 @@ def _study_names():
 
 
 def check_setup(plan: StudyPlan) -> StudySetup:
-    """Check every distinct device of the plan and build the first ring, before any work.
+    """Check every value and every distinct device of the plan, and build the first ring.
 
-    The first unit's ring is built here (one lattice build) to report its real size,
-    disorder strength and Born mean free path, and, with finite dephasing lengths, to check
-    that the probes fit on the ring. Warnings (e.g. a coarse lattice) become ``notes``.
+    Everything a unit could refuse is checked here, before any work starts: every device
+    (size, Fermi energy inside the lattice band), the thermal window of every temperature
+    at every Fermi energy (inside the band, open lead channels), the elastic mean free path
+    against the lattice spacing (a shorter one is not a physical disorder strength on this
+    lattice), and every finite dephasing length against the spacing of the probes along the
+    arms (the probe model cannot resolve a shorter one). The first unit's ring is built here
+    (one lattice build) to report its real size, disorder strength, Born mean free path and
+    number of open lead channels. Warnings (e.g. a coarse lattice) become ``notes``.
 
     Raises
     ------
     ringkit.ParameterError
-        A device is invalid (Fermi energy outside the lattice band, too many sites, too many
-        probes for the ring, ...).
+        A value is out of its physical range, named by its study-file key.
     """
     import warnings
 
@@ -203,14 +259,17 @@ def check_setup(plan: StudyPlan) -> StudySetup:
     from ringkit.transport.dataset import ring_attrs
 
     physics = plan.config.physics()
-    with warnings.catch_warnings(record=True) as caught, _study_names():
+    with warnings.catch_warnings(record=True) as caught, study_names():
         warnings.simplefilter("always")
         for e in plan.fermi_energies:
             for gpot in plan.gate_potentials:
-                make_device(physics, e, gpot).check_size()
+                device = make_device(physics, e, gpot)
+                device.check_size()
+                check_mean_free_path(physics, device)
         first = plan.units[0]
         ring = build_ring(make_device(physics, first.fermi_energy, 0.0), seed=first.seed)
         ring.check_field(float(np.max(np.abs(plan.field))) if plan.field_name == "B" else 0.0)
+    check_born_mean_free_path(physics, ring)
     notes = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
     n_thermal: list[int] = []
     for e in plan.fermi_energies:
@@ -226,24 +285,34 @@ def check_setup(plan: StudyPlan) -> StudySetup:
         from ringkit.transport.probes import ring_probe_sites
 
         ring_probe_sites(ring.fsyst, physics["dephasing"]["probes"])
+        check_dephasing_lengths(plan, ring.device)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         base = make_device(physics, None, 0.0)
     mat = base.material
     geo = base.geometry
     r_m = 0.5 * (geo.r_in + geo.r_out)
+    prop, _ = ring.fsyst.leads[0].modes(energy=ring.fermi_energy_lattice, params=ring.params())
     details: dict[str, Any] = {
         "kF [1/m]": mat.fermi_wavevector,
         "fermi_wavelength [m]": mat.fermi_wavelength,
         "fermi_velocity [m/s]": mat.fermi_velocity,
+        "sheet_density [m^-2]": mat.sheet_density,
         "kF a": base.kfa,
         "dispersion_error": base.dispersion_error,
         "effective_mass [m_e]": mat.effective_mass,
+        "transverse_modes_per_arm": transverse_modes(mat.fermi_wavevector, geo.min_arm_width),
+        "open_channels_per_lead": len(prop.velocities) // 2 if len(prop.velocities) else 0,
         "lead_sites_across": int(ring.lead_sites),
         "disorder_strength_W [J]": float(ring.disorder_strength),
         "correlation_energy [J]": correlation_energy(ring.device),
         "thermal_energies_per_temperature": ", ".join(str(n) for n in n_thermal),
+        "mean_area [m^2]": math.pi * r_m**2,
     }
+    if mat.transport_mobility is not None:
+        details["mobility [m^2/Vs]"] = float(mat.transport_mobility)
+    if mat.elastic_mean_free_path is not None:
+        details["elastic_mean_free_path [m]"] = float(mat.elastic_mean_free_path)
     if ring.born_mean_free_path is not None:
         details["born_mean_free_path [m]"] = float(ring.born_mean_free_path)
     device_attrs = {f"reference_device.{k}": v for k, v in ring_attrs(ring).items()}

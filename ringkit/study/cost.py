@@ -1,0 +1,445 @@
+"""Cost before compute: time, memory and disk of a study, estimated before any unit runs.
+
+Two stages, both before the checkpoint is opened:
+
+:func:`preflight` (no lattice is built)
+    Site and memory estimate of every device of the study
+    (:meth:`ringkit.device.RingDevice.site_estimate`, plus the dense blocks of the sweeps:
+    right-hand sides of the terminal and cut columns, the channel-amplitude matrices with
+    probes), the size of the result array, the available memory and disk space, and the
+    number of workers: at most the number of cores (unless ``oversubscribe``) and at most as
+    many as fit into the available memory. A study that cannot fit is refused here
+    (:class:`CostError`), e.g. a ring estimated at 97 GB on a 23 GB machine or an 800 GB
+    result array.
+:func:`estimate_cost` (after :func:`ringkit.study.setup.check_setup`)
+    A quick timing of the first unit's engine at its Fermi energy (one factorization with
+    one and with five field points, coherent and, with finite L_phi, with the probes) gives
+    seconds per energy ``s_0 + n_fields s_1``; every unit costs its number of distinct
+    thermal energies times that. The per-unit costs also weight the progress bar, so the ETA
+    counts work rather than units.
+
+API
+---
+Preflight, preflight(plan, *, workers=None, oversubscribe=False, out_dir=None) -> Preflight
+CostEstimate, estimate_cost(plan, pre, pending) -> CostEstimate
+CostError
+available_memory() -> float or None
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import shutil
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from ringkit._validation import ParameterError
+from ringkit.study.plan import StudyPlan, WorkUnit
+
+__all__ = [
+    "CostError",
+    "Preflight",
+    "CostEstimate",
+    "preflight",
+    "estimate_cost",
+    "available_memory",
+    "unit_energy_counts",
+    "human_time",
+    "human_bytes",
+]
+
+_PARENT_BASE_BYTES = 250 * 2**20  # interpreter, xarray/matplotlib for the outputs
+_COMPLEX = 16
+_FLOAT = 8
+
+
+class CostError(ValueError):
+    """The study cannot run as given (memory, disk) or needs confirmation (``--yes``)."""
+
+
+def human_time(seconds: float) -> str:
+    """``"42 s"``, ``"3.5 min"``, ``"2.1 h"``, ``"4.0 days"``."""
+    s = float(seconds)
+    if s < 90:
+        return f"{s:.0f} s"
+    if s < 5400:
+        return f"{s / 60:.1f} min"
+    if s < 2 * 86400:
+        return f"{s / 3600:.1f} h"
+    return f"{s / 86400:.1f} days"
+
+
+def human_bytes(n: float) -> str:
+    """``"350 MB"``, ``"4.3 GB"`` (decimal units)."""
+    n = float(n)
+    for unit, f in (("TB", 1e12), ("GB", 1e9), ("MB", 1e6)):
+        if n >= f:
+            return f"{n / f:.3g} {unit}"
+    return f"{n / 1e3:.3g} kB"
+
+
+def available_memory() -> float | None:
+    """Memory available to new processes in bytes (``MemAvailable`` of /proc/meminfo)."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return float(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return float(os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
+        return None
+
+
+def cpu_count() -> int:
+    """Cores this process may use (affinity mask when available)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # pragma: no cover - non-Linux
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class Preflight:
+    """What :func:`preflight` found (no lattice built).
+
+    Attributes
+    ----------
+    n_sites : int
+        Largest site estimate over the devices of the study.
+    worker_bytes : float
+        Estimated peak memory of one worker process (bytes).
+    parent_bytes : float
+        Estimated peak memory of the main process while writing the outputs.
+    result_bytes : float
+        Size of the conductance array ``G`` (float64).
+    available_bytes : float or None
+        Available memory of the machine.
+    disk_free : float or None
+        Free space where the outputs go.
+    cores : int
+    workers : int
+        Worker processes that will be started (1 for the serial executor).
+    notes : tuple of str
+        Decisions taken (e.g. workers capped), printed before the run.
+    """
+
+    n_sites: int
+    worker_bytes: float
+    parent_bytes: float
+    result_bytes: float
+    available_bytes: float | None
+    disk_free: float | None
+    cores: int
+    workers: int
+    notes: tuple[str, ...] = ()
+
+
+def _terminal_channels(plan: StudyPlan, lead_sites: int, n_sites: int) -> int:
+    d = min(plan.config["dephasing"]["probes"], n_sites)  # more probes are refused by set-up
+    return 2 * lead_sites + (d if any(math.isfinite(x) for x in plan.dephasing_lengths) else 0)
+
+
+def _worker_bytes(plan: StudyPlan, device) -> tuple[int, float]:
+    """Site estimate and peak memory of one worker computing a unit of ``device``."""
+    est = device.site_estimate()
+    a = device.spacing
+    lead_sites = max(1, round(float(device.geometry.lead_width) / a))
+    arm_sites = max(1, round(device.geometry.max_arm_width / a))
+    nch = _terminal_channels(plan, lead_sites, est.n_sites)
+    # dense solves: right-hand sides / inverse columns for the terminals and the branch cut
+    dense = est.n_sites * (nch + 2 * arm_sites) * _COMPLEX * 2
+    # channel-amplitude and conductance matrices over the field grid (probes: all pairs)
+    n_f = len(plan.field)
+    amplitudes = n_f * nch**2 * (_COMPLEX + 3 * _FLOAT)
+    energies = 64 * n_f * _FLOAT  # G(E, field) kept for the thermal averages
+    # one lattice kept besides the one in use (units of one realization share it)
+    return est.n_sites, est.memory_bytes + est.n_sites * 590.0 + dense + amplitudes + energies
+
+
+def preflight(
+    plan: StudyPlan,
+    *,
+    workers: int | None = None,
+    oversubscribe: bool = False,
+    out_dir: str | Path | None = None,
+    n_pending: int | None = None,
+) -> Preflight:
+    """Memory, disk and worker checks of ``plan`` before any lattice is built.
+
+    Parameters
+    ----------
+    plan : StudyPlan
+    workers : int, optional
+        Requested workers (``--workers``; default ``executor.workers`` or the core count).
+    oversubscribe : bool
+        Allow more workers than cores.
+    out_dir : path, optional
+        Output directory (for the free-disk check).
+    n_pending : int, optional
+        Units still to compute (default: all); no more workers than that are started.
+
+    Raises
+    ------
+    CostError
+        One worker, or the result array, does not fit into the available memory; the
+        outputs do not fit on the disk; more workers than cores without ``oversubscribe``
+        (only when requested with ``--workers``; ``executor.workers`` is capped with a note).
+    ringkit.ParameterError
+        A device of the study is invalid (as :func:`ringkit.study.setup.check_setup`).
+    """
+    from ringkit.study.setup import make_device, study_names
+
+    notes: list[str] = []
+    n_sites, worst = 0, 0.0
+    with warnings.catch_warnings(), study_names():
+        warnings.simplefilter("ignore")  # reported by check_setup
+        for e in plan.fermi_energies:
+            for g in plan.gate_potentials:
+                device = make_device(plan.config.physics(), e, g)
+                device.check_size()
+                n, b = _worker_bytes(plan, device)
+                n_sites, worst = max(n_sites, n), max(worst, b)
+    result_bytes = float(math.prod(plan.shape)) * len(plan.temperatures) * len(plan.field) * 8
+    parent = _PARENT_BASE_BYTES + 4.0 * result_bytes  # units, G, G_mean + analysis, file
+    avail = available_memory()
+    cores = cpu_count()
+    ex = plan.config["executor"]
+    remote = ex["kind"] == "dask" and ex["address"]
+    if ex["kind"] == "serial":
+        n_workers = 1
+    else:
+        requested = workers or ex["workers"]
+        n_workers = requested or cores
+        if n_workers > cores and not remote and not oversubscribe:
+            if workers:
+                raise CostError(
+                    f"--workers {workers} is more than the {cores} cores of this machine "
+                    "(workers would only compete for them); use --workers "
+                    f"{cores} or pass --oversubscribe"
+                )
+            notes.append(
+                f"executor.workers = {requested} capped at the {cores} cores of this machine "
+                "(--oversubscribe to allow more)"
+            )
+            n_workers = cores
+    if n_pending is not None:
+        n_workers = max(1, min(n_workers, n_pending))
+    if avail is not None:
+        if parent > avail:
+            raise CostError(
+                f"the results of this study ({_shape_text(plan)} = {human_bytes(result_bytes)} "
+                f"of conductance values) need about {human_bytes(parent)} of memory to write, "
+                f"but only {human_bytes(avail)} is available; reduce field.points, the sweep "
+                "lists or ensemble.realizations"
+            )
+        if worst + parent > avail:
+            raise CostError(
+                f"one work unit needs about {human_bytes(worst)} of memory (~{n_sites:,} "
+                f"sites), but only {human_bytes(avail - parent)} is available; increase "
+                "lattice.spacing, shrink the ring or use a machine with more memory"
+            )
+        if not remote and ex["kind"] != "serial":
+            fit = max(1, int((avail - parent) // worst))
+            if fit < n_workers:
+                notes.append(
+                    f"{fit} worker(s) instead of {n_workers}: each needs about "
+                    f"{human_bytes(worst)} and {human_bytes(avail)} is available"
+                )
+                n_workers = fit
+    disk = None
+    if out_dir is not None:
+        probe = Path(out_dir).resolve()
+        while not probe.exists() and probe != probe.parent:
+            probe = probe.parent
+        try:
+            disk = float(shutil.disk_usage(probe).free)
+        except OSError:  # pragma: no cover - unusual file systems
+            disk = None
+        need = 2.2 * result_bytes  # checkpoint units + results.nc
+        if disk is not None and need > disk:
+            raise CostError(
+                f"the outputs need about {human_bytes(need)} on disk (checkpoint and "
+                f"results.nc) but {probe} has {human_bytes(disk)} free"
+            )
+    return Preflight(
+        n_sites=n_sites,
+        worker_bytes=worst,
+        parent_bytes=parent,
+        result_bytes=result_bytes,
+        available_bytes=avail,
+        disk_free=disk,
+        cores=cores,
+        workers=n_workers,
+        notes=tuple(notes),
+    )
+
+
+def _shape_text(plan: StudyPlan) -> str:
+    n_r, n_e, n_g, n_d = plan.shape
+    return (
+        f"{n_r} realizations x {n_e} x {n_g} x {len(plan.temperatures)} x {n_d} conditions x "
+        f"{len(plan.field)} field points"
+    )
+
+
+def unit_energy_counts(plan: StudyPlan) -> dict[float | None, int]:
+    """Distinct thermal energies computed by a unit, per Fermi energy of the plan."""
+    from ringkit.study.setup import make_device, thermal_grid
+
+    out: dict[float | None, int] = {}
+    physics = plan.config.physics()
+    for e in plan.fermi_energies:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            device = make_device(physics, e, 0.0)
+        energies: set[float] = set()
+        for t in plan.temperatures:
+            energies.update(float(x) for x in thermal_grid(device, t, physics["thermal"]).energies)
+        out[e] = len(energies)
+    return out
+
+
+@dataclass(frozen=True)
+class CostEstimate:
+    """Estimated compute time of the pending units (from a quick timing).
+
+    Attributes
+    ----------
+    unit_seconds : dict of uid -> float
+        Estimated seconds of every unit of the plan (weights of the progress bar).
+    pending_seconds : float
+        Sum over the units still to compute (CPU seconds).
+    wall_seconds : float
+        ``pending_seconds / workers``.
+    per_energy : dict
+        Measured ``(s_0, s_1)`` (seconds per energy, seconds per field point and energy) for
+        ``"coherent"`` and, with dephasing, ``"dephased"``.
+    n_energies : int
+        Energy evaluations of the pending units (each one sweep over the field grid).
+    timing_seconds : float
+        Time the quick timing took.
+    """
+
+    unit_seconds: dict[str, float]
+    pending_seconds: float
+    wall_seconds: float
+    per_energy: dict[str, tuple[float, float]]
+    n_energies: int
+    timing_seconds: float
+
+
+def _time_engine(plan: StudyPlan, unit: WorkUnit) -> tuple[float, float]:
+    """``(s_0, s_1)`` of one energy of ``unit`` at its Fermi energy, from 1 and 5 points."""
+    import numpy as np
+
+    from ringkit.study import compute
+
+    tasks = compute.make_tasks(plan, [unit])
+    task = tasks[0]
+    with compute.blas_limit(task.blas_threads):
+        state = compute.state_for(task)
+        engine = compute.UnitEngine(state, task)
+        e_lat = state.ring.fermi_energy_lattice
+        field = np.asarray(plan.field, float)
+        picks = field[np.linspace(0, field.size - 1, 5).round().astype(int)]
+        times = []
+        for sub in (picks[:1], picks):
+            engine.field = sub
+            t0 = time.perf_counter()
+            engine.conductance(e_lat)
+            times.append(time.perf_counter() - t0)
+    per_point = max(0.0, (times[1] - times[0]) / 4)
+    return max(times[0] - per_point, 0.0), per_point
+
+
+def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> CostEstimate:
+    """Time of the pending units from a quick timing of the first unit's engine.
+
+    Raises
+    ------
+    ringkit.ParameterError
+        The probes cannot be coupled for a dephasing length (from the engine).
+    """
+    t_start = time.perf_counter()
+    counts = unit_energy_counts(plan)
+    first = plan.units[0]
+    per_energy = {"coherent": _time_engine(plan, _with_lphi(first, math.inf))}
+    if any(math.isfinite(d) for d in plan.dephasing_lengths):
+        lphi = next(d for d in plan.dephasing_lengths if math.isfinite(d))
+        per_energy["dephased"] = _time_engine(plan, _with_lphi(first, lphi))
+    n_f = len(plan.field)
+    unit_seconds = {}
+    for u in plan.units:
+        s0, s1 = per_energy["coherent" if math.isinf(u.dephasing_length) else "dephased"]
+        unit_seconds[u.uid] = counts[u.fermi_energy] * (s0 + n_f * s1)
+    pend = sum(unit_seconds[u.uid] for u in pending)
+    n_e = sum(counts[u.fermi_energy] for u in pending)
+    wall = pend / max(1, pre.workers)
+    return CostEstimate(
+        unit_seconds=unit_seconds,
+        pending_seconds=pend,
+        wall_seconds=wall,
+        per_energy=per_energy,
+        n_energies=n_e,
+        timing_seconds=time.perf_counter() - t_start,
+    )
+
+
+def _with_lphi(unit: WorkUnit, lphi: float) -> WorkUnit:
+    from dataclasses import replace
+
+    return replace(unit, dephasing_length=lphi)
+
+
+def describe(plan: StudyPlan, pre: Preflight, cost: CostEstimate | None, n_pending: int) -> list:
+    """Lines of the up-front estimate printed by ``ringkit study``."""
+    n_probes = plan.config["dephasing"]["probes"]
+    dephased = sum(1 for u in plan.units if math.isfinite(u.dephasing_length))
+    lines = [
+        f"work: {n_pending} of {len(plan.units)} units to compute; each sweeps "
+        f"{len(plan.field)} field points at every energy of its thermal window"
+        + (f"; {dephased} units with {n_probes} dephasing probes" if dephased else ""),
+    ]
+    if cost is not None:
+        parts = []
+        for kind, (s0, s1) in cost.per_energy.items():
+            parts.append(f"{kind} {s0:.3g} s + {len(plan.field)} x {s1:.3g} s")
+        lines.append(
+            f"cost: {cost.n_energies} energy sweeps ({'; '.join(parts)} per energy, timed "
+            f"on the first unit) = {human_time(cost.pending_seconds)} of CPU, about "
+            f"{human_time(cost.wall_seconds)} on {pre.workers} worker(s)"
+        )
+    avail = "unknown" if pre.available_bytes is None else human_bytes(pre.available_bytes)
+    lines.append(
+        f"memory: ~{human_bytes(pre.worker_bytes)} per worker (~{pre.n_sites:,} sites) x "
+        f"{pre.workers} + {human_bytes(pre.parent_bytes)} for the results; available {avail}"
+    )
+    return lines
+
+
+def check_confirmation(cost: CostEstimate, *, yes: bool, limit_minutes: float) -> None:
+    """Raise :class:`CostError` when the estimate exceeds ``limit_minutes`` without ``yes``."""
+    if yes or cost.wall_seconds <= 60.0 * limit_minutes:
+        return
+    raise CostError(
+        f"this study is estimated at {human_time(cost.wall_seconds)} "
+        f"({human_time(cost.pending_seconds)} of CPU), above the {limit_minutes:g} min "
+        "confirmation limit; pass --yes to run it (finished units are checkpointed, Ctrl-C "
+        "keeps them), or reduce the study"
+    )
+
+
+def check_workers_option(workers: Any) -> None:
+    """``--workers`` must be a positive integer no larger than the schema's bound."""
+    from ringkit.study.schema import SCHEMA
+
+    high = int(SCHEMA["executor"][1]["workers"].high)
+    if workers is not None and not 1 <= workers <= high:
+        raise ParameterError("--workers", workers, f"must lie in [1, {high}]")
