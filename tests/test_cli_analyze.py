@@ -146,3 +146,229 @@ def test_console_entry_point_and_lazy_imports():
     )
     res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert res.stdout.strip() == ""
+
+
+# --- issue 16: cross-checks, lab units, temperature series (docs/measured-data.md) -------
+# Files below are INVENTED: cosines of known radius/amplitude plus seeded Gaussian noise.
+
+E2H = 1 / 25812.80745  # S; h/e^2 = R_K = 25812.80745 Ohm (CODATA, checked in test_units.py)
+OLD_KEYS = (
+    "index label direction temperature_K n_points_trace period_he_T period_he_err_T "
+    "frequency_he_per_T area_m2 area_err_m2 radius_m radius_err_m amplitude_he_e2h "
+    "amplitude_h2e_e2h amplitude_he_pp_e2h amplitude_h2e_pp_e2h relative_amplitude_he "
+    "relative_amplitude_h2e noise_he_rms_e2h noise_h2e_rms_e2h mean_conductance_e2h "
+    "peak_significance band_source bands_per_T background background_gain_he "
+    "background_gain_h2e n_points_used n_points_trimmed_background n_points_dropped notes "
+    "file n_traces n_points_file n_points_dropped_loader drop_reasons adjusted caveats "
+    "warnings figures traces"
+).split()
+
+
+def _ring_file(
+    tmp_path,
+    name="ring.csv",
+    *,
+    radius=500e-9,
+    amp=0.05,
+    g0=2.0,
+    noise=0.002,
+    span=0.2,
+    n=2001,
+    series=0.0,
+    header="B [mT],R [Ohm]",
+    seed=3,
+):
+    """INVENTED two-terminal trace: R = 1/G + series, G = g0 + amp cos + amp/5 cos(2x)."""
+    rng = np.random.default_rng(seed)
+    b = np.linspace(-span / 2, span / 2, n)
+    f = np.pi * radius**2 / 4.135667696923859e-15
+    g = g0 + amp * np.cos(2 * np.pi * f * b) + amp / 5 * np.cos(4 * np.pi * f * b)
+    g = g + rng.normal(0, noise, b.size) if noise else g
+    r = 1 / (g * E2H) + series
+    p = tmp_path / name
+    p.write_text(
+        header
+        + "\n"
+        + "".join(f"{float(x) * 1e3!r},{float(y)!r}\n" for x, y in zip(b, r, strict=True))
+    )
+    return str(p)
+
+
+def _fail(capsys, *args):
+    code = main(["analyze", *args])
+    err = capsys.readouterr().err
+    assert code == 2, err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("ringkit: error:"), err
+    return lines[0]
+
+
+def test_wrong_radii_refused_and_forced(tmp_path, capsys):
+    p = _ring_file(tmp_path)
+    msg = _fail(capsys, p, "--r-in", "270nm", "--r-out", "330nm")
+    assert "500 nm" in msg and "--r-in" in msg and "--force" in msg
+    d = _json(capsys, p, "--r-in", "270nm", "--r-out", "330nm", "--force")
+    assert {c["code"] for c in d["checks"]} >= {"peak-outside-band", "no-peak-above-noise"}
+    assert any("forced past refusal" in w for w in d["warnings"])
+    d = _json(capsys, p, "--r-in", "480nm", "--r-out", "520nm")
+    assert d["checks"] == [] and d["radius_m"] == pytest.approx(500e-9, rel=1e-3)
+
+
+def test_no_peak_above_noise_refused(tmp_path, capsys):
+    p = _ring_file(tmp_path, amp=0.0, noise=0.01)
+    assert "noise floor" in _fail(capsys, p, "--r-in", "480nm", "--r-out", "520nm")
+
+
+@pytest.mark.parametrize(
+    ("args", "needle"),
+    [
+        (["--field-unit", "T"], "'B [mT]'"),  # would give r = 16 nm
+        (["--signal-unit", "kOhm"], "'R [Ohm]'"),  # amplitudes 1000x too small
+    ],
+)
+def test_unit_options_contradicting_the_header_refused(tmp_path, capsys, args, needle):
+    p = _ring_file(tmp_path)
+    msg = _fail(capsys, p, *args)
+    assert needle in msg and "--force" in msg and "1000" in msg
+    d = _json(capsys, p, *args, "--force")
+    assert any("override_units" in c for c in d["caveats"])
+
+
+def test_series_resistance_carried_over_refused(tmp_path, capsys):
+    # R = 12906 +- 320 Ohm plus 1200 Ohm: a value kept from another device is refused or
+    # warned, the right one passes
+    p = _ring_file(tmp_path, series=1200.0)
+    msg = _fail(capsys, p, "--series-resistance", "13900")  # above part of R
+    assert "13900" in msg and "--series-resistance" in msg
+    d = _json(capsys, p, "--series-resistance", "13900", "--force")
+    assert {"series-above-resistance", "amplitude-above-mean"} <= {c["code"] for c in d["checks"]}
+    d = _json(capsys, p, "--series-resistance", "12600")  # below every R, 97 % of it
+    assert "series-dominates" in {c["code"] for c in d["checks"]}
+    d = _json(capsys, p, "--series-resistance", "1200")
+    assert d["checks"] == []
+    assert d["amplitude_he_e2h"] == pytest.approx(0.05 / np.sqrt(2), rel=0.03)
+
+
+def test_implausible_conductance_warned_and_refused(tmp_path, capsys):
+    p = _ring_file(tmp_path, g0=500.0, amp=5.0, noise=0.0)  # R = 51.6 Ohm: metal-like
+    d = _json(capsys, p)
+    assert [c["code"] for c in d["checks"]] == ["conductance-unusual"]
+    assert any("500 e^2/h" in w and "--signal-unit" in w for w in d["warnings"])
+    p = _ring_file(tmp_path, "tiny.csv", g0=2e5, amp=1e3, noise=0.0)
+    assert "implausible" in _fail(capsys, p)
+
+
+def test_radii_without_unit_name_the_unit(capsys):
+    with pytest.raises(SystemExit) as info:
+        main(["analyze", UPDOWN, "--r-in", "600", "--r-out", "660"])
+    assert info.value.code == 2
+    err = capsys.readouterr().err
+    assert "no unit" in err and "600nm" in err and "Nyquist" not in err
+
+
+def test_overlapping_bands_warned_in_short_window(tmp_path, capsys):
+    p = _ring_file(tmp_path, span=0.025, n=801, noise=0.0005)
+    d = _json(capsys, p, "--r-in", "480nm", "--r-out", "520nm")
+    assert [c["code"] for c in d["checks"]] == ["bands-overlap"]
+    assert any("h/2e amplitude includes leakage" in w for w in d["warnings"])
+
+
+def test_lab_units_and_detectability(tmp_path, capsys):
+    # G = 2 + 0.02 cos: rms dG = 0.02/sqrt(2) e^2/h -> dR = (h/e^2) dG/G^2 = 91.26 Ohm
+    # (hand-computed: 25812.807 x 0.014142 / 4); R = 12906.4 + 1000 Ohm series -> 0.656 %
+    p = _ring_file(tmp_path, amp=0.02, noise=0.0, series=1000.0)
+    args = [p, "--series-resistance", "1000", "--r-in", "480nm", "--r-out", "520nm"]
+    d = _json(capsys, *args, "--current", "10nA", "--noise", "5nV/rtHz", "--bandwidth", "1Hz")
+    dr = 25812.80745 * 0.02 / np.sqrt(2) / 4
+    assert dr == pytest.approx(91.26, rel=1e-3)
+    assert d["amplitude_he_ohm"] == pytest.approx(dr, rel=0.02)
+    assert d["mean_resistance_ohm"] == pytest.approx(25812.80745 / 2 + 1000, rel=1e-3)
+    assert d["relative_he_percent"] == pytest.approx(100 * dr / 13906.4, rel=0.02)
+    det = d["detectability"]
+    assert det["noise_rms_per_reading_V"] == pytest.approx(5e-9, rel=1e-12)
+    assert det["he"]["signal_rms_V"] == pytest.approx(10e-9 * d["amplitude_he_ohm"], rel=1e-12)
+    assert det["he"]["exceeds_noise"] and det["h2e"]["exceeds_noise"]
+    # 1 uV/rtHz: step 0.1 mT -> Nyquist 5000 1/T; h/e band ~50 1/T wide -> in-band noise
+    # ~0.1 uV vs 0.91 uV (S/N ~9); h/2e line 5x smaller in a ~80 1/T band (S/N ~1.4 < 3)
+    d = _json(capsys, *args, "--current", "10nA", "--noise", "1uV/rtHz", "--bandwidth", "1Hz")
+    assert d["detectability"]["he"]["exceeds_noise"]
+    assert not d["detectability"]["h2e"]["exceeds_noise"]
+    assert (
+        main(["analyze", *args, "--current", "10nA", "--noise", "1uV/rtHz", "--bandwidth", "1Hz"])
+        == 0
+    )
+    out = capsys.readouterr().out
+    assert "Ohm" in out and "does NOT exceed" in out
+    assert "--bandwidth" in _fail(capsys, *args, "--current", "10nA")
+
+
+def test_json_keeps_old_keys_and_adds_new(capsys):
+    d = _json(capsys, UPDOWN, "--series-resistance", "1200", "--r-in", "600nm", "--r-out", "660nm")
+    assert set(OLD_KEYS) <= set(d), set(OLD_KEYS) - set(d)
+    for key in ("checks", "amplitude_he_ohm", "relative_he_percent", "mean_resistance_ohm"):
+        assert key in d
+    assert d["temperature_K"] == pytest.approx(0.3)
+
+
+def test_temperature_series_lphi_fit(capsys):
+    t = _mk.TRUTH["ring_temperatures.csv"]
+    temps_file = str(DATA / "ring_temperatures.csv")
+    d = _json(capsys, temps_file, "--r-in", "610nm", "--r-out", "650nm")  # no --group-by
+    assert [tr["temperature_K"] for tr in d["traces"]] == pytest.approx(list(t["temperatures"]))
+    assert len({tr["label"] for tr in d["traces"]}) == 6
+    d = _json(
+        capsys,
+        temps_file,
+        "--group-by",
+        "temperature",
+        "--r-in",
+        "610nm",
+        "--r-out",
+        "650nm",
+        "--thermal",
+        "ballistic",
+        "--thermal-energy",
+        "2K",
+    )
+    s = d["lphi_series"]
+    assert [q["temperature_K"] for q in s["points"]] == pytest.approx(list(t["temperatures"]))
+    scale = s["path_length_m"] / t["path_length"]  # path-length convention of the fit
+    truth = t["lphi_1K"] * scale
+    assert abs(s["lphi_ref_m"] - truth) < 3 * s["lphi_ref_err_m"] + 0.03 * truth
+    assert s["fit"]["values"]["p"] == pytest.approx(t["p"], rel=0.05)
+    assert "lphi_convention" in s
+    assert (
+        main(
+            [
+                "analyze",
+                temps_file,
+                "--group-by",
+                "temperature",
+                "--r-in",
+                "610nm",
+                "--r-out",
+                "650nm",
+            ]
+        )
+        == 0
+    )
+    assert "L_phi(T) from 6 temperatures" in capsys.readouterr().out
+    assert "3 temperatures" in _fail(capsys, UPDOWN, "--group-by", "temperature")
+
+
+def test_non_finite_rows_reported_not_contradicted(tmp_path, capsys):
+    p = tmp_path / "huge.csv"
+    b = np.linspace(0, 0.2, 801)
+    g = 2 + 0.05 * np.cos(2 * np.pi * 190 * b)
+    rows = [f"{float(x)!r},{float(y) * E2H!r}" for x, y in zip(b, g, strict=True)]
+    rows[5] = f"{float(b[5])!r},1e305"
+    p.write_text("B (T),G (S)\n" + "\n".join(rows) + "\n")
+    d = _json(capsys, str(p))
+    assert d["drop_reasons"] == {
+        "value out of range: conductance not finite after unit conversion": 1
+    }
+    assert d["n_points_dropped_loader"] == 1 and d["n_points_file"] == 801
+
+
+def test_special_file_refused_in_one_line(capsys):
+    assert "device" in _fail(capsys, "/dev/zero")

@@ -18,6 +18,8 @@ Thresholds (common practice, stated in the messages):
 * a line outside the given radii's bands that is :data:`OUTSIDE_FACTOR` times stronger than
   anything inside them means the radii are wrong;
 * the cosine amplitude (sqrt(2) x band rms) cannot exceed the mean conductance (G >= 0);
+* a series resistance above :data:`SERIES_FRACTION` of the measured R is warned, and rows
+  with R <= R_s refuse (a value carried over from another device);
 * two-terminal ring conductances outside ``PLAUSIBLE_G`` (e^2/h) are refused and outside
   ``TYPICAL_G`` warned (semiconductor rings carry a few e^2/h; metal rings with R of 10 to
   100 Ohm reach ~2600 e^2/h);
@@ -48,6 +50,7 @@ __all__ = [
     "check_amplitude",
     "check_conductance",
     "check_bands",
+    "check_series_resistance",
     "refusals",
     "OUTSIDE_FACTOR",
     "PLAUSIBLE_G",
@@ -57,6 +60,7 @@ __all__ = [
 OUTSIDE_FACTOR = 4.0
 PLAUSIBLE_G = (1e-6, 1e5)  # e^2/h: R from 26 GOhm down to 0.26 Ohm
 TYPICAL_G = (1e-3, 100.0)  # e^2/h: R from 26 MOhm down to 258 Ohm
+SERIES_FRACTION = 0.8  # series resistance above this fraction of the measured R is warned
 
 
 @dataclass(frozen=True)
@@ -223,6 +227,45 @@ def check_conductance(result, terminals: str = "two") -> list[Finding]:
     return []
 
 
+def check_series_resistance(
+    result, series_resistance: float, n_below: int = 0, n_points: int = 0
+) -> list[Finding]:
+    """A series resistance close to the measured R (or above some of it) is suspect.
+
+    With ``G = 1/(R - R_s)`` the ring conductance changes by ``R_s/(R - R_s)`` percent per
+    percent of R_s: above :data:`SERIES_FRACTION` of R the numbers mostly measure R_s (e.g.
+    a value carried over from another device). Rows with ``R <= R_s`` (``n_below`` of
+    ``n_points``, dropped by the loader) refuse the result.
+    """
+    if not series_resistance > 0 or not result.mean_conductance > 0:
+        return []
+    r_ring = 1.0 / (result.mean_conductance * E2H)
+    frac = series_resistance / (r_ring + series_resistance)
+    fix = "check that --series-resistance belongs to this device and cooldown"
+    if n_below > 0:
+        return [
+            Finding(
+                "refuse",
+                "series-above-resistance",
+                f"{n_below} of {n_points} rows have R <= series resistance "
+                f"{series_resistance:g} Ohm: {fix}",
+                float(series_resistance),
+            )
+        ]
+    if frac > SERIES_FRACTION:
+        return [
+            Finding(
+                "warn",
+                "series-dominates",
+                f"series resistance {series_resistance:g} Ohm is {100 * frac:.3g} % of the "
+                f"measured R: G and the amplitudes change by {frac / (1 - frac):.3g} % per 1 % "
+                f"of it; {fix}",
+                float(frac),
+            )
+        ]
+    return []
+
+
 def check_bands(result) -> list[Finding]:
     """Warn when the h/e and h/2e bands are closer than the spectral resolution."""
     (lo1, hi1), (lo2, _) = result.bands[1], result.bands[2]
@@ -254,12 +297,19 @@ def check_result(
     radii: tuple[float, float] | None = None,
     terminals: str = "two",
     series_resistance: float = 0.0,
+    n_below_series: int = 0,
+    n_points: int = 0,
 ) -> list[Finding]:
-    """All cross-checks of one analysed trace (see the module docstring)."""
+    """All cross-checks of one analysed trace (see the module docstring).
+
+    ``n_below_series``/``n_points``: rows of the file the loader dropped because R was not
+    above the series resistance, and all rows.
+    """
     return [
         *check_spectrum_peak(result, radii),
         *check_noise_floor(result),
         *check_amplitude(result, series_resistance),
+        *check_series_resistance(result, series_resistance, n_below_series, n_points),
         *check_conductance(result, terminals),
         *check_bands(result),
     ]

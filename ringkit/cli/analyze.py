@@ -397,7 +397,12 @@ def run(args: argparse.Namespace) -> int:
             found = []
             if res is not None:
                 found = check_result(
-                    res, radii=radii, terminals=terminals, series_resistance=args.series_resistance
+                    res,
+                    radii=radii,
+                    terminals=terminals,
+                    series_resistance=args.series_resistance,
+                    n_below_series=loaded.report.dropped.get("resistance <= series resistance", 0),
+                    n_points=loaded.report.n_points,
                 )
                 rec["checks"] = [f.as_dict() for f in found]
                 rec["refused"] = bool(refusals(found)) and not args.force
