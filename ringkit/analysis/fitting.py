@@ -1,27 +1,31 @@
-"""Phase-coherence length from oscillation amplitudes (scipy.optimize fits with errors).
+"""Phase-coherence length ``l_phi`` from oscillation amplitudes (scipy.optimize fits with errors).
 
 Public API
 ----------
 FitResult(values, errors, covariance, ...)      fitted parameters and 1-sigma errors
 thermal_factor(temperature, kind, energy)        thermal averaging factor F_T
 fit_lphi_temperature(temperature, amplitude, *, path_length | radius, ...) -> FitResult
-fit_lphi_size(radius, amplitude, *, order=1, ...) -> FitResult
-lphi_at(fit, temperature) -> (L_phi, error)
+fit_lphi_size(radius, amplitude, *, order=1, path_length=None, ...) -> FitResult
+lphi_at(fit, temperature) -> (l_phi, error)
+UnconstrainedWarning                             the data cannot fix some parameters
+(The joint h/e + h/2e temperature fit is :func:`ringkit.analysis.fit_joint.fit_lphi_joint`.)
 
-Model (physics notes §9.2-9.3)
-------------------------------
-``A(T) = A0 F_T(T) exp(-L/L_phi(T))`` with ``L_phi(T) = L_phi,ref (T/T_ref)^-p`` and L the
-length of the interfering paths: ``L = pi r`` (one arm, h/e pair of paths, ``order=1``) or
-``2 pi r`` (circumference, AAS loop, ``order=2``). Exponential damping with path length:
-Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987) (abstract verified; reference from
-memory); ``L_phi ∝ 1/T`` in GaAs rings: Hansen et al., Phys. Rev. B 64, 045327 (2001).
+Model (``docs/physics.md``, "Amplitude damping and thermal averaging")
+-----------------------------------------------------------------------
+``A(T) = A0 F_T(T) exp(-L/l_phi(T))`` with ``l_phi(T) = l_phi_ref (T/T_ref)^-p`` and L the
+explicit length of the interfering paths, in the one convention of
+:mod:`ringkit.conventions` (``L = pi r`` for h/e, ``order=1``; ``2 pi r`` for the h/2e AAS
+loop, ``order=2``); every result states it in ``fixed["lphi_convention"]``. Exponential
+damping with path length: Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987) (abstract
+verified; reference from memory); ``l_phi ∝ 1/T`` in GaAs rings: Hansen et al., Phys. Rev. B
+64, 045327 (2001).
 
 Thermal factor F_T (documented choice, :func:`thermal_factor`):
 
 * ``"none"``: 1 (thermal averaging negligible or already divided out);
 * ``"ballistic"``: ``x/sinh(x)``, ``x = pi k_B T / E_c``, the exact average of an
   interference term whose phase changes with energy as ``E/E_c`` (``E_c = hbar/tau``,
-  tau the travel-time difference of the paths; physics notes §5.4);
+  tau the travel-time difference of the paths; ``docs/physics.md``, "Thermal averaging");
 * ``"diffusive"``: ``min(1, sqrt(E_c/(k_B T)))`` with ``E_c = hbar D/L^2`` the Thouless
   energy: ``k_B T/E_c`` independent energy strips average a random-phase signal as
   ``T^(-1/2)`` (observed in Au rings, Washburn et al. 1985; form from memory).
@@ -29,6 +33,17 @@ Thermal factor F_T (documented choice, :func:`thermal_factor`):
 The fit is made on ``ln A`` (relative errors ``sigma_A/A``) with ``scipy.optimize.curve_fit``;
 errors are the square roots of the covariance diagonal. Without ``amplitude_err`` the
 covariance is scaled by the reduced chi-square (``absolute_sigma=False``).
+
+Unconstrained parameters. One harmonic cannot separate thermal averaging from dephasing:
+with the energy scale free, ``x/sinh x`` and ``l_phi ∝ 1/T`` both give ``exp(-c T)``, and a
+pure power law ``T^-1/2`` (thermal averaging alone) is fitted by ``exp(-c T^p)`` with
+``p -> 0``. Linearised errors are then far too small. A parameter is reported as
+*unconstrained* (value NaN, error inf, best-fit number kept in ``estimates``, an
+:class:`UnconstrainedWarning` naming it) when its 1-sigma error exceeds
+:data:`MAX_LOG_ERROR` in ``ln`` for scale parameters (a factor 1.65), or ``0.5 min(|p|, 1)``
+for ``p`` (p not distinguishable from 0, or from its neighbours 1/2 and 1), or when it is
+correlated with another non-amplitude parameter by more than :data:`MAX_CORRELATION` (a
+degenerate direction), or when the covariance cannot be estimated.
 """
 
 from __future__ import annotations
@@ -42,10 +57,28 @@ import numpy as np
 from scipy.optimize import OptimizeWarning, curve_fit
 
 from ringkit._validation import ParameterError, check_choice, check_positive
-from ringkit.analysis._common import Described
+from ringkit.analysis._common import AnalysisWarning, Described
+from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
+from ringkit.conventions import path_length as _default_path_length
 from ringkit.units import K_B
 
-__all__ = ["FitResult", "thermal_factor", "fit_lphi_temperature", "fit_lphi_size", "lphi_at"]
+__all__ = [
+    "FitResult",
+    "UnconstrainedWarning",
+    "thermal_factor",
+    "fit_lphi_temperature",
+    "fit_lphi_size",
+    "lphi_at",
+]
+
+#: Largest 1-sigma error of ln(parameter) for a scale parameter to count as constrained.
+MAX_LOG_ERROR = 0.5
+#: Largest |correlation| between two non-amplitude parameters (else a degenerate direction).
+MAX_CORRELATION = 0.995
+
+
+class UnconstrainedWarning(AnalysisWarning):
+    """The data cannot fix some fit parameters; they are reported as unconstrained (NaN)."""
 
 
 @dataclass(frozen=True)
@@ -72,7 +105,14 @@ class FitResult:
     x, y, sigma : ndarray
         Data fitted (sigma None if no errors were given).
     fixed : dict
-        Constants of the model (path length, reference temperature, fixed parameters).
+        Constants of the model (path length, reference temperature, fixed parameters) and
+        ``lphi_convention`` (:data:`ringkit.conventions.LPHI_CONVENTION`).
+    unconstrained : tuple of str
+        Parameters the data cannot fix: their ``values`` are NaN and ``errors`` inf.
+    estimates : dict
+        Best-fit numbers of all parameters, including unconstrained ones (not to be quoted).
+    notes : tuple of str
+        Warnings emitted by the fit (same text).
     """
 
     values: dict
@@ -90,6 +130,9 @@ class FitResult:
     sigma: np.ndarray | None
     fixed: dict
     _predict: Callable[[np.ndarray], np.ndarray] = field(repr=False, compare=False)
+    unconstrained: tuple[str, ...] = ()
+    estimates: dict = field(default_factory=dict)
+    notes: tuple[str, ...] = ()
 
     @property
     def reduced_chi2(self) -> float:
@@ -136,6 +179,95 @@ def thermal_factor(
         return np.minimum(1.0, np.sqrt(e_c / (K_B * t)))
 
 
+def find_unconstrained(
+    names: list[str] | tuple[str, ...],
+    cov: np.ndarray,
+    q: np.ndarray,
+    linear: tuple[str, ...] = ("p",),
+    amplitudes: tuple[str, ...] = (),
+    chi2: Callable[[np.ndarray], float] | None = None,
+    scale: float = 1.0,
+) -> tuple[list[str], str]:
+    """Parameters the data cannot fix (module docstring), and the reason in words.
+
+    ``cov`` and ``q`` are in the fitted parameterisation: ``ln`` of every parameter except
+    those in ``linear``. Amplitude parameters are judged by their own error only.
+    """
+    n = len(names)
+    if not np.all(np.isfinite(cov)):
+        return [m for m in names if m not in amplitudes], "covariance could not be estimated"
+    err = np.sqrt(np.maximum(np.diag(cov), 0.0))
+    bad: dict[str, str] = {}
+    for i, m in enumerate(names):
+        if m in linear:
+            if err[i] > 0.5 * min(abs(float(q[i])), 1.0):
+                bad[m] = f"{m} = {q[i]:.3g} +- {err[i]:.2g}"
+        elif err[i] > MAX_LOG_ERROR:
+            bad[m] = f"{m} uncertain by a factor {np.exp(err[i]):.3g}"
+    with np.errstate(invalid="ignore", divide="ignore"):
+        corr = cov / np.outer(err, err)
+    for i in range(n):
+        for j in range(i + 1, n):
+            if names[i] in amplitudes or names[j] in amplitudes:
+                continue
+            if abs(corr[i, j]) > MAX_CORRELATION:
+                why = f"{names[i]} and {names[j]} correlated by {corr[i, j]:+.4f}"
+                bad.setdefault(names[i], why)
+                bad.setdefault(names[j], why)
+    if chi2 is not None and scale > 1e-12:  # (an exact, noise-free fit has no valley)
+        # Linearity check: moving parameter i by +-1 sigma (others by their regression on it,
+        # the covariance column) must raise chi2 by ~1 (times ``scale``, the reduced chi2
+        # when the errors were rescaled). A curved, degenerate valley breaks this.
+        c0 = chi2(q)
+        for i, m in enumerate(names):
+            if m in amplitudes or m in bad or not err[i] > 0:
+                continue
+            d = cov[:, i] / err[i]
+            rise = [(chi2(q + sgn * d) - c0) / scale for sgn in (1.0, -1.0)]
+            if not all(np.isfinite(rise)) or min(rise) < 0.5 or max(rise) > 2.0:
+                bad[m] = f"{m}: chi2 rises by {rise[0]:.2g}/{rise[1]:.2g} at +-1 sigma, not 1"
+    return [m for m in names if m in bad], "; ".join(dict.fromkeys(bad.values()))
+
+
+def _mark_unconstrained(
+    vals: dict, errs: dict, bad: list[str], reason: str, advice: str, notes: list[str]
+) -> dict:
+    """Replace unconstrained values by NaN/inf, warn once; return the raw estimates."""
+    estimates = dict(vals)
+    if bad:
+        msg = (
+            f"the data cannot constrain {', '.join(bad)} ({reason}); reported as "
+            f"unconstrained (NaN). {advice}"
+        )
+        notes.append(msg)
+        warnings.warn(msg, UnconstrainedWarning, stacklevel=3)
+        for m in bad:
+            vals[m] = float("nan")
+            errs[m] = float("inf")
+    return estimates
+
+
+def fd_jacobian(model: Callable[..., np.ndarray]) -> Callable[..., np.ndarray]:
+    """Central-difference Jacobian of ``model(x, *q)`` with steps ``1e-6 max(1, |q_i|)``.
+
+    MINPACK's default forward step is relative to ``|q_i|`` and vanishes for a parameter
+    that is ~0 (e.g. ``ln A0`` when A0 = 1), which makes the covariance infinite.
+    """
+
+    def jac(x: np.ndarray, *q: float) -> np.ndarray:
+        q = np.asarray(q, dtype=float)
+        cols = []
+        for i in range(q.size):
+            h = 1e-6 * max(1.0, abs(q[i]))
+            up, dn = q.copy(), q.copy()
+            up[i] += h
+            dn[i] -= h
+            cols.append((model(x, *up) - model(x, *dn)) / (2 * h))
+        return np.column_stack(cols)
+
+    return jac
+
+
 def _path_length(radius: float | None, path_length: float | None, order: int) -> float:
     if order not in (1, 2):
         raise ParameterError("order", order, "must be 1 (h/e, L = pi r) or 2 (h/2e, L = 2 pi r)")
@@ -143,7 +275,7 @@ def _path_length(radius: float | None, path_length: float | None, order: int) ->
         raise ParameterError("radius/path_length", (radius, path_length), "give exactly one", "m")
     if path_length is not None:
         return check_positive("path_length", path_length, "m")
-    return order * np.pi * check_positive("radius", radius, "m")
+    return float(_default_path_length(check_positive("radius", radius, "m"), order))
 
 
 def _data(x: object, y: object, err: object, xname: str, xunit: str):
@@ -182,7 +314,12 @@ def fit_lphi_temperature(
     p: float | None = None,
     reference_temperature: float = 1.0,
 ) -> FitResult:
-    """Fit ``A(T) = A0 F_T(T) exp(-(L/L_phi,ref) (T/T_ref)^p)``.
+    """Fit ``A(T) = A0 F_T(T) exp(-(L/l_phi_ref) (T/T_ref)^p)`` to one harmonic.
+
+    One harmonic cannot separate thermal averaging from dephasing when both the energy
+    scale and ``p`` are free (module docstring): such parameters come out unconstrained
+    with an :class:`UnconstrainedWarning`; fit h/e and h/2e together with
+    :func:`ringkit.analysis.fit_joint.fit_lphi_joint`.
 
     Parameters
     ----------
@@ -191,7 +328,8 @@ def fit_lphi_temperature(
     amplitude : array
         Oscillation amplitudes (e.g. rms in e^2/h), > 0.
     radius, path_length : float
-        Ring radius in m (``L = order pi r``) or the path length L directly; one of them.
+        Ring radius in m (``L = order pi r``, :func:`ringkit.conventions.path_length`) or the
+        path length L of the interfering paths directly; one of them.
     order : {1, 2}
         1 for h/e (L = pi r), 2 for h/2e (L = 2 pi r).
     amplitude_err : array or float, optional
@@ -204,13 +342,13 @@ def fit_lphi_temperature(
     p : float, optional
         Fix the exponent of ``L_phi ∝ T^-p`` (fitted if None).
     reference_temperature : float
-        T_ref in K where ``lphi_ref`` is quoted.
+        T_ref in K where ``l_phi_ref`` is quoted.
 
     Returns
     -------
     FitResult
-        Parameters ``amplitude0`` (units of A), ``lphi_ref`` (m), ``p`` and possibly
-        ``thermal_energy`` (J).
+        Parameters ``amplitude0`` (units of A), ``l_phi_ref`` (m), ``p`` and possibly
+        ``thermal_energy`` (J); unconstrained ones are NaN (``unconstrained``).
     """
     length = _path_length(radius, path_length, order)
     t, a, sig = _data(temperature, amplitude, amplitude_err, "temperature", "K")
@@ -219,7 +357,7 @@ def fit_lphi_temperature(
     fit_ec = thermal != "none" and thermal_energy is None
     fit_p = p is None
     names = (
-        ["amplitude0", "lphi_ref"]
+        ["amplitude0", "l_phi_ref"]
         + (["p"] if fit_p else [])
         + (["thermal_energy"] if fit_ec else [])
     )
@@ -256,7 +394,14 @@ def fit_lphi_temperature(
         with warnings.catch_warnings():  # an inestimable covariance is reported below
             warnings.simplefilter("ignore", OptimizeWarning)
             q, cov = curve_fit(
-                log_model, t, y, p0=q0, sigma=sy, absolute_sigma=sig is not None, maxfev=20000
+                log_model,
+                t,
+                y,
+                p0=q0,
+                sigma=sy,
+                absolute_sigma=sig is not None,
+                jac=fd_jacobian(log_model),
+                maxfev=2000,
             )
         success, message = bool(np.all(np.isfinite(cov))), "converged"
     except (RuntimeError, ValueError) as err:
@@ -266,8 +411,8 @@ def fit_lphi_temperature(
         success, message = False, "covariance could not be estimated (degenerate data)"
     resid = (y - log_model(t, *q)) / (1.0 if sy is None else sy)
     ln_a0, ln_c, pp, ec = unpack(q)
-    vals = {"amplitude0": float(np.exp(ln_a0)), "lphi_ref": float(length / np.exp(ln_c))}
-    jac = [vals["amplitude0"], -vals["lphi_ref"]]
+    vals = {"amplitude0": float(np.exp(ln_a0)), "l_phi_ref": float(length / np.exp(ln_c))}
+    jac = [vals["amplitude0"], -vals["l_phi_ref"]]
     if fit_p:
         vals["p"] = float(pp)
         jac.append(1.0)
@@ -275,11 +420,32 @@ def fit_lphi_temperature(
         vals["thermal_energy"] = float(ec)
         jac.append(float(ec))
     jm = np.diag(jac)
-    cov_ext = jm @ cov @ jm.T
+    with np.errstate(invalid="ignore", over="ignore"):  # inf/NaN covariance stays so
+        cov_ext = jm @ cov @ jm.T
     errs = {n: float(np.sqrt(cov_ext[i, i])) for i, n in enumerate(names)}
-    units = {"amplitude0": "amplitude", "lphi_ref": "m", "p": "1", "thermal_energy": "J"}
+    notes: list[str] = []
+
+    def chi2_of(qq: np.ndarray) -> float:
+        rr = (y - log_model(t, *qq)) / (1.0 if sy is None else sy)
+        return float(np.sum(rr**2))
+
+    dof = int(t.size - n_par)
+    scale = 1.0 if sig is not None or dof <= 0 else max(chi2_of(np.asarray(q)) / dof, 1e-300)
+    bad, why = find_unconstrained(
+        names, cov, np.asarray(q), amplitudes=("amplitude0",), chi2=chi2_of, scale=scale
+    )
+    estimates = _mark_unconstrained(
+        vals,
+        errs,
+        bad,
+        why,
+        "One harmonic cannot separate thermal averaging from dephasing: fit h/e together "
+        "with h/2e (fit_lphi_joint), or fix p or the thermal energy.",
+        notes,
+    )
+    units = {"amplitude0": "amplitude", "l_phi_ref": "m", "p": "1", "thermal_energy": "J"}
     model = (
-        f"A(T) = A0 F_T(T) exp(-L/L_phi(T)), L_phi = lphi_ref (T/{t_ref:g} K)^-p, "
+        f"A(T) = A0 F_T(T) exp(-L/l_phi(T)), l_phi = l_phi_ref (T/{t_ref:g} K)^-p, "
         f"L = {length:.6g} m, F_T = {thermal}"
         + ("" if fit_p else f", p fixed = {p:g}")
         + ("" if fit_ec or thermal == "none" else f", E_c fixed = {thermal_energy:.4g} J")
@@ -292,8 +458,8 @@ def fit_lphi_temperature(
         units={n: units[n] for n in names},
         chi2=float(np.sum(resid**2)),
         dof=int(t.size - n_par),
-        success=success,
-        message=message,
+        success=success and not bad,
+        message=message if not bad else f"{message}; unconstrained: {', '.join(bad)}",
         model=model,
         x=t,
         y=a,
@@ -302,29 +468,41 @@ def fit_lphi_temperature(
             "path_length": length,
             "reference_temperature": t_ref,
             "thermal": thermal,
+            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
             **({} if fit_p else {"p": float(p)}),
             **({} if fit_ec or thermal == "none" else {"thermal_energy": thermal_energy}),
         },
         _predict=lambda tt: np.exp(log_model(tt, *q)),
+        unconstrained=tuple(bad),
+        estimates=estimates,
+        notes=tuple(notes),
     )
 
 
 def lphi_at(fit: FitResult, temperature: float | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """L_phi(T) in m and its 1-sigma error from a :func:`fit_lphi_temperature` result."""
-    if "lphi_ref" not in fit.values:
-        raise ParameterError("fit", fit.model, "must come from fit_lphi_temperature")
+    """l_phi(T) in m and its 1-sigma error from a temperature fit (NaN, inf if unconstrained).
+
+    Works for :func:`fit_lphi_temperature` and
+    :func:`ringkit.analysis.fit_joint.fit_lphi_joint` results (same path-length convention,
+    ``fit.fixed["lphi_convention"]``).
+    """
+    if "l_phi_ref" not in fit.values:
+        raise ParameterError("fit", fit.model, "must come from a temperature fit of l_phi")
     t_ref = fit.fixed["reference_temperature"]
     t = np.asarray(temperature, dtype=float)
-    lref = fit.values["lphi_ref"]
+    lref = fit.values["l_phi_ref"]
     p = fit.values["p"] if "p" in fit.values else fit.fixed["p"]
     names = fit.parameter_names
     u = t / t_ref
     lphi = lref * u ** (-p)
     # gradient with respect to (lphi_ref, p)
     grad = np.zeros((t.size if t.ndim else 1, len(names)))
-    grad[:, names.index("lphi_ref")] = np.ravel(u ** (-p))
+    grad[:, names.index("l_phi_ref")] = np.ravel(u ** (-p))
     if "p" in names:
         grad[:, names.index("p")] = np.ravel(-lphi * np.log(u))
+    if not np.isfinite(lref) or not np.isfinite(p):
+        nan = np.full(t.shape, np.nan)
+        return nan, np.full(t.shape, np.inf)
     var = np.einsum("ij,jk,ik->i", grad, fit.covariance, grad)
     err = np.sqrt(var).reshape(t.shape)
     return lphi, err
@@ -335,20 +513,41 @@ def fit_lphi_size(
     amplitude: np.ndarray,
     *,
     order: int = 1,
+    path_length: np.ndarray | None = None,
     amplitude_err: np.ndarray | float | None = None,
     thermal_length: float | None = None,
 ) -> FitResult:
-    """Fit ``A(r) = A0 F_T(L) exp(-L/L_phi)`` over ring sizes at one temperature.
+    """Fit ``A = A0 F_T(L) exp(-L/l_phi)`` over ring sizes at one temperature.
 
-    ``L = order pi r`` (physics notes §9.3); with ``thermal_length`` L_T (m) the diffusive
-    factor ``F_T = min(1, L_T/L)`` is included, else F_T = 1. The model is linear in
-    ``(ln A0, 1/L_phi)`` (fitted with ``scipy.optimize.curve_fit``).
+    Parameters
+    ----------
+    radius : array
+        Ring radii in m (> 0).
+    amplitude : array
+        Oscillation amplitudes (> 0).
+    order : {1, 2}
+        Harmonic: 1 for h/e, 2 for h/2e (AAS).
+    path_length : array, optional
+        Explicit length L (m) of the interfering paths of each ring, e.g. measured arm
+        lengths of non-circular rings. Default: the convention of :mod:`ringkit.conventions`,
+        ``L = order pi r`` (h/e: one arm; h/2e: the circumference).
+    amplitude_err : array or float, optional
+        1-sigma errors of the amplitudes.
+    thermal_length : float, optional
+        L_T in m: the diffusive factor ``F_T = min(1, L_T/L)`` is included (else F_T = 1).
 
     Returns
     -------
     FitResult
-        ``amplitude0``, ``inverse_lphi`` (1/m; may be <= 0 if the amplitude does not decay)
-        and ``lphi`` (m; NaN and ``success=False`` when ``inverse_lphi <= 0``).
+        ``amplitude0``, ``inverse_l_phi`` (1/m; may be <= 0 if the amplitude does not decay)
+        and ``l_phi`` (m; NaN and ``success=False`` when ``inverse_l_phi <= 0``).
+        ``fixed`` holds ``path_length`` (array, m) and ``lphi_convention``. ``predict(r)``
+        uses ``L = kappa r`` with kappa the least-squares ratio of the path lengths to the
+        radii (``order pi`` by default).
+
+    Notes
+    -----
+    The model is linear in ``(ln A0, 1/l_phi)`` (``scipy.optimize.curve_fit``).
     """
     if order not in (1, 2):
         raise ParameterError("order", order, "must be 1 (h/e) or 2 (h/2e)")
@@ -358,21 +557,39 @@ def fit_lphi_size(
     need = 2 + (0 if sig is not None else 1)
     if r.size < need or np.unique(r).size < 2:
         raise ParameterError("radius", Described(f"{r.size} points"), f"need >= {need} sizes")
-    length = order * np.pi * r
+    if path_length is None:
+        length = np.asarray(_default_path_length(r, order), dtype=float)
+        source = f"{order} pi r ({LPHI_CONVENTION_KEY} default)"
+    else:
+        length = np.asarray(path_length, dtype=float).ravel()
+        if length.shape != r.shape or np.any(~np.isfinite(length)) or np.any(length <= 0):
+            raise ParameterError(
+                "path_length", Described(str(path_length)), f"need {r.size} lengths > 0", "m"
+            )
+        source = "explicit"
+    kappa = float(np.sum(length * r) / np.sum(r * r))
     lt = None if thermal_length is None else check_positive("thermal_length", thermal_length, "m")
     ft = np.ones_like(length) if lt is None else np.minimum(1.0, lt / length)
     y = np.log(a) - np.log(ft)
     sy = None if sig is None else sig / a
 
-    def line(ll: np.ndarray, ln_a0: float, inv_lphi: float) -> np.ndarray:
-        return ln_a0 - inv_lphi * ll
+    def line(ll: np.ndarray, ln_a0: float, inv_l_phi: float) -> np.ndarray:
+        return ln_a0 - inv_l_phi * ll
 
     start = np.polyfit(length, y, 1)  # exact for a straight line; curve_fit gives the cov
     with warnings.catch_warnings():  # an inestimable covariance is reported below
         warnings.simplefilter("ignore", OptimizeWarning)
         coef, cov = curve_fit(
-            line, length, y, p0=[start[1], -start[0]], sigma=sy, absolute_sigma=sig is not None
+            line,
+            length / kappa,  # in units of the radius: well-conditioned
+            y,
+            p0=[start[1], -start[0] * kappa],
+            sigma=sy,
+            absolute_sigma=sig is not None,
+            jac=fd_jacobian(line),
         )
+    coef = np.array([coef[0], coef[1] / kappa])
+    cov = cov / np.outer([1.0, kappa], [1.0, kappa])
     resid = (y - line(length, *coef)) / (1.0 if sy is None else sy)
     chi2 = float(np.sum(resid**2))
     dof = r.size - 2
@@ -380,15 +597,15 @@ def fit_lphi_size(
     jm = np.diag([a0, 1.0])
     cov_ext = jm @ cov @ jm.T
     success = bool(k > 0 and np.all(np.isfinite(cov)))
-    vals = {"amplitude0": a0, "inverse_lphi": k, "lphi": 1.0 / k if success else float("nan")}
+    vals = {"amplitude0": a0, "inverse_l_phi": k, "l_phi": 1.0 / k if success else float("nan")}
     errs = {
         "amplitude0": float(np.sqrt(cov_ext[0, 0])),
-        "inverse_lphi": float(np.sqrt(cov_ext[1, 1])),
-        "lphi": float(np.sqrt(cov_ext[1, 1]) / k**2) if success else float("nan"),
+        "inverse_l_phi": float(np.sqrt(cov_ext[1, 1])),
+        "l_phi": float(np.sqrt(cov_ext[1, 1]) / k**2) if success else float("nan"),
     }
 
     def predict(rr: np.ndarray) -> np.ndarray:
-        ll = order * np.pi * rr
+        ll = kappa * rr
         f = 1.0 if lt is None else np.minimum(1.0, lt / ll)
         return a0 * f * np.exp(-k * ll)
 
@@ -396,19 +613,24 @@ def fit_lphi_size(
         values=vals,
         errors=errs,
         covariance=cov_ext,
-        parameter_names=("amplitude0", "inverse_lphi"),
-        units={"amplitude0": "amplitude", "inverse_lphi": "1/m", "lphi": "m"},
+        parameter_names=("amplitude0", "inverse_l_phi"),
+        units={"amplitude0": "amplitude", "inverse_l_phi": "1/m", "l_phi": "m"},
         chi2=chi2,
         dof=dof,
         success=success,
         message="converged"
         if success
-        else "amplitude does not decay with size: L_phi undetermined",
-        model=f"A(r) = A0 F_T exp(-L/L_phi), L = {order} pi r"
+        else "amplitude does not decay with size: l_phi undetermined",
+        model=f"A = A0 F_T exp(-L/l_phi), L = {source}"
         + ("" if lt is None else f", F_T = min(1, {lt:.4g} m / L)"),
         x=r,
         y=a,
         sigma=sig,
-        fixed={"order": order, "thermal_length": lt},
+        fixed={
+            "order": order,
+            "thermal_length": lt,
+            "path_length": length,
+            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        },
         _predict=predict,
     )
