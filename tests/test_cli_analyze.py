@@ -316,20 +316,8 @@ def test_temperature_series_lphi_fit(capsys):
     d = _json(capsys, temps_file, "--r-in", "610nm", "--r-out", "650nm")  # no --group-by
     assert [tr["temperature_K"] for tr in d["traces"]] == pytest.approx(list(t["temperatures"]))
     assert len({tr["label"] for tr in d["traces"]}) == 6
-    d = _json(
-        capsys,
-        temps_file,
-        "--group-by",
-        "temperature",
-        "--r-in",
-        "610nm",
-        "--r-out",
-        "650nm",
-        "--thermal",
-        "ballistic",
-        "--thermal-energy",
-        "2K",
-    )
+    series = [temps_file, "--group-by", "temperature", "--r-in", "610nm", "--r-out", "650nm"]
+    d = _json(capsys, *series, "--thermal", "ballistic", "--thermal-energy", "2K")
     s = d["lphi_series"]
     assert [q["temperature_K"] for q in s["points"]] == pytest.approx(list(t["temperatures"]))
     scale = s["path_length_m"] / t["path_length"]  # path-length convention of the fit
@@ -337,21 +325,7 @@ def test_temperature_series_lphi_fit(capsys):
     assert abs(s["lphi_ref_m"] - truth) < 3 * s["lphi_ref_err_m"] + 0.03 * truth
     assert s["fit"]["values"]["p"] == pytest.approx(t["p"], rel=0.05)
     assert "lphi_convention" in s
-    assert (
-        main(
-            [
-                "analyze",
-                temps_file,
-                "--group-by",
-                "temperature",
-                "--r-in",
-                "610nm",
-                "--r-out",
-                "650nm",
-            ]
-        )
-        == 0
-    )
+    assert main(["analyze", *series]) == 0
     assert "L_phi(T) from 6 temperatures" in capsys.readouterr().out
     assert "3 temperatures" in _fail(capsys, UPDOWN, "--group-by", "temperature")
 
