@@ -13,6 +13,7 @@ BackgroundResult, remove_background                                    (:mod:`.b
 OscillationSpectrum, oscillation_spectrum, ab_bands, window_properties (:mod:`.spectrum`)
 OscillationResult, extract_oscillations, band_filter                   (:mod:`.extract`)
 FitResult, thermal_factor, fit_lphi_temperature, fit_lphi_size, lphi_at (:mod:`.fitting`)
+fit_lphi_joint (h/e + h/2e temperature fit), UnconstrainedWarning       (:mod:`.fit_joint`)
 predict_amplitudes                                                     (:mod:`.scaling`)
 AnalysisWarning, ResolutionWarning, UndersampledWarning, FieldRangeError, SamplingError
 
@@ -32,8 +33,10 @@ from ringkit.analysis._common import (
 )
 from ringkit.analysis.background import BackgroundResult, remove_background
 from ringkit.analysis.extract import OscillationResult, band_filter, extract_oscillations
+from ringkit.analysis.fit_joint import fit_lphi_joint
 from ringkit.analysis.fitting import (
     FitResult,
+    UnconstrainedWarning,
     fit_lphi_size,
     fit_lphi_temperature,
     lphi_at,
@@ -73,5 +76,7 @@ __all__ = [
     "fit_lphi_temperature",
     "fit_lphi_size",
     "lphi_at",
+    "fit_lphi_joint",
+    "UnconstrainedWarning",
     "predict_amplitudes",
 ]
