@@ -18,7 +18,8 @@ Convention (M. Büttiker, Phys. Rev. Lett. 57, 1761 (1986); docs/multiterminal.m
 columns of G sum to zero. A current I enters at m and leaves at n; every other contact is
 floating (zero net current). Grounding n (V_n = 0) and deleting its row and column leaves a
 regular matrix G' whenever every contact is connected to n; ``V = G'^-1 e_m I`` and
-``R_mn,kl = (G'^-1)_km - (G'^-1)_lm`` (terms with k or l = n are zero). Reciprocity:
+``R_mn,kl = (G'^-1)_km - (G'^-1)_lm`` (terms with k or l = n are zero); contacts not used by
+the configuration whose row and column vanish (no open channel) are left out. Reciprocity:
 ``R_mn,kl(B) = R_kl,mn(-B)``.
 """
 
@@ -156,9 +157,14 @@ def resistance_from_conductance(
     n_t = g.shape[-1]
     c.check(n_t, allow_shared=allow_shared)
     (m, n), (k, l_) = c.current, c.voltage
-    keep = [i for i in range(n_t) if i != n]
+    # contacts with an all-zero row and column (e.g. a lead without an open channel) carry no
+    # current and do not affect the others; they matter only if the configuration uses them
+    flat_g = g.reshape(-1, n_t, n_t)
+    decoupled = ~(np.any(flat_g != 0, axis=(0, 2)) | np.any(flat_g != 0, axis=(0, 1)))
+    used = {m, n, k, l_}
+    keep = [i for i in range(n_t) if i != n and (i in used or not decoupled[i])]
     gr = g[..., keep, :][..., :, keep]
-    flat = gr.reshape(-1, n_t - 1, n_t - 1)
+    flat = gr.reshape(-1, len(keep), len(keep))
     rcond = np.array([1.0 / np.linalg.cond(x) if np.all(np.isfinite(x)) else 0.0 for x in flat])
     if flat.size and (not np.all(np.isfinite(rcond)) or rcond.min() < SINGULAR_RCOND):
         bad = int(np.argmin(np.nan_to_num(rcond, nan=0.0)))
@@ -170,7 +176,7 @@ def resistance_from_conductance(
             "so R_mn,kl is undefined; allowed: contacts that are all coupled to the sample "
             f"(choose among the connected contacts of 0..{n_t - 1})",
         )
-    e_m = np.zeros(n_t - 1)
+    e_m = np.zeros(len(keep))
     e_m[keep.index(m)] = 1.0
     v = np.linalg.solve(gr, np.broadcast_to(e_m, gr.shape[:-1])[..., None])[..., 0]
     vk = v[..., keep.index(k)] if k != n else 0.0

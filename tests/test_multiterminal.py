@@ -359,9 +359,12 @@ def test_resistance_errors_name_the_parameter():
     with pytest.raises(ParameterError, match="singular"):
         mt.resistance_sweep(ds, "0,1,2,0", allow_shared=True)
     uniform = build_ring(RingDevice(mat, geo, lattice_spacing=A), seed=0)
-    with pytest.raises(ParameterError, match="no open channel") as err:
-        mt.conductance_matrix_sweep(uniform, [0.0, 0.1], energy=1.2 * T_HOP)
-    assert err.value.name == "energy"
+    ds = mt.conductance_matrix_sweep(uniform, [0.0, 0.1], energy=1.2 * T_HOP)
+    assert np.all(ds.G.values[:, 2, :] == 0) and np.all(ds.G.values[:, :, 2] == 0)
+    assert np.all(mt.resistance_sweep(ds, "0,1,0,1", allow_shared=True).R.values > 0)
+    with pytest.raises(ParameterError, match="singular") as err:
+        mt.resistance_sweep(ds, "0,2,1,2", allow_shared=True)
+    assert err.value.name == "contacts"
 
 
 # ------------------------------------------------------------------------------- 1D network

@@ -110,23 +110,6 @@ def _sweeper(ring: TightBindingRing, e_t: float, params: dict, probes):
     )
 
 
-def _check_open_leads(sweeper, n_leads: int, energy_j: float) -> None:
-    """The uniform-field engine needs an open channel in every lead (flux tube does not)."""
-    if not isinstance(sweeper, FieldSweeper):
-        return
-    modes = np.asarray(sweeper.num_modes())[:n_leads]
-    if np.any(modes == 0):
-        closed = [int(k) for k in np.flatnonzero(modes == 0)]
-        raise ParameterError(
-            "energy",
-            energy_j,
-            f"leads {closed} have no open channel there (too narrow for this energy); allowed: "
-            "energies above the lowest subband of every lead (widen the lead), or "
-            "field_mode='flux_tube', whose engine treats a closed lead as a decoupled terminal",
-            "J",
-        )
-
-
 def conductance_matrices(
     ring: TightBindingRing,
     fields,
@@ -199,7 +182,6 @@ def conductance_matrices(
     total = np.zeros((values.size, n_leads, n_leads))
     for e, w in zip(grid.energies, grid.weights, strict=True):
         sw = sweeper if e == e_t else sweeper.at_energy(float(e))
-        _check_open_leads(sw, n_leads, float(e) * ring.hopping)
         total += w * reduce_to_leads(sw.conductance_matrix(values), n_leads)
     info = {
         "solver": type(sweeper).__name__,
