@@ -96,7 +96,8 @@ def test_updown_file_roundtrip_and_report():
         assert np.all(np.diff(tr.field) > 0)
         assert tr.field[0] == pytest.approx(t["field_range"][0], abs=1e-9)
         assert tr.field[-1] == pytest.approx(t["field_range"][1], abs=1e-9)
-        # noise 2 Ohm on R: dG = dR G^2 e^2/h in units of e^2/h (physics notes §12.1)
+        # noise 2 Ohm on R: dG = dR G^2 e^2/h in units of e^2/h (small signal, closed form
+        # dG = -dR/R^2; docs/measured-data.md "Units and conversion factors")
         sigma = t["noise_ohm"] * (_truth_updown(tr.field) ** 2) * E2H
         assert np.max(np.abs(tr.conductance - _truth_updown(tr.field)) / sigma) < 5
         assert tr.temperature == pytest.approx(t["temperature"])  # from "# T = 0.3 K"
@@ -154,7 +155,8 @@ def test_four_terminal_flag_and_linearised_conversion(tmp_path):
     assert any("four-terminal" in c for c in tr.metadata["caveats"])
     assert any("four-terminal" in c for c in res.report.caveats)
     lin = load_traces(p, terminals="four", reference_resistance=1000.0).traces[0]
-    # physics notes §12.1: R = 1 kOhm, dR = 1 Ohm -> dG = -0.0258 e^2/h
+    # linearised four-terminal (docs/measured-data.md "Four-terminal data"):
+    # R = 1 kOhm, dR = 1 Ohm -> dG = -dR/R^2 = -0.0258 e^2/h
     g_ref = 1 / (1000.0 * E2H)
     dg = lin.conductance - g_ref
     assert dg[0] == pytest.approx(-1.0 * constants.h / constants.e**2 / 1000.0**2, rel=1e-9)
