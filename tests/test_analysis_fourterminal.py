@@ -19,6 +19,9 @@ from scipy import constants
 
 from ringkit._validation import ParameterError
 from ringkit.analysis import fourterminal as ft
+from ringkit.analysis import network_multi as nm
+from ringkit.analysis.network1d import ring_transmission
+from ringkit.contacts import resistance_from_conductance
 
 PERIOD = 4.0e-3  # T, invented ring (h/e area ~ 1 um^2)
 
@@ -110,3 +113,35 @@ def test_fourterminal_analysis_does_not_import_kwant():
         "sys.exit(1 if 'kwant' in sys.modules else 0)"
     )
     assert subprocess.run([sys.executable, "-c", code], check=False).returncode == 0
+
+
+# ------------------------------------------------------------------------------- network
+def test_network_two_lead_limit_equals_the_two_lead_network():
+    """Griffiths junction = the Büttiker-Imry-Azbel junction with coupling 4/9: the N-lead
+    network with two leads reproduces ringkit.analysis.network1d (a separate implementation)."""
+    kr = np.linspace(3.0, 9.0, 13)[:, None]
+    phi = np.linspace(-1.0, 2.5, 8)[None, :]
+    for a0, a1 in ((math.pi, 0.0), (math.pi + 0.3, 0.2)):
+        tm = nm.ring_network_transmissions([a0, a1], kr, phi)
+        up = (a0 - a1) % (2 * math.pi)  # arm counter-clockwise from lead 1 to lead 0
+        ref = ring_transmission(kr * up, kr * (2 * math.pi - up), phi, 4.0 / 9.0)
+        assert np.abs(tm[..., 1, 0] - ref).max() < 1e-12
+        assert np.abs(tm[..., 0, 1] - ref).max() < 1e-12
+
+
+def test_network_is_unitary_and_reciprocal_with_four_leads():
+    angles = [3.0, 0.4, 3.9, -0.7]
+    kr = np.linspace(2.0, 7.0, 11)[:, None]
+    phi = np.linspace(0.0, 2 * math.pi, 9)[None, :]
+    for junction in (None, nm.lattice_junction(np.linspace(0.3, 2.5, 11))[:, None]):
+        tm = nm.ring_network_transmissions(angles, kr, phi, junction=junction)
+        assert np.abs(tm.sum(axis=-1) - 1).max() < 1e-12  # unitarity (one channel per lead)
+        assert np.abs(tm.sum(axis=-2) - 1).max() < 1e-12
+        back = nm.ring_network_transmissions(angles, kr, -phi, junction=junction)
+        assert np.abs(tm - np.swapaxes(back, -1, -2)).max() < 1e-12  # T_ij(B) = T_ji(-B)
+        g = nm.network_conductance_matrix(tm)
+        r = resistance_from_conductance(g, "0,2,1,3")
+        r_rev = resistance_from_conductance(nm.network_conductance_matrix(back), "1,3,0,2")
+        assert np.abs(r - r_rev).max() < 1e-10  # Büttiker 1986 reciprocity
+    with pytest.raises(ParameterError):
+        nm.ring_network_transmissions([0.0, 0.0], 1.0, 0.0)

@@ -8,10 +8,11 @@ Independent references used here:
   (T_pq = Tr(Gamma_p G Gamma_q G^dagger); D. S. Fisher, P. A. Lee, Phys. Rev. B 23, 6851
   (1981); M. Büttiker, Phys. Rev. Lett. 57, 1761 (1986) for the multi-terminal form), with
   the analytic strip self-energies of tests/test_reference_fisher_lee.py;
-* a 1D scattering network of the clean four-lead chain ring: lattice three-way junctions
+* a 1D scattering network of the clean four-lead chain ring (ringkit.analysis.network_multi,
+  numpy only, no Green's functions): lattice three-way junctions
   S_ij = -delta_ij + 2i sin k/(2 e^{ik} - e^{-ik}) (the tight-binding form of the symmetric
   junction of M. Büttiker, Y. Imry, M. Ya. Azbel, Phys. Rev. A 30, 1982 (1984), derived in
-  the docstring of ``_junction``) joined by arms of phase e^{ik n};
+  ``lattice_junction``) joined by arms of phase e^{ik n};
 * Onsager-Büttiker reciprocity R_mn,kl(B) = R_kl,mn(-B) (Büttiker 1986).
 """
 
@@ -27,6 +28,11 @@ from scipy import constants
 from test_reference_fisher_lee import _cut_phase_sign, _strip_self_energy
 
 from ringkit._validation import ParameterError
+from ringkit.analysis.network_multi import (
+    lattice_junction,
+    network_conductance_matrix,
+    ring_network_transmissions,
+)
 from ringkit.contacts import Contacts, resistance_from_conductance
 from ringkit.device import ArmGate, LeadSpec, Material, RingDevice, RingGeometry
 from ringkit.tightbinding import build_ring
@@ -368,52 +374,6 @@ def test_resistance_errors_name_the_parameter():
 
 
 # ------------------------------------------------------------------------------- 1D network
-def _junction(k: float) -> np.ndarray:
-    """S-matrix of a tight-binding site joining three semi-infinite chains (on-site 2t,
-    hopping -t, E = 2t(1 - cos k)). With psi_j(n) = a_j e^{-ikn} + b_j e^{ikn} on chain j,
-    continuity psi_j(0) = psi_0 and the node equation (E - 2t) psi_0 = -t sum_j psi_j(1) give
-    psi_0 = 2i sin k sum_j a_j / (2 e^{ik} - e^{-ik}) and b_j = psi_0 - a_j."""
-    return 2j * math.sin(k) / (2 * np.exp(1j * k) - np.exp(-1j * k)) * np.ones((3, 3)) - np.eye(3)
-
-
-def _network_tmatrix(n_sites: int, lead_sites: list[int], k: float, loop_phase: float):
-    """T_pq of a ring of ``n_sites`` sites with leads on ``lead_sites`` (counter-clockwise
-    order of site numbers), from junction S-matrices joined by arms (n bonds: e^{ikn}); the
-    whole loop phase (counter-clockwise) sits on the arm that closes the loop."""
-    order = np.argsort(lead_sites)
-    js = [lead_sites[o] for o in order]
-    nj = len(js)
-    # arm a runs from junction a to junction a+1 (ccw), length in bonds
-    lengths = [((js[(a + 1) % nj] - js[a]) % n_sites) for a in range(nj)]
-    # unknowns: amplitude arriving at junction a from arm a-1 (ccw, "in_ccw") and from arm a
-    # (cw, "in_cw"); junction channels: 0 = lead, 1 = arm a-1 side, 2 = arm a side
-    s = _junction(k)
-    size = 2 * nj
-    m = np.eye(size, dtype=complex)
-    drive = np.zeros((size, nj), dtype=complex)
-    for a in range(nj):
-        b = (a + 1) % nj
-        ph = np.exp(1j * k * lengths[a])
-        ph_ccw = ph * (np.exp(1j * loop_phase) if a == nj - 1 else 1.0)
-        ph_cw = ph * (np.exp(-1j * loop_phase) if a == nj - 1 else 1.0)
-        # wave leaving junction a into arm a (channel 2) arrives at b from its arm-(b-1) side
-        # x[2b] = ph_ccw * (S[2,0] lead_a + S[2,1] x[2a] + S[2,2] x[2a+1])
-        m[2 * b, 2 * a] -= ph_ccw * s[2, 1]
-        m[2 * b, 2 * a + 1] -= ph_ccw * s[2, 2]
-        drive[2 * b, a] += ph_ccw * s[2, 0]
-        # wave leaving junction b into arm a (its channel 1) arrives at a from the arm-a side
-        m[2 * a + 1, 2 * b] -= ph_cw * s[1, 1]
-        m[2 * a + 1, 2 * b + 1] -= ph_cw * s[1, 2]
-        drive[2 * a + 1, b] += ph_cw * s[1, 0]
-    x = np.linalg.solve(m, drive)  # columns: unit incoming wave in lead of junction q
-    out = s[0, 1] * x[0::2] + s[0, 2] * x[1::2]  # into the leads, (junction p, source q)
-    out = out + s[0, 0] * np.eye(nj)
-    t_sorted = np.abs(out) ** 2
-    tm = np.empty_like(t_sorted)
-    tm[np.ix_(order, order)] = t_sorted
-    return tm
-
-
 @pytest.mark.parametrize("mode", ["flux_tube", "uniform"])
 def test_clean_symmetric_four_lead_chain_ring_matches_network(mode):
     """R_mn,kl of a clean symmetric four-lead 1D ring against the independent network.
@@ -442,11 +402,14 @@ def test_clean_symmetric_four_lead_chain_ring_matches_network(mode):
             ds = mt.conductance_matrix_sweep(ring, sweep, energy=e * t)
         r_ours = mt.resistance_sweep(ds, configs).R.values
         for f_idx, f in enumerate(fluxes):
-            # ringkit: counter-clockwise loop carries exp(-2 pi i Phi/Phi0)
-            tm = _network_tmatrix(n, sites, k, -2 * math.pi * f / PHI0)
-            g = -2.0 * tm
-            np.fill_diagonal(g, 0.0)
-            np.fill_diagonal(g, -g.sum(axis=0))
+            # sites on a circle of n bonds: k R dtheta = k a * (bonds between junctions)
+            tm = ring_network_transmissions(
+                [2 * math.pi * j / n for j in sites],
+                k * n / (2 * math.pi),
+                2 * math.pi * f / PHI0,
+                junction=lattice_junction(k),
+            )
+            g = network_conductance_matrix(tm)
             for c_idx, c in enumerate(configs):
                 ref = resistance_from_conductance(g, c)
                 worst = max(worst, abs(r_ours[f_idx, c_idx] - ref) / max(1.0, abs(ref)))
