@@ -1,65 +1,71 @@
-"""Buttiker dephasing probes: floating voltage probes spread along both arms of a ring.
+"""Büttiker probes along both arms of a ring: dephasing probes and voltage probes.
 
 Model
 -----
 Each probe is a wide-band reservoir attached to one site: a self-energy ``-i eta/2`` on that
-site (distributed-probe model of D'Amato and Pastawski, Phys. Rev. B 41, 7411 (1990); Buttiker,
+site (distributed-probe model of D'Amato and Pastawski, Phys. Rev. B 41, 7411 (1990); Büttiker,
 Phys. Rev. B 33, 3020 (1986)). No sites are added; the escape rate into one probe is
-``eta/hbar`` times the probability on its site. A probe is *floating*: its voltage adjusts so
-that its net current vanishes, which makes the electrons it absorbs re-enter the ring with a
-random phase. The two-terminal conductance follows by eliminating the probe voltages from the
-conductance matrix (Kron reduction, :func:`effective_conductance`).
+``eta/hbar`` times the probability on its site. A probe is *floating*: no net current flows
+into it, so the electrons it absorbs re-enter the ring with a random phase. The two-terminal
+conductance follows by eliminating the probe voltages from the conductance matrix (Kron
+reduction, :func:`effective_conductance`).
 
-Coupling from a dephasing length (the documented mapping)
-----------------------------------------------------------
-Convention: ``L_phi`` is the length along a path over which the *coherent intensity* of a
-partial wave falls by 1/e; the h/e interference term of two arms of length ``L`` each then
-carries ``exp(-L/L_phi)`` (physics notes 9.2-9.3: L = half circumference for h/e, the full
-circumference for the h/2e AAS term).
+Probe types at finite temperature (:data:`PROBE_TYPES`, :func:`thermal_probe_conductance`)
+------------------------------------------------------------------------------------------
+* ``"dephasing"`` (energy-conserving dephasing probes, the default everywhere in ringkit): the
+  current into every probe vanishes *at each energy*; the Kron reduction is done at every
+  energy and the resulting ``G_eff(E)`` is thermally averaged.
+* ``"voltage"`` (voltage probes, zero *total* current): only the energy-integrated current
+  vanishes; the conductance matrix is thermally averaged first (weights ``-df/dE``) and then
+  Kron-reduced. The probe then also relaxes energy (inelastic).
+The two agree when ``k_B T`` is small compared with the correlation energy on which the
+conductance matrix changes, and differ once ``k_B T`` approaches it (tests/test_probes.py,
+docs/probes.md "Probe types").
 
-Per probe, a channel with group velocity v passes a site of coupling eta coherently with
-amplitude ``1/(1 + eta/(2 hbar v/a))`` (exact for a single-channel chain: an imaginary on-site
-potential -i eta/2). With probes every ``d`` lattice spacings along the path this gives
+Coupling from a dephasing length
+--------------------------------
+Convention (:mod:`ringkit.conventions`): the h/e amplitude is damped as ``exp(-L/L_phi)``
+with ``L = path_length(r, 1) = pi r``.
 
-    L_phi = d / (2 ln(1 + eta a / (2 hbar v)))   <=>   eta = 2 hbar v/a (exp(d / (2 L_phi)) - 1),
-
-which reduces to the rate picture ``1/tau_phi = eta f/hbar``, ``L_phi = v tau_phi``, with
-``f = a/d`` the probe density per site along the path, when ``d << L_phi``. In a wider arm the
-probability is shared between the sites of a cross-section, so ``f`` is taken as the fraction
-of the probability (zero-field local density of states) that sits on the probe sites, which is
-``n_probes/n_sites`` for a uniform density; v is the mean longitudinal velocity of the lead
-channels at the energy. For diffusive arms pass ``diffusion_constant``: ``L_phi^2 = D tau_phi``.
-
-Numerical calibration. ``calibration`` multiplies eta. Single-channel networks (mean site
-degree < 2.5): 1, exact (tests/test_probes.py fits the decay of the h/e amplitude of chain
-loops versus arm length and finds the requested L_phi within ~11 %). Square-lattice rings
-(wider arms): :data:`CALIBRATION_LATTICE` = 0.66, measured by the same fit on narrow
-disordered rings (3-5 sites wide, disorder 0.5-1 t, E = 0.6-1.4 t, requested L_phi = 25 and
-40 a; with calibration 1 the fitted L_phi came out 0.63, 0.65 and 0.70 of the requested value:
-paths on the lattice are longer than the geometric arm and channels are slower than the lead
-mean). The slow test checks it at L_phi = 30 a (within 25 %). ``calibration="auto"`` picks
-between the two.
+* :func:`coupling_from_lphi` is the *analytic estimate*: a channel with group velocity v passes
+  a site of coupling eta coherently with amplitude ``1/(1 + eta/(2 hbar v/a))`` (exact for a
+  single-channel chain), which with probes every ``d`` sites gives
+  ``eta = 2 hbar v/a (exp(d/(2 L_phi)) - 1)``, i.e. the rate picture ``1/tau_phi = eta f/hbar``,
+  ``L_phi = v tau_phi`` (ballistic) or ``L_phi^2 = D tau_phi`` (diffusive) for ``d << L_phi``.
+  :func:`attach_probes` uses it with the probability fraction ``f`` on the probe sites (zero-
+  field LDOS) and, on square lattices, the start factor :data:`ANALYTIC_LATTICE_FACTOR`. It is
+  NOT a calibration: on disordered multi-channel rings the L_phi it realises scatters between
+  0.7x and 2.1x the requested value from device to device (issue 15). Its ``info`` says so
+  (``l_phi_realised`` is None).
+* :func:`ringkit.transport.probe_calibration.calibrate_probes` measures the realised L_phi on
+  the device itself (h/e damping over an energy window, bootstrap error) and adjusts eta by
+  secant steps; its probes carry ``l_phi_realised`` and ``l_phi_realised_err``.
+  ``attach_probes(..., calibrate=True)`` calls it (flux-tube systems).
 
 Public API
 ----------
 DephasingProbes, ring_probe_sites, attach_probes, coupling_from_lphi, lphi_from_coupling,
-lead_velocity, local_dos, effective_conductance, conductance_matrix_from_transmission
+lead_velocity, local_dos, effective_conductance, conductance_matrix_from_transmission,
+thermal_probe_conductance, PROBE_TYPES, ANALYTIC_LATTICE_FACTOR
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import kwant
 import numpy as np
 import scipy.sparse as sp
 
-from ringkit._validation import ParameterError, check_positive
+from ringkit._validation import ParameterError, check_choice, check_positive
+from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
 from ringkit.transport.fastsweep import kron_reduce
 
 __all__ = [
+    "ANALYTIC_LATTICE_FACTOR",
     "CALIBRATION",
-    "CALIBRATION_LATTICE",
+    "PROBE_TYPES",
     "DephasingProbes",
     "ring_probe_sites",
     "attach_probes",
@@ -69,13 +75,20 @@ __all__ = [
     "local_dos",
     "conductance_matrix_from_transmission",
     "effective_conductance",
+    "thermal_probe_conductance",
 ]
 
 CALIBRATION = 1.0
-"""Multiplier of the mapped coupling for single-channel networks (exact; module docstring)."""
+"""Multiplier of the mapped coupling for single-channel networks (exact per probe)."""
 
-CALIBRATION_LATTICE = 0.66
-"""Numerically calibrated multiplier for square-lattice rings (module docstring)."""
+ANALYTIC_LATTICE_FACTOR = 0.66
+"""Start factor of the analytic estimate on square lattices (mean over narrow test rings of the
+old fit; per device the realised L_phi still varies 0.7-2.1x): a first guess for
+:func:`ringkit.transport.probe_calibration.calibrate_probes`, not a calibration."""
+
+PROBE_TYPES = ("dephasing", "voltage")
+"""Energy-conserving dephasing probes (reduce at each energy, then average) and voltage probes
+(average the conductance matrix, then reduce); module docstring."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -355,6 +368,8 @@ def attach_probes(
     hamiltonian=None,
     ldos: np.ndarray | None = None,
     positions: np.ndarray | None = None,
+    calibrate: bool = False,
+    radius: float | None = None,
 ) -> DephasingProbes:
     """Dephasing probes along both arms of a two-lead ring, coupled for a given ``l_phi``.
 
@@ -382,7 +397,7 @@ def attach_probes(
         Ring centre in position units (default: between the lead interfaces).
     calibration : float or "auto"
         Multiplier of eta; "auto": 1 for single-channel networks, else
-        :data:`CALIBRATION_LATTICE`.
+        :data:`ANALYTIC_LATTICE_FACTOR` (analytic estimate; ignored with ``calibrate``).
     hamiltonian : scipy.sparse matrix, optional
         The zero-field Hamiltonian (kwant's ``hamiltonian_submatrix`` at ``params`` and
         ``zero_field``) if already evaluated, e.g. ``FluxTubeModel.h0``; saves one evaluation.
@@ -391,16 +406,27 @@ def attach_probes(
         ``FluxTubeModel.local_dos`` of the probe-free model); then ``hamiltonian`` is not used.
     positions : ndarray, optional
         Site positions (n_sites, 2) in position units, as :func:`ring_probe_sites` takes them.
+    calibrate : bool
+        Measure and adjust the realised L_phi on this device
+        (:func:`ringkit.transport.probe_calibration.calibrate_probes`; flux-tube systems with
+        the flux in Wb as kwant parameter ``"flux"``). Default False: analytic estimate only.
+    radius : float, optional
+        Mean ring radius in m for the path length ``pi r`` of the calibration (default:
+        estimated from the site positions).
 
     Returns
     -------
     DephasingProbes
-        With ``info`` holding velocity, probe fraction, calibration and energy.
+        ``info`` holds velocity, probe fraction, calibration factor, energy, the path-length
+        convention (``lphi_convention``) and ``l_phi_realised``/``l_phi_realised_err`` in m
+        (None for the analytic estimate, which is not measured on the device).
     """
     if not isinstance(fsyst, kwant.system.FiniteSystem):
         raise ParameterError("fsyst", type(fsyst).__name__, "must be a finalized kwant system")
     a = check_positive("lattice_spacing", lattice_spacing, "m")
     l_phi = check_positive("l_phi", l_phi, "m")
+    if calibrate:
+        return _calibrated(fsyst, l_phi, energy, n_probes, a, params, radius)
     sites = ring_probe_sites(fsyst, n_probes, center=center, positions=positions)
     full = {**dict(params or {}), **dict(zero_field or {})}
     # probability weight on the probe sites (zero-field LDOS); uniform -> n_probes/n_sites
@@ -412,7 +438,7 @@ def attach_probes(
     v = lead_velocity(fsyst, energy, full)
     if calibration == "auto":
         mean_degree = fsyst.graph.num_edges / fsyst.graph.num_nodes
-        calibration = CALIBRATION if mean_degree < 2.5 else CALIBRATION_LATTICE
+        calibration = CALIBRATION if mean_degree < 2.5 else ANALYTIC_LATTICE_FACTOR
     calibration = check_positive("calibration", calibration)
     if np.isinf(l_phi):
         eta = 0.0
@@ -431,8 +457,27 @@ def attach_probes(
         "lattice_spacing": a,
         "diffusion_constant": diffusion_constant,
         "calibration": calibration,
+        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        "l_phi_realised": None,
+        "l_phi_realised_err": None,
+        "l_phi_status": "analytic estimate, not measured on this device (calibrate=True)",
     }
     return DephasingProbes(sites, eta, l_phi, info)
+
+
+def _calibrated(fsyst, l_phi, energy, n_probes, a, params, radius) -> DephasingProbes:
+    """:func:`attach_probes` with ``calibrate=True``: SI in and out, lattice units inside."""
+    from ringkit.transport.lowrank import FluxTubeModel
+    from ringkit.transport.probe_calibration import calibrate_probes
+
+    model = FluxTubeModel(fsyst, params={k: v for k, v in (params or {}).items()})
+    r = None if radius is None else check_positive("radius", radius, "m") / a
+    pr = calibrate_probes(model, l_phi / a, energy, n_probes=n_probes, radius=r)
+    info = dict(pr.info)
+    for key in ("l_phi_requested", "l_phi_realised", "l_phi_realised_err", "path_length", "radius"):
+        info[key] = float(info[key]) * a  # lattice spacings -> m
+    info["lattice_spacing"] = a
+    return DephasingProbes(pr.sites, pr.eta, l_phi, info)
 
 
 def conductance_matrix_from_transmission(t_matrix: np.ndarray) -> np.ndarray:
@@ -466,6 +511,62 @@ def effective_conductance(t_matrix: np.ndarray, source: int = 0, drain: int = 1)
     -------
     ndarray
         ``G_eff = C_ss + C_sp V_p`` with ``C_pp V_p = -C_ps`` (Buttiker, Phys. Rev. Lett. 57,
-        1761 (1986); physics notes 7.2), in e^2/h per spin.
+        1761 (1986); docs/probes.md "Kron reduction"), in e^2/h per spin.
     """
     return kron_reduce(conductance_matrix_from_transmission(t_matrix), source, drain)
+
+
+def thermal_probe_conductance(
+    conductance_matrix_at: Callable[[float], np.ndarray],
+    energies,
+    weights=None,
+    *,
+    probe_type: str = "dephasing",
+    source: int = 0,
+    drain: int = 1,
+    average: Callable[[np.ndarray], np.ndarray] | None = None,
+) -> np.ndarray:
+    """Finite-temperature two-terminal conductance with floating probes of either type.
+
+    Parameters
+    ----------
+    conductance_matrix_at : callable
+        ``energy -> C`` (…, n, n), the Büttiker conductance matrix at one energy (e.g.
+        ``lambda e: sweeper.at_energy(e).conductance_matrix(fluxes)``), e^2/h per spin.
+    energies : array_like or grid object
+        Energy points; an object with ``.energies`` and ``.weights`` (e.g.
+        :class:`ringkit.transport.thermal.ThermalGrid` or the energy policy's grid) may be
+        passed instead of ``energies, weights``.
+    weights : array_like, optional
+        Weights of ``-df/dE`` on the grid (summing to 1).
+    probe_type : {"dephasing", "voltage"}
+        ``"dephasing"``: Kron-reduce at every energy, then average ``G_eff`` (energy-conserving
+        dephasing probes). ``"voltage"``: average the conductance MATRIX, then Kron-reduce
+        (zero total current).
+    average : callable, optional
+        Energy-average policy: maps an array with the energy on axis 0 to its average (default:
+        ``tensordot(weights, values, 1)``). Use it to plug in another quadrature.
+
+    Returns
+    -------
+    ndarray
+        ``G_eff`` (…) in e^2/h per spin.
+    """
+    check_choice("probe_type", probe_type, PROBE_TYPES)
+    if hasattr(energies, "energies") and hasattr(energies, "weights"):
+        energies, weights = energies.energies, energies.weights
+    e = np.atleast_1d(np.asarray(energies, dtype=float))
+    if average is None:
+        if weights is None:
+            raise ParameterError("weights", None, "give weights, a grid object or average=")
+        w = np.atleast_1d(np.asarray(weights, dtype=float))
+        if w.shape != e.shape:
+            raise ParameterError("weights", w.shape, f"must match energies {e.shape}")
+
+        def average(values: np.ndarray) -> np.ndarray:
+            return np.tensordot(w, values, axes=1)
+
+    cm = np.stack([np.asarray(conductance_matrix_at(float(x)), dtype=float) for x in e])
+    if probe_type == "voltage":
+        return kron_reduce(average(cm), source, drain)
+    return average(kron_reduce(cm, source, drain))

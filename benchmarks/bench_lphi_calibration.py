@@ -1,0 +1,158 @@
+"""Validation and cost of the per-device L_phi calibration (ringkit.transport.probe_calibration).
+
+Part A (statistics, small rings): disorder seeds, arm widths 3-15 sites, energies and disorder
+strengths drawn from ``numpy.random.default_rng(BENCH_SEED)`` (20261205, a generator used
+neither in development nor by the unit test, which uses 20261204). For each ring the probes
+are calibrated for the requested L_phi on 16 energies; the realised L_phi is then measured on
+16 held-out energies (interleaved with the calibration energies, same window). Prints
+realised/requested ratios and the fraction within 15 %.
+
+Part B (cost, realistic ring): a GaAs ring of mean radius 0.5 um (ringkit device, flux-tube
+mode), calibration time and the equivalent number of factorizations; median of repeats,
+load average printed. Thread settings: OPENBLAS_NUM_THREADS as set in the environment
+(recommend 1); the small dense blocks run with one BLAS thread (threadpoolctl).
+
+Run from the repository root:
+    OPENBLAS_NUM_THREADS=1 .venv/bin/python benchmarks/bench_lphi_calibration.py [--quick]
+Writes benchmarks/RESULTS-lphi-calibration.md.
+"""
+
+from __future__ import annotations
+
+import os
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+
+from engine_systems import square_ring
+
+from ringkit.transport.lowrank import FluxTubeModel
+from ringkit.transport.probe_calibration import (
+    ProbeFluxSolver,
+    calibrate_probes,
+    default_calibration_energies,
+    measure_realised_lphi,
+)
+
+BENCH_SEED = 20261205
+OUT = Path(__file__).with_name("RESULTS-lphi-calibration.md")
+
+
+def _velocity(fsyst, energy):
+    prop, _ = fsyst.leads[0].modes(energy)
+    return float(np.mean(np.abs(prop.velocities)))
+
+
+def part_a(n_cases: int, l_phi: float = 30.0, rm: float = 18.0) -> list[str]:
+    rng = np.random.default_rng(BENCH_SEED)
+    rows, ok = [], []
+    for _ in range(n_cases):
+        seed, w = int(rng.integers(0, 2**31)), int(rng.integers(3, 16))
+        e0, dis = float(rng.uniform(0.6, 1.4)), float(rng.uniform(0.5, 1.0))
+        fs = square_ring(
+            rm + w / 2, rm - w / 2, min(w, 6), disorder=dis, seed=seed, field_param="flux"
+        )
+        model = FluxTubeModel(fs, flux_period=1.0)
+        t0 = time.perf_counter()
+        pr = calibrate_probes(model, l_phi, e0, n_probes=64, radius=rm)
+        tc = time.perf_counter() - t0
+        v = _velocity(fs, e0)
+        e_c = v / (2 * np.pi * rm)
+        held = default_calibration_energies(e0 + 0.5 * e_c, v, rm, 16)
+        m = measure_realised_lphi(ProbeFluxSolver(model, pr.sites, held), pr.eta, radius=rm)
+        ratio = m["l_phi_realised"] / l_phi
+        ok.append(abs(ratio - 1) <= 0.15)
+        rows.append(
+            f"| {seed} | {w} | {e0:.3f} | {dis:.2f} | {fs.graph.num_nodes} | "
+            f"{pr.info['l_phi_realised'] / l_phi:.3f} ± "
+            f"{pr.info['l_phi_realised_err'] / l_phi:.3f} "
+            f"| {ratio:.3f} ± {m['l_phi_realised_err'] / l_phi:.3f} | {pr.info['n_steps']} | "
+            f"{tc:.2f} |"
+        )
+        print(rows[-1], flush=True)
+    frac = float(np.mean(ok))
+    head = [
+        f"## A. Realised / requested L_phi (requested {l_phi:g} a, mean radius {rm:g} a, "
+        f"64 probes, generator default_rng({BENCH_SEED}))",
+        "",
+        "| disorder seed | arm width (sites) | E (t) | W (t) | sites | calibrated (16 E) | "
+        "held-out (16 E) | steps | time (s) |",
+        "|---|---|---|---|---|---|---|---|---|",
+    ]
+    return head + rows + ["", f"Held-out realised within 15 %: **{frac:.0%}** of {n_cases}.", ""]
+
+
+def part_b(repeats: int) -> list[str]:
+    from ringkit.device import Material, RingDevice, RingGeometry
+    from ringkit.tightbinding import build_ring
+
+    dev = RingDevice(
+        Material.preset("GaAs", temperature=0.3),
+        RingGeometry.from_mean_radius(0.5e-6, 0.12e-6),
+        field_mode="flux_tube",
+    )
+    ring = build_ring(dev, seed=11)
+    e_t = ring.fermi_energy_lattice
+    a = ring.lattice_spacing
+    lines = [
+        "## B. Cost at realistic size",
+        "",
+        f"GaAs ring, mean radius 0.5 um, arm width 0.12 um, a = {a * 1e9:.2f} nm, "
+        f"{ring.n_sites} sites, E_F = {e_t:.4f} t, requested L_phi = 1.0 um "
+        "(pi r/L_phi = 1.57).",
+        "",
+    ]
+    model = FluxTubeModel(ring.fsyst, params=ring.params())
+    times, res = [], None
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        res = calibrate_probes(
+            model, 1.0e-6 / a, e_t, n_probes=100, radius=dev.geometry.mean_radius / a
+        )
+        times.append(time.perf_counter() - t0)
+    # one factorization + selected inverse (the unit cost of one energy of a flux sweep)
+    t0 = time.perf_counter()
+    ProbeFluxSolver(model, res.sites, [e_t])
+    t_one = time.perf_counter() - t0
+    med = float(np.median(times))
+    lines += [
+        f"* calibration (16 energies, {res.info['n_steps']} coupling evaluations): median "
+        f"{med:.2f} s over {repeats} run(s) = {med / t_one:.1f}x one factorization + "
+        f"selected inverse ({t_one:.3f} s)",
+        f"* realised L_phi = {res.info['l_phi_realised'] * a * 1e6:.3f} ± "
+        f"{res.info['l_phi_realised_err'] * a * 1e6:.3f} um (requested 1.000 um); "
+        f"eta = {res.eta:.4g} t",
+        "",
+    ]
+    return lines
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    warnings.simplefilter("ignore")
+    load0 = os.getloadavg()
+    lines = [
+        "# L_phi calibration: validation and cost",
+        "",
+        "Generated by `benchmarks/bench_lphi_calibration.py`. "
+        f"OPENBLAS_NUM_THREADS={os.environ.get('OPENBLAS_NUM_THREADS', 'unset')}; "
+        f"load average at start {load0[0]:.2f}, {load0[1]:.2f}, {load0[2]:.2f} (2 shared cores, "
+        "other jobs running).",
+        "Convention: h/e damped as exp(-L/L_phi), L = pi r (ringkit.conventions).",
+        "",
+    ]
+    lines += part_a(6 if quick else 30)
+    lines += part_b(1 if quick else 3)
+    load1 = os.getloadavg()
+    lines.append(f"Load average at end: {load1[0]:.2f}, {load1[1]:.2f}, {load1[2]:.2f}.")
+    OUT.write_text("\n".join(lines) + "\n")
+    print("\n".join(lines))
+
+
+if __name__ == "__main__":
+    main()
