@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-__all__ = ["lab_lines", "series_lines"]
+__all__ = ["clean_json", "trace_record", "summary_lines", "lab_lines", "series_lines"]
 
 
 def _num(x: float | None, fmt: str) -> str:
@@ -71,3 +71,95 @@ def series_lines(s: dict[str, Any]) -> list[str]:
             "by a check or not analysed)"
         )
     return lines
+
+
+def clean_json(value: Any) -> Any:
+    """Plain JSON values: numpy scalars to Python, NaN/inf to None."""
+    if isinstance(value, dict):
+        return {str(k): clean_json(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [clean_json(v) for v in value]
+    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
+        value = value.item()
+    if isinstance(value, float) and not math.isfinite(value):
+        return None
+    return value
+
+
+def trace_record(index: int, trace, res, report, error: str | None) -> dict[str, Any]:
+    """JSON record of one trace (the keys of the module docstring of ``analyze``)."""
+    rec: dict[str, Any] = {
+        "index": index,
+        "label": trace.label,
+        "direction": trace.direction,
+        "temperature_K": trace.temperature,
+        "n_points_trace": len(trace),
+    }
+    if error is not None:
+        rec["error"] = error
+        return rec
+    trimmed = len(trace) - res.n_points
+    rec.update(
+        period_he_T=res.period_he,
+        period_he_err_T=res.period_he_err,
+        frequency_he_per_T=res.frequency_he,
+        area_m2=res.area,
+        area_err_m2=res.area_err,
+        radius_m=res.radius,
+        radius_err_m=res.radius_err,
+        amplitude_he_e2h=res.amplitude_he_rms,
+        amplitude_h2e_e2h=res.amplitude_h2e_rms,
+        amplitude_he_pp_e2h=res.amplitude_he_pp,
+        amplitude_h2e_pp_e2h=res.amplitude_h2e_pp,
+        relative_amplitude_he=res.relative_amplitude_he,
+        relative_amplitude_h2e=res.relative_amplitude_h2e,
+        noise_he_rms_e2h=res.noise_he_rms,
+        noise_h2e_rms_e2h=res.noise_h2e_rms,
+        mean_conductance_e2h=res.mean_conductance,
+        peak_significance=res.peak_significance,
+        band_source=res.band_source,
+        bands_per_T={"h/e": list(res.bands[1]), "h/2e": list(res.bands[2])},
+        background=res.background.method if res.background is not None else "none",
+        background_gain_he=res.background_gain_he,
+        background_gain_h2e=res.background_gain_h2e,
+        n_points_used=res.n_points,
+        n_points_trimmed_background=trimmed,
+        n_points_dropped=report.n_dropped + trimmed,
+        notes=list(res.notes),
+    )
+    return rec
+
+
+def summary_lines(rec: dict[str, Any]) -> list[str]:
+    """Readable lines of one trace record."""
+    head = f"trace {rec['index']}: {rec['label']} ({rec['n_points_trace']} points"
+    if rec.get("temperature_K") is not None:
+        head += f", T = {rec['temperature_K']:g} K"
+    lines = [head + ")"]
+    if "error" in rec:
+        return [*lines, f"  not analysed: {rec['error']}"]
+
+    def num(x: float | None, fmt: str) -> str:
+        return "n/a" if x is None or not math.isfinite(x) else format(x, fmt)
+
+    b1, b2 = rec["bands_per_T"]["h/e"], rec["bands_per_T"]["h/2e"]
+    rel = rec["relative_amplitude_he"]
+    lines += [
+        f"  bands ({rec['band_source']}): h/e {b1[0]:.4g}-{b1[1]:.4g} 1/T, "
+        f"h/2e {b2[0]:.4g}-{b2[1]:.4g} 1/T",
+        f"  h/e period      {rec['period_he_T'] * 1e3:.5g} mT +- "
+        f"{rec['period_he_err_T'] * 1e3:.2g} mT",
+        f"  area            {rec['area_m2'] * 1e12:.5g} um^2 +- {rec['area_err_m2'] * 1e12:.2g}",
+        f"  radius          {rec['radius_m'] * 1e6:.5g} um +- {rec['radius_err_m'] * 1e6:.2g}",
+        f"  h/e amplitude   rms {num(rec['amplitude_he_e2h'], '.4g')} e^2/h, "
+        f"pp {num(rec['amplitude_he_pp_e2h'], '.4g')} e^2/h, dG/G = "
+        + ("n/a" if rel is None or not math.isfinite(rel) else f"{100 * rel:.3g} %"),
+        f"  h/2e amplitude  rms {num(rec['amplitude_h2e_e2h'], '.4g')} e^2/h, "
+        f"pp {num(rec['amplitude_h2e_pp_e2h'], '.4g')} e^2/h",
+        f"  noise in bands  {num(rec['noise_he_rms_e2h'], '.2g')} / "
+        f"{num(rec['noise_h2e_rms_e2h'], '.2g')} e^2/h rms; peak/floor "
+        f"{num(rec['peak_significance'], '.3g')}",
+        f"  points          {rec['n_points_used']} used, "
+        f"{rec['n_points_trimmed_background']} trimmed by the background",
+    ]
+    return lines + lab_lines(rec)

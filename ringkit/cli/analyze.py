@@ -13,8 +13,23 @@ entered the spectrum; ``n_points_dropped`` counts the rows of the file that the 
 dropped (NaN, unusable values, too-short sweeps; reasons in ``drop_reasons``) plus the
 points of that trace trimmed by the background removal (moving-average edges).
 
+Cross-checks (:mod:`ringkit.analysis.checks`; docs/measured-data.md "Cross-checks") run on
+every trace; their findings are in ``checks`` (level, code, message) and ``warnings``. A
+refusal of the reported trace (period outside the radii's band, no line above the noise
+floor, amplitude above the mean G, implausible G, rows with R below the series resistance)
+ends with exit status 2 unless ``--force``; unit options contradicting the header are
+refused by the loader unless ``--force``. Radii need a unit (``600nm``).
+
+Added keys (the keys above are unchanged): ``checks``, ``refused``; for resistance data
+``mean_resistance_ohm``, ``amplitude_he_ohm``, ``amplitude_h2e_ohm`` (rms dR),
+``amplitude_*_pp_ohm``, ``relative_he_percent``, ``relative_h2e_percent`` (dR/R);
+with ``--current/--noise/--bandwidth`` a ``detectability`` object (signal and in-band noise
+in V, S/N, ``exceeds_noise`` per band; :mod:`ringkit.analysis.labunits`); with
+``--group-by temperature`` an ``lphi_series`` object (points, fit values and errors,
+``lphi_ref_m``, ``lphi_ref_err_m``, path length, ``lphi_convention``).
+
 Bad input (unreadable or malformed file, unknown unit, field range too short, sampling too
-coarse) ends with one ``ringkit: error: ...`` line and exit status 2.
+coarse, a refused check) ends with one ``ringkit: error: ...`` line and exit status 2.
 """
 
 from __future__ import annotations
@@ -29,7 +44,7 @@ from pathlib import Path
 from typing import Any
 
 from ringkit.cli import UserError
-from ringkit.cli._analyze_text import lab_lines, series_lines
+from ringkit.cli._analyze_text import clean_json, series_lines, summary_lines, trace_record
 
 __all__ = ["register", "run", "parse_length"]
 
@@ -183,95 +198,6 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     p.set_defaults(func=run)
 
 
-def _clean(value: Any) -> Any:
-    if isinstance(value, dict):
-        return {str(k): _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
-        value = value.item()
-    if isinstance(value, float) and not math.isfinite(value):
-        return None
-    return value
-
-
-def _trace_record(index: int, trace, res, report, error: str | None) -> dict[str, Any]:
-    rec: dict[str, Any] = {
-        "index": index,
-        "label": trace.label,
-        "direction": trace.direction,
-        "temperature_K": trace.temperature,
-        "n_points_trace": len(trace),
-    }
-    if error is not None:
-        rec["error"] = error
-        return rec
-    trimmed = len(trace) - res.n_points
-    rec.update(
-        period_he_T=res.period_he,
-        period_he_err_T=res.period_he_err,
-        frequency_he_per_T=res.frequency_he,
-        area_m2=res.area,
-        area_err_m2=res.area_err,
-        radius_m=res.radius,
-        radius_err_m=res.radius_err,
-        amplitude_he_e2h=res.amplitude_he_rms,
-        amplitude_h2e_e2h=res.amplitude_h2e_rms,
-        amplitude_he_pp_e2h=res.amplitude_he_pp,
-        amplitude_h2e_pp_e2h=res.amplitude_h2e_pp,
-        relative_amplitude_he=res.relative_amplitude_he,
-        relative_amplitude_h2e=res.relative_amplitude_h2e,
-        noise_he_rms_e2h=res.noise_he_rms,
-        noise_h2e_rms_e2h=res.noise_h2e_rms,
-        mean_conductance_e2h=res.mean_conductance,
-        peak_significance=res.peak_significance,
-        band_source=res.band_source,
-        bands_per_T={"h/e": list(res.bands[1]), "h/2e": list(res.bands[2])},
-        background=res.background.method if res.background is not None else "none",
-        background_gain_he=res.background_gain_he,
-        background_gain_h2e=res.background_gain_h2e,
-        n_points_used=res.n_points,
-        n_points_trimmed_background=trimmed,
-        n_points_dropped=report.n_dropped + trimmed,
-        notes=list(res.notes),
-    )
-    return rec
-
-
-def _summary_lines(rec: dict[str, Any]) -> list[str]:
-    head = f"trace {rec['index']}: {rec['label']} ({rec['n_points_trace']} points"
-    if rec.get("temperature_K") is not None:
-        head += f", T = {rec['temperature_K']:g} K"
-    lines = [head + ")"]
-    if "error" in rec:
-        return [*lines, f"  not analysed: {rec['error']}"]
-
-    def num(x: float | None, fmt: str) -> str:
-        return "n/a" if x is None or not math.isfinite(x) else format(x, fmt)
-
-    b1, b2 = rec["bands_per_T"]["h/e"], rec["bands_per_T"]["h/2e"]
-    rel = rec["relative_amplitude_he"]
-    lines += [
-        f"  bands ({rec['band_source']}): h/e {b1[0]:.4g}-{b1[1]:.4g} 1/T, "
-        f"h/2e {b2[0]:.4g}-{b2[1]:.4g} 1/T",
-        f"  h/e period      {rec['period_he_T'] * 1e3:.5g} mT +- "
-        f"{rec['period_he_err_T'] * 1e3:.2g} mT",
-        f"  area            {rec['area_m2'] * 1e12:.5g} um^2 +- {rec['area_err_m2'] * 1e12:.2g}",
-        f"  radius          {rec['radius_m'] * 1e6:.5g} um +- {rec['radius_err_m'] * 1e6:.2g}",
-        f"  h/e amplitude   rms {num(rec['amplitude_he_e2h'], '.4g')} e^2/h, "
-        f"pp {num(rec['amplitude_he_pp_e2h'], '.4g')} e^2/h, dG/G = "
-        + ("n/a" if rel is None or not math.isfinite(rel) else f"{100 * rel:.3g} %"),
-        f"  h/2e amplitude  rms {num(rec['amplitude_h2e_e2h'], '.4g')} e^2/h, "
-        f"pp {num(rec['amplitude_h2e_pp_e2h'], '.4g')} e^2/h",
-        f"  noise in bands  {num(rec['noise_he_rms_e2h'], '.2g')} / "
-        f"{num(rec['noise_h2e_rms_e2h'], '.2g')} e^2/h rms; peak/floor "
-        f"{num(rec['peak_significance'], '.3g')}",
-        f"  points          {rec['n_points_used']} used, "
-        f"{rec['n_points_trimmed_background']} trimmed by the background",
-    ]
-    return lines + lab_lines(rec)
-
-
 def _load(args: argparse.Namespace, path: Path, series: bool):
     from ringkit.analysis import load_traces
 
@@ -393,7 +319,7 @@ def run(args: argparse.Namespace) -> int:
                 if i == args.trace:
                     raise UserError(f"{tr.label}: {err}") from err
                 res, error = None, str(err)
-            rec = _trace_record(i, tr, res, loaded.report, error)
+            rec = trace_record(i, tr, res, loaded.report, error)
             found = []
             if res is not None:
                 found = check_result(
@@ -447,13 +373,13 @@ def run(args: argparse.Namespace) -> int:
         )
         if lphi_series is not None:
             top["lphi_series"] = lphi_series
-        json.dump(_clean(top), sys.stdout, allow_nan=False)
+        json.dump(clean_json(top), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
         return 0
     print(f"file: {path}")
     print(report.summary())
     for rec in records:
-        print("\n".join(_summary_lines(rec)))
+        print("\n".join(summary_lines(rec)))
     if lphi_series is not None:
         print("\n".join(series_lines(lphi_series)))
     for m in messages:
