@@ -34,7 +34,7 @@ from scipy.optimize import OptimizeWarning, curve_fit
 
 from ringkit._validation import ParameterError, check_choice, check_positive
 from ringkit.analysis._common import Described
-from ringkit.analysis.fitting import (
+from ringkit.analysis._fitcore import (
     FitResult,
     _data,
     _mark_unconstrained,
