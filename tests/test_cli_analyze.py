@@ -328,6 +328,8 @@ def test_temperature_series_lphi_fit(capsys):
     assert main(["analyze", *series]) == 0
     assert "L_phi(T) from 6 temperatures" in capsys.readouterr().out
     assert "3 temperatures" in _fail(capsys, UPDOWN, "--group-by", "temperature")
+    d = _json(capsys, temps_file, "--group-by", "T (K)", "--r-in", "610nm", "--r-out", "650nm")
+    assert len(d["lphi_series"]["points"]) == 6  # a temperature column named by the user
 
 
 def test_non_finite_rows_reported_not_contradicted(tmp_path, capsys):

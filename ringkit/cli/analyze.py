@@ -336,19 +336,24 @@ def run(args: argparse.Namespace) -> int:
             findings.append(found)
             records.append(rec)
             results.append(res)
-    top_refusals = refusals(findings[args.trace])
-    if top_refusals and not args.force:
-        raise UserError(
-            f"{loaded.traces[args.trace].label}: {top_refusals[0].message} "
-            "(--force reports the numbers anyway)"
-        )
+        if args.group_by is not None and not series:  # a temperature column named by the user
+            series = all(
+                str(tr.metadata.get("temperature_source", "")).startswith("column")
+                for tr in loaded.traces
+            )
+        top_refusals = refusals(findings[args.trace])
+        if top_refusals and not args.force:
+            raise UserError(
+                f"{loaded.traces[args.trace].label}: {top_refusals[0].message} "
+                "(--force reports the numbers anyway)"
+            )
+        lphi_series = _series(args, loaded.traces, records) if series else None
     messages = list(dict.fromkeys(str(w.message) for w in caught))
     for tr, found in zip(loaded.traces, findings, strict=True):
         for f in found:
             prefix = "forced past refusal: " if f.level == "refuse" else ""
             messages.append(f"{tr.label}: {prefix}{f.message}")
     messages = list(dict.fromkeys(messages))
-    lphi_series = _series(args, loaded.traces, records) if series else None
     figures: list[str] = []
     if args.figures:
         out = Path(args.figures)
