@@ -1,7 +1,7 @@
 """Background removal: exactness of the one-period boxcar and the effect of each method.
 
 References outside the code under test: the boxcar transfer function sin(pi f w)/(pi f w)
-(closed form; physics notes §12.3), the transfer of a discrete kernel sum_j k_j cos(2 pi f j d)
+(closed form; docs/physics.md §12.3), the transfer of a discrete kernel sum_j k_j cos(2 pi f j d)
 computed here, Savitzky-Golay coefficients and polynomial projections built here from dense
 numpy least squares.
 """
@@ -14,7 +14,7 @@ import pytest
 from ringkit._validation import ParameterError
 from ringkit.analysis import oscillation_spectrum, remove_background
 
-P = 7.7366e-3  # T; h/e period of the Webb et al. ring at its mean radius (physics notes §2.1)
+P = 7.7366e-3  # T; h/e period of the Webb et al. ring at its mean radius (docs/physics.md §2.1)
 
 
 def _osc(b):
@@ -32,7 +32,7 @@ def test_one_period_boxcar_leaves_he_and_h2e_intact(samples_per_period):
     background = 50.0 + 30.0 * b  # linear: a symmetric kernel reproduces it exactly
     res = remove_background(b, _osc(b) + background, method="moving_average", period=P)
     v = res.valid
-    # physics notes §12.3 found 7e-17 for this construction
+    # docs/physics.md §12.3: a residual of 7e-17 was computed for this construction
     assert np.max(np.abs(res.residual[v] - _osc(b)[v])) < 1e-12
     taps = res.parameters["kernel_taps"]
     assert res.n_valid == b.size - taps + 1

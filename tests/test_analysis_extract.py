@@ -1,6 +1,6 @@
 """extract_oscillations on synthetic traces with known answers, and published ring sizes.
 
-Published check values (physics notes §2.1, §2.3, §13):
+Published check values (docs/physics.md §2.1, §2.3, §14):
 * Webb, Washburn, Umbach, Laibowitz, Phys. Rev. Lett. 54, 2696 (1985), Au ring: inner
   diameter 784 nm, wire width 41 nm, observed h/e period 7.6 mT -- all three numbers FROM
   MEMORY (paper title/abstract verified). Mean radius 412.5 nm -> 7.7366 mT [computed].
@@ -97,7 +97,7 @@ def test_without_geometry_uses_dominant_peak():
 
 
 def test_ensemble_average_with_geometry_takes_area_from_h2e():
-    """h/e averages out over disorder, h/2e (AAS) survives (physics notes §9.1)."""
+    """h/e averages out over disorder, h/2e (AAS) survives (docs/physics.md §9.1)."""
     rng = np.random.default_rng(6)
     r_true = 0.63e-6
     f1 = np.pi * r_true**2 / PHI0
@@ -167,7 +167,7 @@ def test_webb_ring_published_period():
     res = extract_oscillations(b, g, r_in=392e-9, r_out=433e-9)
     assert res.period_he == pytest.approx(observed, rel=2e-3)
     assert 392e-9 <= res.radius <= 433e-9  # inside the lithographic ring
-    assert res.radius == pytest.approx(416.2e-9, rel=5e-3)  # physics notes §2.1 [C]
+    assert res.radius == pytest.approx(416.2e-9, rel=5e-3)  # docs/physics.md §2.1 [C]
     # tolerance of the published comparison: observed vs mean-radius period within 3 %
     assert abs(res.period_he / period_mean - 1) < 0.03
 

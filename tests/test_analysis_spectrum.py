@@ -1,7 +1,7 @@
 """Spectrum conventions of ringkit.analysis.spectrum against closed forms and Parseval.
 
 Check values: a cosine A cos(2 pi f B + phi) must give amplitude A, phase phi and band rms
-A/sqrt(2) (definition of the convention, physics notes §12.4-12.5); window gains of Hann are
+A/sqrt(2) (definition of the convention, docs/physics.md §12.4-12.5); window gains of Hann are
 closed forms (mean w = 1/2, mean w^2 = 3/8 for N -> inf; ENBW 1.5 bins); band edges of the
 Webb et al. ring are arithmetic from its (recalled) geometry.
 """
@@ -47,7 +47,7 @@ def test_on_bin_cosine_amplitude_phase_and_band_rms(window):
 
 def test_off_bin_cosine_band_rms_and_scalloping_bound():
     b = np.linspace(0.0, 0.6, 3001)
-    a, f0 = 0.2, 129.26  # Webb mean-radius h/e frequency (physics notes §2.1), off-bin
+    a, f0 = 0.2, 129.26  # Webb mean-radius h/e frequency (docs/physics.md §2.1), off-bin
     sp = oscillation_spectrum(b, _cos(b, a, f0, 0.3))
     assert sp.band_rms((120.0, 140.0)) == pytest.approx(a / np.sqrt(2), rel=1e-4)
     f_peak, a_peak = sp.peak((110.0, 150.0))
@@ -93,7 +93,8 @@ def test_lombscargle_exact_amplitude_and_phase_on_its_grid():
 
 
 def test_lombscargle_with_gap_finds_line():
-    """Tooling notes §5: a 0.2 T hole in the sweep; Lomb-Scargle keeps the right peak."""
+    """A 0.2 T hole in the sweep; Lomb-Scargle keeps the right peak (Lomb, Astrophys. Space
+    Sci. 39, 447 (1976); docs/physics.md §12.4)."""
     rng = np.random.default_rng(3)
     b = np.sort(rng.uniform(-0.5, 0.5, 2000))
     b = b[(b < -0.1) | (b > 0.1)]
@@ -118,7 +119,7 @@ def test_parseval_rectangular_window():
 
 def test_hann_window_numbers():
     # closed forms for N -> inf: mean w = 1/2, mean w^2 = 3/8, ENBW = 1.5 bins, first null
-    # of the transform at 2 bins (physics notes §12.4: 0.49988 and 1.5004 at N = 4096)
+    # of the transform at 2 bins (docs/physics.md §12.4: 0.49988 and 1.5004 at N = 4096)
     wp = window_properties("hann")
     assert wp["coherent_gain"] == pytest.approx(0.5, rel=3e-3)
     assert wp["power_gain"] == pytest.approx(0.375, rel=3e-3)
@@ -130,7 +131,7 @@ def test_hann_window_numbers():
 
 
 def test_frequency_axis_area_and_radius():
-    # 1 um^2 <-> f = 241.7989 1/T (physics notes §1.2, [C] from h/e)
+    # 1 um^2 <-> f = 241.7989 1/T (docs/physics.md §1.2, [C] from h/e)
     area = 1e-12
     f0 = area / PHI0
     assert f0 == pytest.approx(241.7989, rel=1e-6)
@@ -144,7 +145,7 @@ def test_frequency_axis_area_and_radius():
 
 def test_ab_bands_webb_ring():
     # Webb et al., PRL 54, 2696 (1985): inner diameter 784 nm, width 41 nm (geometry from
-    # memory); band edges are arithmetic from it (physics notes §12.4): h/e 116.7-142.4,
+    # memory); band edges are arithmetic from it (docs/physics.md §12.4): h/e 116.7-142.4,
     # h/2e 233.5-284.9 1/T
     bands = ab_bands(392e-9, 433e-9)
     assert bands[1] == pytest.approx((116.73, 142.42), rel=1e-3)

@@ -15,7 +15,7 @@ against closed forms):
 * ``"moving_average"`` (boxcar of width ``w = periods * period``): background transfer
   ``sin(pi f w)/(pi f w)``, so ``g(f) = 1 - sinc(f w)``. It is exactly 1 at ``f = n/w``:
   a boxcar of exactly one h/e period leaves the h/e line and all its harmonics (h/2e, ...)
-  intact (physics notes §12.3). Between those frequencies it is not 1: ``g = 0.89`` at
+  intact (docs/physics.md §12.3). Between those frequencies it is not 1: ``g = 0.89`` at
   ``0.9/w`` and ``1.09`` at ``1.1/w``, i.e. +-10 % across a wide h/e band, and a
   low-frequency part is removed (``g = 0.36`` at ``0.5/w``). The first and last half
   window are undefined (``valid`` is False there). Best for thin rings with a known period.

@@ -15,7 +15,7 @@ A pure cosine ``A cos(2 pi f0 B + phi)`` produces
   ``pad`` to interpolate the spectrum),
 * ``phase`` = phi (referred to B = 0),
 * ``band_rms(band)`` = A/sqrt(2) for any band that contains f0 (Parseval: the variance in the
-  band, corrected for the window's power gain mean(w^2), physics notes §12.4-12.5), on a
+  band, corrected for the window's power gain mean(w^2), docs/physics.md §12.4-12.5), on a
   uniform grid and on an uneven one (interpolated, or Lomb-Scargle).
 
 ``power`` holds the variance of the signal per frequency bin (signal units squared); with a
@@ -255,7 +255,7 @@ def ab_bands(
     """Frequency bands (1/T) of the h/(n e) oscillations of a ring of finite width.
 
     Paths enclose areas between ``pi r_in^2`` and ``pi r_out^2``, so the n-th band is
-    ``[n pi r_in^2/(h/e), n pi r_out^2/(h/e)]`` (physics notes §1.3). Order 1 is h/e, order
+    ``[n pi r_in^2/(h/e), n pi r_out^2/(h/e)]`` (docs/physics.md §1.3). Order 1 is h/e, order
     2 is h/2e (AAS and second h/e harmonic).
 
     Parameters
