@@ -352,7 +352,7 @@ def test_header_temperatures_read_exactly(tmp_path, text, kelvin):
 def test_negative_header_temperature_refused(tmp_path):
     p = tmp_path / "run.csv"
     p.write_text("# T = -5 K\nB (T),R (Ohm)\n" + _rows(B10, R10))
-    with pytest.raises(TraceFormatError, match=r"run.csv, line 1: .*-5 K.*negative"):
+    with pytest.raises(TraceFormatError, match=r"run.csv, line 1: .*-5 K.*not positive"):
         load_traces(p)
     (tr,) = load_traces(p, temperature=0.05).traces  # the option overrides the header
     assert tr.temperature == 0.05
@@ -401,6 +401,15 @@ def test_no_non_finite_value_reaches_a_trace(tmp_path):
     assert res2.report.n_dropped == 2
     for tr in (*res.traces, *res2.traces):
         assert np.all(np.isfinite(tr.conductance)) and np.all(np.isfinite(tr.field))
+
+
+def test_signal_or_group_column_equal_to_the_field_column_refused(tmp_path):
+    p = tmp_path / "same.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    with pytest.raises(ParameterError, match="signal = 'B \\(T\\)'.*also the field column"):
+        load_traces(p, signal=0)
+    with pytest.raises(ParameterError, match="group_by"):
+        load_traces(p, group_by="B")
 
 
 def test_duplicate_column_labels_disambiguated(tmp_path):

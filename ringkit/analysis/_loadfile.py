@@ -83,7 +83,7 @@ def _file_temperature(
         if key in ("T", "T_mc", "T_sample") or key.lower() in _TEMP_KEYS:
             kelvin, problem = header_temperature(value)
             where = f"{path}, line {table.meta_lines[key]}"
-            if problem is not None and "negative" in problem:
+            if problem is not None and "not positive" in problem:
                 raise TraceFormatError(
                     f"{where}: header {key} = {value!r}: {problem}; "
                     "fix the header or give the temperature option (--temperature)"
@@ -164,6 +164,13 @@ def load_file(path: Path, tally: Tally, o: dict) -> list[dict]:
     else:
         specs = o["signal"] if isinstance(o["signal"], (list, tuple)) else [o["signal"]]
         js = [_pick(sp, infos, path, "signal") for sp in specs]
+    for name, col in (("group_by", jg), *(("signal", j) for j in js)):
+        if col is not None and (col == jf or (name == "signal" and col == jg)):
+            raise ParameterError(
+                name,
+                infos[col].label,
+                f"is also the {'field' if col == jf else 'group_by'} column of {path.name}",
+            )
     file_temp, temp_source, temp_caveat = _file_temperature(path, table, o["temperature"])
     if temp_caveat:
         tally.caveats.append(temp_caveat)

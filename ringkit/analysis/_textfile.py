@@ -75,8 +75,10 @@ def header_temperature(value: str) -> tuple[float | None, str | None]:
     v = _to_float(m["num"])
     if m["unit"] is None:
         return None, f"temperature {value!r} has no unit (write K or mK)"
-    if not np.isfinite(v) or v < 0:
-        return None, f"temperature {value!r} is negative (absolute temperatures are >= 0 K)"
+    if not np.isfinite(v):
+        return None, f"cannot read {value!r} as a temperature (not finite)"
+    if v <= 0:
+        return None, f"temperature {value!r} is not positive (absolute temperatures are > 0 K)"
     return v * (1e-3 if m["unit"] == "mK" else 1.0), None
 
 
