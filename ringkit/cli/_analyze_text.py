@@ -12,6 +12,16 @@ def _num(x: float | None, fmt: str) -> str:
     return "n/a" if x is None or not math.isfinite(x) else format(x, fmt)
 
 
+def _si(x: float | None, unit: str) -> str:
+    """``x`` with an SI prefix (p, n, u, m) and 3 significant digits, e.g. ``912 nV``."""
+    if x is None or not math.isfinite(x):
+        return "n/a"
+    for factor, prefix in ((1.0, ""), (1e-3, "m"), (1e-6, "u"), (1e-9, "n"), (1e-12, "p")):
+        if abs(x) >= factor:
+            return f"{x / factor:.3g} {prefix}{unit}"
+    return f"{x / 1e-15:.3g} f{unit}"
+
+
 def lab_lines(rec: dict[str, Any]) -> list[str]:
     """dR/R lines, detectability verdicts and cross-check findings of one trace record."""
     lines: list[str] = []
@@ -29,11 +39,9 @@ def lab_lines(rec: dict[str, Any]) -> list[str]:
             d = det[key]
             verdict = "exceeds" if d["exceeds_noise"] else "does NOT exceed"
             lines.append(
-                f"  {name:<5} at {det['current_A'] * 1e9:.3g} nA: "
-                f"{_num(d['signal_rms_V'] * 1e9, '.3g')} nV rms {verdict} the noise floor "
-                f"({_num(d['noise_in_band_V'] * 1e9, '.2g')} nV in band, S/N "
-                f"{_num(d['snr_in_band'], '.3g')}; per reading "
-                f"{_num(d['snr_per_reading'], '.2g')})"
+                f"  {name:<5} at {_si(det['current_A'], 'A')}: {_si(d['signal_rms_V'], 'V')} "
+                f"rms {verdict} the noise floor ({_si(d['noise_in_band_V'], 'V')} in band, S/N "
+                f"{_num(d['snr_in_band'], '.3g')}; per reading {_num(d['snr_per_reading'], '.2g')})"
             )
     for f in rec.get("checks", ()):
         lines.append(f"  check ({f['level']}): {f['message']}")
