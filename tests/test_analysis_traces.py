@@ -412,6 +412,19 @@ def test_signal_or_group_column_equal_to_the_field_column_refused(tmp_path):
         load_traces(p, group_by="B")
 
 
+def test_units_line_under_the_header(tmp_path):
+    p = tmp_path / "units.csv"
+    p.write_text(
+        "B,R,I\nmT,kOhm,\n"
+        + "".join(f"{b},{r / 1000},1e-8\n" for b, r in zip(B10, R10, strict=True))
+    )
+    res = load_traces(p)
+    (tr,) = res.traces
+    assert tr.metadata["column"] == "R (kOhm)" and res.report.n_points == 10
+    assert tr.field == pytest.approx(np.array(B10) * 1e-3, rel=1e-12)
+    assert tr.conductance == pytest.approx(1 / (np.array(R10) * E2H), rel=1e-12)
+
+
 def test_duplicate_column_labels_disambiguated(tmp_path):
     p = tmp_path / "dup.csv"
     p.write_text("B (T),R (Ohm),R (Ohm)\n" + "".join(f"{b},{1000 + b},{2000 + b}\n" for b in B10))

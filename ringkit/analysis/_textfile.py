@@ -7,7 +7,8 @@ empty and NaN tokens. Rules (docs/measured-data.md, "Loader rules"):
 * only regular files are opened (devices, FIFOs and sockets are refused without reading),
   and at most ``max_bytes`` are read;
 * the first non-comment line is a header only if none of its tokens is a number; a mixed
-  line such as ``0.001,abc`` is a data row, and an unreadable token refuses the file;
+  line such as ``0.001,abc`` is a data row, and an unreadable token refuses the file; a
+  line of units under the header (``mT,kOhm``) is joined to the labels (``B (mT)``);
 * numbers follow one strict grammar (``[+-]digits[.digits][e[+-]digits]``, or the decimal
   comma); ``inf``/``nan``/empty tokens are kept as NaN and dropped later with a reason;
 * a row without any value (blank, or delimiters only) after the header or first data row
@@ -161,6 +162,16 @@ class Table:
     header_line: int | None
 
 
+def _unit_row(tokens: list[str]) -> list[str] | None:
+    """Units of a line such as ``mT, Ohm`` or ``[T] (kOhm)`` under a header, else None."""
+    from ringkit.analysis._columns import parse_unit
+
+    units = [t.strip("()[] ") for t in _strip_trailing(tokens, 0)]
+    if not any(units) or not all(u == "" or parse_unit(u) is not None for u in units):
+        return None
+    return units
+
+
 def _is_header(tokens: list[str], number: re.Pattern) -> bool:
     tokens = _strip_trailing(tokens, 0)
     return bool(tokens) and all(
@@ -214,6 +225,9 @@ def read_table(
         header_line = split_rows[0][0]
         header_text = rows[[n for n, _ in rows].index(header_line)][1]
         split_rows = split_rows[1:]
+        unit_row = _unit_row(split_rows[0][1]) if split_rows else None
+        if unit_row is not None:  # "B,R" then "mT,Ohm": a units line under the header
+            split_rows = split_rows[1:]
         while split_rows and not any(split_rows[-1][1]):
             split_rows.pop()
         if not split_rows:
@@ -222,6 +236,13 @@ def read_table(
     ncol = max(set(counts), key=lambda c: (counts.count(c), c))  # most common row length
     if header_line is not None:
         labels = _strip_trailing(_split_header(header_text, delimiter, ncol), 0)
+        if unit_row is not None and len(unit_row) > len(labels):
+            raise TraceFormatError(
+                f"{path}, line {header_line + 1}: {len(unit_row)} units for {len(labels)} labels"
+            )
+        if unit_row is not None:
+            units = unit_row + [""] * (len(labels) - len(unit_row))
+            labels = [f"{x} ({u})" if u else x for x, u in zip(labels, units, strict=True)]
         if len(labels) != ncol:
             raise TraceFormatError(
                 f"{path}, line {header_line}: header has {len(labels)} labels but the data "
