@@ -226,6 +226,7 @@ def read_table(
         header_text = rows[[n for n, _ in rows].index(header_line)][1]
         split_rows = split_rows[1:]
         unit_row = _unit_row(split_rows[0][1]) if split_rows else None
+        unit_line = split_rows[0][0] if split_rows else None
         if unit_row is not None:  # "B,R" then "mT,Ohm": a units line under the header
             split_rows = split_rows[1:]
         while split_rows and not any(split_rows[-1][1]):
@@ -238,7 +239,7 @@ def read_table(
         labels = _strip_trailing(_split_header(header_text, delimiter, ncol), 0)
         if unit_row is not None and len(unit_row) > len(labels):
             raise TraceFormatError(
-                f"{path}, line {header_line + 1}: {len(unit_row)} units for {len(labels)} labels"
+                f"{path}, line {unit_line}: {len(unit_row)} units for {len(labels)} labels"
             )
         if unit_row is not None:
             units = unit_row + [""] * (len(labels) - len(unit_row))
