@@ -437,6 +437,17 @@ def test_example_config_prints_a_valid_study(tmp_path):
         ),
         (TINY.replace('"5.5 meV"', '"500 meV"'), "must lie inside the lattice band"),
         (TINY.replace("probes = 8", "probes = 5000"), "too many probes"),
+        # issue 16, point 7: absurd physical values are refused at set-up, naming the key
+        (
+            TINY.replace('"250 nm"', '"1 nm"'),
+            "material.mean_free_path = '1 nm' is not allowed: gives an elastic mean free path",
+        ),
+        (
+            TINY.replace('"300 nm"]', '"30 nm"]'),
+            "sweep.dephasing_length[1] = '30 nm' is not allowed: must be >= the spacing of "
+            "the 8 dephasing probes",
+        ),
+        (TINY.replace('"70 nm"', "70"), 'geometry.r_in = 70 has no unit; write "70 nm"'),
     ],
 )
 def test_errors_are_one_line_without_traceback(tmp_path, text, fragment):
@@ -473,3 +484,186 @@ def test_error_in_a_real_process_and_debug_traceback(tmp_path):
     p = subprocess.run([*RINGKIT, "study", str(tmp_path / "none.toml"), "--out", "x"],
                        capture_output=True, text=True, timeout=60)  # fmt: skip
     assert p.returncode == 2 and "study file not found" in p.stderr
+
+
+# ----------------------------------------------------------------------------- issue 16, point 7
+def test_cost_estimate_is_printed_and_long_studies_need_yes(tiny_file, tmp_path):
+    out = tmp_path / "big"
+    rc, _, err = run_cli(
+        "study", str(tiny_file), "--out", str(out),
+        "--set", "ensemble.realizations=100000", "--set", 'executor.kind="serial"',
+    )  # fmt: skip
+    assert rc == 2 and "above the 30 min confirmation limit; pass --yes" in err, err
+    assert "cost: " in err and "memory: " in err and "per worker" in err
+    assert not list((out / "checkpoint" / "units").glob("*.npz"))  # nothing computed
+    # with --yes a study above the limit runs
+    rc, _, err = run_cli(
+        "study", str(tiny_file), "--out", str(tmp_path / "small"), "--confirm-above", "0",
+        "--yes", "--set", "ensemble.realizations=1", "--set", 'sweep.dephasing_length="inf"',
+        "--set", 'executor.kind="serial"',
+    )  # fmt: skip
+    assert rc == 0, err
+    assert "cost: 9 energy sweeps" in err  # 1 + 9 thermal energies, the T = 0 one shared
+
+
+def test_workers_are_capped_at_the_cores(tiny_file, tmp_path, monkeypatch):
+    from ringkit.study import cost
+
+    monkeypatch.setattr(cost, "cpu_count", lambda: 2)
+    rc, _, err = run_cli("study", str(tiny_file), "--out", str(tmp_path / "w"), "--workers", "8")
+    assert rc == 2 and "--workers 8 is more than the 2 cores" in err
+    assert "--oversubscribe" in err and err.count("\n") == 1
+    rc, _, err = run_cli("study", str(tiny_file), "--out", str(tmp_path / "w"), "--workers", "0")
+    assert rc == 2 and "--workers = 0 is not allowed" in err
+
+
+def test_progress_counts_work_not_units(reference, tiny_file):
+    """The bar advances by each unit's estimated cost (the ETA of uneven units holds)."""
+    from ringkit.study.plan import make_plan
+    from ringkit.study.runner import _WorkBar
+
+    plan = make_plan(load_config(tiny_file))
+    weights = {u.uid: (5.0 if u.index[3] else 1.0) for u in plan.units}  # dephased: 5x
+    bar = _WorkBar(plan, list(plan.units[2:]), 2, weights, progress=False)
+    assert bar.total == pytest.approx(sum(weights.values())) == 3 * 1 + 3 * 5
+    assert bar.work_done == pytest.approx(weights[plan.uids[0]] + weights[plan.uids[1]]) == 6
+    bar.done(plan.uids[3])
+    assert bar.work_done == pytest.approx(1 + 5 + 5) and bar.n_done == 3
+
+
+def test_failed_final_write_leaves_no_temporary_file_and_resumes(reference, tmp_path, monkeypatch):
+    """A full disk while writing results.nc (OSError ENOSPC): one line saying how to resume,
+    no temporary file, the checkpoint intact; the same command then writes the outputs."""
+    import errno
+    import shutil
+
+    from ringkit.study import checkpoint, report
+
+    out = tmp_path / "full"
+    shutil.copytree(reference / "checkpoint", out / "checkpoint")
+    real = checkpoint.atomic_write_bytes
+
+    def full_disk(*_args, **_kw):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    def writer(path, data):  # the real writer, failing in its last step
+        if path.name != "results.nc":
+            return real(path, data)
+        with monkeypatch.context() as m:
+            m.setattr(checkpoint.os, "replace", full_disk)
+            return real(path, data)
+
+    monkeypatch.setattr(report, "_write_file", writer)
+    args = ("study", str(reference.parent / "tiny.toml"), "--out", str(out), "--quiet")
+    rc, _, err = run_cli(*args, "--set", 'executor.kind="serial"')
+    assert rc == 2 and err.count("\n") == 1, err
+    assert "No space left on device" in err and "run the same command again" in err
+    assert not [p.name for p in out.iterdir() if p.name.endswith(".tmp")]
+    assert not (out / "results.nc").exists()
+    monkeypatch.setattr(report, "_write_file", real)
+    rc, _, err = run_cli(*args[:-1], "--set", 'executor.kind="serial"')
+    assert rc == 0 and "6 from the checkpoint, 0 to compute" in err
+    a = xr.load_dataset(reference / "results.nc", engine="h5netcdf")
+    b = xr.load_dataset(out / "results.nc", engine="h5netcdf")
+    np.testing.assert_array_equal(a["G"].values, b["G"].values)
+
+
+def test_broken_unit_message(reference, tmp_path):
+    import shutil
+
+    out = tmp_path / "broken2"
+    shutil.copytree(reference / "checkpoint", out / "checkpoint")
+    shutil.copy(reference / "results.nc", out / "results.nc")
+    unit = out / "checkpoint" / "units" / "r0000-e00-g00-d00.npz"
+    unit.write_bytes(b"not a unit")
+    rc, _, err = run_cli(
+        "study", str(reference.parent / "tiny.toml"), "--out", str(out),
+        "--set", 'executor.kind="serial"', "--set", "output.figures=false",
+    )  # fmt: skip
+    assert rc == 0, err
+    lines = [ln for ln in err.splitlines() if "r0000-e00-g00-d00.npz" in ln]
+    assert len(lines) == 1 and "not a zip archive" in lines[0] and "computed again" in lines[0]
+    assert "allow_pickle" not in err and "Traceback" not in err
+    assert "5 from the checkpoint, 1 to compute" in err
+    a = xr.load_dataset(reference / "results.nc", engine="h5netcdf")
+    b = xr.load_dataset(out / "results.nc", engine="h5netcdf")
+    np.testing.assert_array_equal(a["G"].values, b["G"].values)  # recomputed bit for bit
+
+
+# ----------------------------------------------------------------------------- issue 11, point 6
+def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypatch):
+    """Flux-tube unit at 1 K with probes: one FluxTubeModel evaluation and one L_phi mapping
+    for all 9 energies (it rebuilt both at every energy), BLAS limited to one thread, and at
+    T = 0 the library's fast_field_conductance with the same probes (mapping at E_F)."""
+    import threadpoolctl
+
+    from ringkit.study import compute
+    from ringkit.study.plan import make_plan
+    from ringkit.transport import lowrank, probes
+    from ringkit.transport.sweep import fast_field_conductance
+
+    text = TINY.replace('start = "-1.2 T"', 'mode = "flux_tube"\nstart = "-2 h/e"')
+    cfg = parse_config(text.replace('stop = "1.2 T"', 'stop = "2 h/e"'))
+    plan = make_plan(cfg.with_overrides({"ensemble.realizations": 1}))
+    counts = {"model": 0, "attach": 0}
+    threads: list[int] = []
+    real_init, real_attach = lowrank.FluxTubeModel.__init__, probes.attach_probes
+    real_conductance = compute.UnitEngine.conductance
+
+    def init(self, *a, **k):
+        counts["model"] += 1
+        real_init(self, *a, **k)
+
+    def attach(*a, **k):
+        counts["attach"] += 1
+        return real_attach(*a, **k)
+
+    def conductance(self, e):
+        info = threadpoolctl.threadpool_info()
+        threads.extend(i["num_threads"] for i in info if i["user_api"] == "blas")
+        return real_conductance(self, e)
+
+    monkeypatch.setattr(lowrank.FluxTubeModel, "__init__", init)
+    monkeypatch.setattr(probes, "attach_probes", attach)
+    monkeypatch.setattr(compute.UnitEngine, "conductance", conductance)
+    compute.clear_cache()
+    unit = next(u for u in plan.units if np.isfinite(u.dephasing_length))
+    res = compute.compute_unit(compute.make_tasks(plan, [unit])[0])
+    assert res.info["n_energies_total"] == 9 and res.n_energies == (1, 9)
+    assert counts == {"model": 1, "attach": 1}
+    assert threads and set(threads) == {1}
+    ring = compute.state_for(compute.make_tasks(plan, [unit])[0]).ring
+    lib = fast_field_conductance(
+        ring, plan.field, energy=ring.fermi_energy, l_phi=unit.dephasing_length, n_probes=8
+    )
+    # same mapping at E_F; the study rounds eta to 8 digits (bit-for-bit resumes)
+    np.testing.assert_allclose(res.conductance[0], lib.conductance, rtol=0, atol=1e-6)
+    compute.clear_cache()
+
+
+# ----------------------------------------------------------------------------- reports, demo
+def test_report_in_lab_units_with_caution_and_modes(reference):
+    report = (reference / "report.md").read_text()
+    head = report.splitlines()[:4]
+    assert any(line.startswith("*Laboratory caution:") for line in head)
+    # modes per arm: the lattice count equals kwant's open lead channels (leads have the arm
+    # width); the continuum hard-wall count floor(kF W/pi) for GaAs m* = 0.067 (preset),
+    # E_F = 5.5 meV, W = 28 nm is 0 (kF W/pi = 0.88): the 4-site strip acts 5 a = 35 nm wide
+    assert "| transverse modes per arm (lattice strip of the narrowest arm's width" in report
+    assert "at E_F) | 1 |" in report and "floor(kF W/pi) | 0 |" in report
+    kf = math.sqrt(2 * 0.067 * sc.m_e * 5.5e-3 * sc.eV) / sc.hbar
+    assert math.floor(kf * 28e-9 / math.pi) == 0 and math.floor(kf * 35e-9 / math.pi) == 1
+    assert "| open channels per lead on the lattice at E_F | 1 |" in report
+    assert "| sheet density | 1.539e+11 cm^-2 |" in report  # n = m* E_F / (pi hbar^2)
+    assert 0.067 * sc.m_e * 5.5e-3 * sc.eV / (math.pi * sc.hbar**2) * 1e-4 == pytest.approx(
+        1.54e11, rel=2e-3
+    )
+    assert "[J]" not in report and "[1/m]" not in report  # lab units, not SI keys
+    assert '| geometry.r_in | "70 nm" |' in report  # echoed as written
+
+
+def test_demo_folder_matches_readme():
+    from ringkit.cli.demo import DEFAULT_OUT
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    assert DEFAULT_OUT == "ringkit-demo-output" and DEFAULT_OUT in readme

@@ -315,3 +315,193 @@ def test_checkpoint_roundtrip_resume_and_refusal(tmp_path):
     assert Checkpoint.open(tmp_path, same).done() == {plan.uids[0]}
     # --restart discards it
     assert Checkpoint.open(tmp_path, other, restart=True).done() == set()
+
+
+# ----------------------------------------------------------------------------- issue 16 (6, 7)
+def test_bare_number_for_a_dimensional_key_says_which_unit_to_write():
+    """``radius = 300`` was read as 300 m; now it is refused with the unit to write."""
+    text = '[geometry]\nradius = 300\nwidth = "60 nm"\n[field]\nstart = "-1 mT"\nstop = "1 mT"'
+    with pytest.raises(QuantityError) as info:
+        parse_config(text)
+    assert 'geometry.radius = 300 has no unit; write "300 nm"' in str(info.value)
+    with pytest.raises(QuantityError, match='field.stop = 0.2 has no unit; write "0.2 mT"'):
+        parse_config(MINIMAL.replace('stop = "0.2 T"', "stop = 0.2"))
+    # 0 means the same in every unit
+    assert cfg("[sweep]\ntemperature = 0")["sweep"]["temperature"] == (0.0,)
+
+
+@pytest.mark.parametrize(
+    ("overrides", "fragment"),
+    [
+        ({"sweep.dephasing_length": "1e-30 nm"}, "sweep.dephasing_length[0] = '1e-30 nm'"),
+        ({"geometry.r_in": "5e-324 m"}, "geometry.r_in = '5e-324 m'"),
+        ({"sweep.temperature": "5e-324 K"}, "sweep.temperature[0] = '5e-324 K'"),
+        ({"material.mean_free_path": "1e-30 nm"}, "material.mean_free_path = '1e-30 nm'"),
+        ({"material.effective_mass": 5e-324}, "material.effective_mass = 5e-324"),
+        ({"sweep.dephasing_length": math.nan}, "sweep.dephasing_length[0] = nan"),
+        ({"sweep.dephasing_length": "-inf"}, "sweep.dephasing_length[0] = '-inf'"),
+    ],
+)
+def test_absurd_values_are_refused_when_the_file_is_read(overrides, fragment):
+    with pytest.raises(ValueError) as info:
+        parse_config(MINIMAL, overrides=overrides)
+    assert fragment in str(info.value)
+
+
+def test_echoed_keys_show_what_the_user_wrote():
+    c = parse_config(
+        '[geometry]\nradius = "0.5 um"  # mean radius\nwidth = "120 nm"\n'
+        '[field]\nstart = "-20 mT"\nstop = "0.02 T"\n',
+        overrides={"sweep.temperature": ["300 mK", "1 K"]},
+    )
+    rows = {k: v for k, v, _ in c.describe()}
+    assert rows["geometry.radius"] == '"0.5 um"'
+    assert rows["geometry.r_in"] == "(derived) 440 nm"
+    assert rows["field.start"] == '"-20 mT"'
+    assert rows["field.stop"] == '"0.02 T" (20 mT)'
+    assert rows["sweep.temperature"] == '["300 mK", "1 K"]'
+    assert rows["field.points"] == "(default) 401"
+    assert 'radius = "0.5 um"' in c.text and "sweep.temperature" in c.text
+
+
+# ----------------------------------------------------------------------------- checkpoint
+def _unit_file(tmp_path):
+    plan = make_plan(cfg("[ensemble]\nrealizations = 2"))
+    ck = Checkpoint.open(tmp_path, plan)
+    g = np.linspace(0, 1, 401)[None, :]
+    ck.save(UnitResult(plan.uids[0], g, (1,), 0.5, {}))
+    ck.save(UnitResult(plan.uids[1], g, (1,), 0.5, {}))
+    return plan, ck
+
+
+def _npz(members: dict[str, bytes]) -> bytes:
+    import io
+    import zipfile
+
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w") as zf:
+        for name, data in members.items():
+            zf.writestr(name, data)
+    return buf.getvalue()
+
+
+def _npy_header(descr: str, shape: tuple) -> bytes:
+    import io
+
+    buf = io.BytesIO()
+    np.lib.format.write_array_header_1_0(
+        buf, {"descr": descr, "fortran_order": False, "shape": shape}
+    )
+    return buf.getvalue()
+
+
+def _meta(uid: str, fp: str, depth: int = 0) -> bytes:
+    import io
+
+    text = json.dumps({"uid": uid, "fingerprint": fp, "n_energies": [1], "elapsed": 1.0})
+    if depth:
+        text = "[" * depth + "]" * depth
+    buf = io.BytesIO()
+    np.save(buf, np.array(text))
+    return buf.getvalue()
+
+
+@pytest.mark.parametrize(
+    "kind", ["not_zip", "bad_zip", "deep_meta", "huge_header", "pickled", "wrong_shape"]
+)
+def test_broken_checkpoint_unit_is_named_in_one_line_and_set_aside(tmp_path, kind):
+    """Crafted or broken unit files (issue 16, point 7): one line naming the file, no
+    traceback, no numpy ``allow_pickle`` advice, nothing allocated from a crafted header."""
+    import io
+
+    plan, ck = _unit_file(tmp_path)
+    uid = plan.uids[0]
+    path = ck.path(uid)
+    good = io.BytesIO()
+    np.save(good, np.zeros((1, 401)))
+    meta = _meta(uid, ck.fingerprint)
+    if kind == "not_zip":
+        import pickle
+
+        data = pickle.dumps({"conductance": [1.0]})
+    elif kind == "bad_zip":
+        data = path.read_bytes()[:100]
+    elif kind == "deep_meta":
+        data = _npz({"conductance.npy": good.getvalue(), "meta.npy": _meta(uid, "", 100_000)})
+    elif kind == "huge_header":  # a header that claims 745 GiB
+        big = _npy_header("<f8", (1, 100_000_000_000)) + b"\0" * 64
+        data = _npz({"conductance.npy": big, "meta.npy": meta})
+    elif kind == "pickled":
+        obj = io.BytesIO()
+        np.save(obj, np.array([{"a": 1}], dtype=object), allow_pickle=True)
+        data = _npz({"conductance.npy": obj.getvalue(), "meta.npy": meta})
+    else:
+        small = io.BytesIO()
+        np.save(small, np.zeros((1, 3)))
+        data = _npz({"conductance.npy": small.getvalue(), "meta.npy": meta})
+    path.write_bytes(data)
+    results, broken = ck.load_done(plan.uids)
+    assert list(results) == [plan.uids[1]]  # the intact unit is kept
+    (line,) = broken
+    assert str(path) in line and "\n" not in line and "computed again" in line
+    assert "allow_pickle" not in line and "pickle" not in line.replace("pickled", "")
+    assert not path.exists() and (tmp_path / "checkpoint" / "broken" / path.name).exists()
+
+
+def test_deeply_nested_manifest_is_a_one_line_refusal(tmp_path):
+    plan, _ = _unit_file(tmp_path)
+    (tmp_path / "checkpoint" / "manifest.json").write_text("[" * 100_000 + "]" * 100_000)
+    with pytest.raises(CheckpointMismatch, match="nested too deeply.*--restart"):
+        Checkpoint.open(tmp_path, plan)
+
+
+# ----------------------------------------------------------------------------- preflight
+def test_preflight_refuses_what_cannot_fit(monkeypatch, tmp_path):
+    """800 GB of results, a ~97 GB ring on a 23 GB machine: refused before any build."""
+    from ringkit.study import cost
+
+    monkeypatch.setattr(cost, "available_memory", lambda: 23e9)
+    monkeypatch.setattr(cost, "cpu_count", lambda: 2)
+    huge = parse_config(
+        MINIMAL, overrides={"field.points": 1_000_000, "ensemble.realizations": 100_000}
+    )
+    with pytest.raises(cost.CostError, match="800 GB of conductance values.*23 GB"):
+        cost.preflight(make_plan(huge))
+    big_ring = parse_config(
+        '[material]\nfermi_energy = "0.2 meV"\n[geometry]\nradius = "100 um"\nwidth = "10 um"'
+        '\n[lattice]\nspacing = "30 nm"\nmax_sites = 10000000\n'
+        '[field]\nstart = "-1 mT"\nstop = "1 mT"'
+    )
+    with pytest.raises(cost.CostError, match="one work unit needs about .* GB of memory"):
+        cost.preflight(make_plan(big_ring))
+
+
+def test_preflight_caps_workers_at_the_cores(monkeypatch):
+    from ringkit.study import cost
+
+    monkeypatch.setattr(cost, "cpu_count", lambda: 2)
+    plan = make_plan(cfg("[executor]\nworkers = 8\n[ensemble]\nrealizations = 10"))
+    pre = cost.preflight(plan)
+    assert pre.workers == 2 and "capped at the 2 cores" in pre.notes[0]
+    with pytest.raises(cost.CostError, match="--workers 8 is more than the 2 cores"):
+        cost.preflight(plan, workers=8)
+    assert cost.preflight(plan, workers=8, oversubscribe=True).workers == 8
+    assert cost.preflight(plan, workers=2, n_pending=1).workers == 1
+    for bad in (0, 5000):
+        with pytest.raises(ParameterError, match="--workers"):
+            cost.check_workers_option(bad)
+
+
+@pytest.mark.parametrize(("n_across", "energy"), [(4, 0.474), (10, 0.9), (17, 0.3), (6, 3.5)])
+def test_lattice_modes_equal_kwant_lead_channels(n_across, energy):
+    """The mode count of the report against kwant's own lead modes of the same strip."""
+    import kwant
+
+    from ringkit.study.checks import lattice_modes
+
+    lat = kwant.lattice.square(1, norbs=1)
+    lead = kwant.Builder(kwant.TranslationalSymmetry((-1, 0)))
+    lead[(lat(0, y) for y in range(n_across))] = 4.0
+    lead[lat.neighbors()] = -1.0
+    prop, _ = lead.finalized().modes(energy=energy)
+    assert lattice_modes(energy, n_across) == len(prop.velocities) // 2

@@ -5,7 +5,7 @@ Each check names the study-file key and the allowed range. Used by
 
 API
 ---
-transverse_modes(k_fermi, width) -> int
+transverse_modes(k_fermi, width) -> int, lattice_modes(energy, n_across) -> int
 check_mean_free_path(physics, device), check_born_mean_free_path(physics, ring)
 check_dephasing_lengths(plan, device)
 """
@@ -21,6 +21,7 @@ from ringkit.study.quantities import format_quantity
 
 __all__ = [
     "transverse_modes",
+    "lattice_modes",
     "check_mean_free_path",
     "check_born_mean_free_path",
     "check_dephasing_lengths",
@@ -28,8 +29,21 @@ __all__ = [
 
 
 def transverse_modes(k_fermi: float, width: float) -> int:
-    """Transverse modes of a hard-wall strip: ``floor(kF W / pi)`` (at least 0)."""
+    """Transverse modes of a continuum hard-wall strip: ``floor(kF W / pi)`` (at least 0)."""
     return max(0, math.floor(k_fermi * width / math.pi + 1e-12))
+
+
+def lattice_modes(energy: float, n_across: int) -> int:
+    """Open channels of a clean square-lattice strip ``n_across`` sites wide at ``energy``.
+
+    ``energy`` in units of t above the band bottom. The transverse levels of a hard-wall
+    strip of M sites are ``eps_n = 2t (1 - cos(n pi/(M+1)))``, n = 1..M, and the
+    longitudinal band adds ``[0, 4t]``: channel n is open when ``eps_n < E < eps_n + 4t``
+    (the strip acts like a continuum strip of width ``(M+1) a``).
+    """
+    m = int(n_across)
+    eps = [2.0 * (1.0 - math.cos(n * math.pi / (m + 1))) for n in range(1, m + 1)]
+    return sum(1 for e in eps if e < energy < e + 4.0)
 
 
 def _disorder_key(physics: dict[str, dict[str, Any]]) -> str:

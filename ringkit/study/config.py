@@ -108,7 +108,8 @@ class StudyConfig:
 
         The value is what the user wrote (e.g. ``"0.5 um"``), followed by the value in the
         report's units when that reads differently (``"0.5 um" (500 nm)``); keys that were not
-        written show ``(default) <value>`` or ``(not set)``.
+        written show ``(default) <value>``, ``(derived) <value>`` (e.g. r_in from radius and
+        width) or ``(not set)``.
         """
         rows = []
         for sec, (_doc, keys) in SCHEMA.items():
@@ -121,7 +122,8 @@ class StudyConfig:
                         as_written = f"{as_written} ({value})"
                     value = as_written
                 elif value != "(not set)" and dotted not in self._given:
-                    value = f"(default) {value}"
+                    derived = self.sections[sec][name] != key.default  # r_in from radius, ...
+                    value = f"({'derived' if derived else 'default'}) {value}"
                 rows.append((dotted, value, key.doc))
         return rows
 

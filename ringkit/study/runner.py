@@ -290,6 +290,7 @@ class _WorkBar:
         total = sum(self.weights.values())
         done_w = sum(v for k, v in self.weights.items() if k not in pend)
         self.n_done, self.n_total = n_done, len(plan.units)
+        self.total, self.work_done = total, done_w
         self.bar = tqdm(
             total=total,
             initial=done_w,
@@ -305,6 +306,7 @@ class _WorkBar:
 
     def done(self, uid: str) -> None:
         self.n_done += 1
+        self.work_done += self.weights[uid]
         self._postfix()
         self.bar.update(self.weights[uid])
 

@@ -29,6 +29,7 @@ from ringkit.study.checks import (
     check_born_mean_free_path,
     check_dephasing_lengths,
     check_mean_free_path,
+    lattice_modes,
     transverse_modes,
 )
 from ringkit.study.plan import StudyPlan
@@ -141,7 +142,11 @@ _LAB = {
     "dispersion_error": ("lattice dispersion error at E_F", lambda v: f"{100 * v:.2g} %"),
     "effective_mass [m_e]": ("effective mass", lambda v: f"{v:.4g} m_e"),
     "transverse_modes_per_arm": (
-        "transverse modes per arm, floor(kF W/pi) of the narrowest arm",
+        "transverse modes per arm (lattice strip of the narrowest arm's width, at E_F)",
+        str,
+    ),
+    "transverse_modes_per_arm_continuum": (
+        "transverse modes per arm, continuum hard-wall estimate floor(kF W/pi)",
         str,
     ),
     "open_channels_per_lead": ("open channels per lead on the lattice at E_F", str),
@@ -301,8 +306,13 @@ def check_setup(plan: StudyPlan) -> StudySetup:
         "kF a": base.kfa,
         "dispersion_error": base.dispersion_error,
         "effective_mass [m_e]": mat.effective_mass,
-        "transverse_modes_per_arm": transverse_modes(mat.fermi_wavevector, geo.min_arm_width),
-        "open_channels_per_lead": len(prop.velocities) // 2 if len(prop.velocities) else 0,
+        "transverse_modes_per_arm": lattice_modes(
+            ring.fermi_energy_lattice, round(geo.min_arm_width / base.spacing)
+        ),
+        "transverse_modes_per_arm_continuum": transverse_modes(
+            mat.fermi_wavevector, geo.min_arm_width
+        ),
+        "open_channels_per_lead": len(prop.velocities) // 2,
         "lead_sites_across": int(ring.lead_sites),
         "disorder_strength_W [J]": float(ring.disorder_strength),
         "correlation_energy [J]": correlation_energy(ring.device),
