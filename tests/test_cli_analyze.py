@@ -348,3 +348,26 @@ def test_non_finite_rows_reported_not_contradicted(tmp_path, capsys):
 
 def test_special_file_refused_in_one_line(capsys):
     assert "device" in _fail(capsys, "/dev/zero")
+
+
+def test_temperature_series_from_a_folder_of_files(tmp_path, capsys):
+    """INVENTED files ring_<T>K.csv (temperature in the name or the header): A(T) = 0.4
+    exp(-L/L_phi), L_phi = 2 um (T/1 K)^-1, L = pi x 500 nm; the fit must return 2 um."""
+    b = np.linspace(-0.1, 0.1, 1001)
+    f = np.pi * (500e-9) ** 2 / 4.135667696923859e-15
+    for k, temp in enumerate((0.3, 0.6, 1.0, 1.5)):
+        amp = 0.4 * np.exp(-np.pi * 500e-9 * temp / 2e-6)
+        g = 2 + amp * np.cos(2 * np.pi * f * b)
+        name, head = (f"ring_{temp}K.csv", "") if k % 2 else (f"ring{k}.csv", f"# T = {temp} K\n")
+        (tmp_path / name).write_text(
+            head
+            + "B (T),G (e^2/h)\n"
+            + "".join(f"{x!r},{y!r}\n" for x, y in zip(b.tolist(), g.tolist(), strict=True))
+        )
+    d = _json(
+        capsys, str(tmp_path), "--group-by", "temperature", "--r-in", "480nm", "--r-out", "520nm"
+    )
+    s = d["lphi_series"]
+    assert [q["temperature_K"] for q in s["points"]] == [0.3, 0.6, 1.0, 1.5]
+    scale = s["path_length_m"] / (np.pi * 500e-9)
+    assert s["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.01)
