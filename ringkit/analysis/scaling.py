@@ -2,37 +2,47 @@
 
 Public API
 ----------
-predict_amplitudes(radius, *, lphi, temperature, mean_free_path, fermi_velocity, ...)
+predict_amplitudes(radius, *, lphi, temperature, mean_free_path, fermi_velocity, n_modes, ...)
     -> xarray.Dataset on coordinate ``radius`` (m), optionally with simulated points.
+fit_amplitude_prefactors(radius, amplitude_he=..., amplitude_h2e=..., ...)
+    -> prefactors ``coherent_amplitude`` and ``aas_amplitude`` with 1-sigma errors, fitted to
+    simulated (or measured) amplitudes, e.g. ensemble medians with bootstrap errors.
 
-Model (phenomenological; physics notes §9.1-9.4, forms and sources below)
------------------------------------------------------------------------------
-Path lengths: ``L1 = pi r`` (one arm: the pair of paths of the h/e term) and
-``L2 = 2 pi r`` (circumference: the time-reversed loops of the AAS h/2e term) (§9.3).
+Model (formulas and sources in docs/amplitude-model.md; every term is continuous in r)
+----------------------------------------------------------------------------------------
+Path lengths (:mod:`ringkit.conventions`): ``L1 = pi r`` (h/e pair), ``L2 = 2 pi r`` (h/2e).
+``b = l/(l + L1)`` is the ballistic weight (1: ballistic, 0: diffusive); the nominal regime
+boundary ``l = pi r`` (``b = 1/2``) is reported as ``regime_boundary_radius``.
 
-* Dephasing: ``D_n = exp(-L_n/L_phi)`` — exponential damping with the length of the
-  interfering paths (Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987): abstract verified,
-  reference from memory; Hansen et al., Phys. Rev. B 64, 045327 (2001)).
-* Regime: diffusive if the mean free path l < L1, else ballistic.
-* Thermal averaging of the sample-specific (random-phase) terms:
-  diffusive ``F = min(1, L_T/L)`` with ``L_T = sqrt(hbar D/(k_B T))``,
-  ``D = v_F l/dimension`` — the ``T^-1/2`` law seen in Au rings (Washburn, Umbach, Laibowitz,
-  Webb, Phys. Rev. B 32, 4789 (1985): law verified, reference from memory);
-  ballistic ``F = x/sinh(x)``, ``x = pi k_B T L/(hbar v_F)`` — the exact energy average of
-  an interference term with travel-time difference ``L/v_F`` (§5.4).
-* h/e: ``amplitude_he = coherent_amplitude F(L1) D_1 / sqrt(n_averaged)``.
-* h/2e: the AAS term ``aas_amplitude D_2`` (diffusive only; same phase in every sample and
-  energy strip, so no thermal or ensemble reduction, §9.1; Al'tshuler, Aronov, Spivak, JETP
-  Lett. 33, 94 (1981)) added in quadrature to the second h/e harmonic
-  ``coherent_amplitude F(L2) D_2 / sqrt(n_averaged)``.
-* Averaging ``n_averaged`` independent samples (series array or disorder ensemble) reduces
-  the random-phase parts as ``N^-1/2`` and keeps AAS (Umbach et al., Phys. Rev. Lett. 56,
-  386 (1986), verified abstract, §9.4).
+* Mean conductance (unless ``conductance`` is given): contacts of ``N`` modes in series with
+  two arms of length ``L1`` in parallel, ``G = 2 N/(1 + L1/(2 l))`` e^2/h (spin-degenerate;
+  Landauer transmission ``N lambda/(L + lambda)``, S. Datta, Electronic Transport in Mesoscopic
+  Systems (CUP 1995), from memory).
+* Number of independent coherent channels ``N_c = 1 + (N - 1) b``: ballistic arms keep ``N``
+  channels with independent phases (rms of the sum ~ sqrt(N), central limit theorem); a
+  diffusive arm mixes them and the fluctuation is universal, of order e^2/h whatever ``N``
+  (Lee and Stone, Phys. Rev. Lett. 55, 1622 (1985); Webb et al., Phys. Rev. Lett. 54, 2696
+  (1985)).
+* Dephasing ``D_n = exp(-L_n/L_phi)`` (Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987),
+  abstract verified, reference from memory; Hansen et al., Phys. Rev. B 64, 045327 (2001)).
+* Thermal factor ``F = b x/sinh x + (1 - b)/sqrt(1 + (L/L_T)^2)`` with ``x = pi k_B T L/(hbar
+  v_F)`` (exact energy average of a ballistic interference term) and ``L_T = sqrt(hbar D/k_B T)``,
+  ``D = v_F l/d`` (smooth form of the diffusive ``T^-1/2`` law, Washburn et al., Phys. Rev. B 32,
+  4789 (1985), law verified, reference from memory).
+* h/e: ``A_he = c_he sqrt(N_c) F(L1) D_1/sqrt(n_averaged)``.
+* h/2e: AAS term ``c_aas p_ret D_2`` with the return probability of a closed loop
+  ``p_ret = (L1 + l R_j)/(L1 + l)`` (1 diffusive; the junction back-scattering probability
+  ``R_j`` in a ballistic ring, default 1/9 for the symmetric three-way junction of Büttiker,
+  Imry and Azbel, Phys. Rev. A 30, 1982 (1984), from memory), not reduced by thermal or
+  ensemble averaging (Al'tshuler, Aronov, Spivak, JETP Lett. 33, 94 (1981); Umbach et al.,
+  Phys. Rev. Lett. 56, 386 (1986)); added in quadrature to the second h/e harmonic
+  ``c_he sqrt(N_c) F(L2) D_2/sqrt(n_averaged)``.
+* Bound by G: every amplitude is passed through the smooth minimum
+  ``A = (A_raw^-2 + (kappa G)^-2)^-1/2`` with ``kappa = 1/sqrt(2)``: a conductance that stays
+  >= 0 can oscillate at most as ``G (1 + cos phi)``, whose rms is ``G/sqrt(2)``.
 
-The prefactors ``coherent_amplitude`` and ``aas_amplitude`` (rms, e^2/h) default to 1: the
-fully coherent h/e fluctuation is of order e^2/h (Webb et al., Phys. Rev. Lett. 54, 2696
-(1985)); calibrate them on a simulated ensemble or a measured ring. The model's content is
-the scaling with r, L_phi, T and l, not the absolute scale.
+The prefactors ``c_he`` (``coherent_amplitude``) and ``c_aas`` (``aas_amplitude``) default to
+1 e^2/h; :func:`fit_amplitude_prefactors` fits them to simulated ensembles.
 """
 
 from __future__ import annotations
@@ -44,25 +54,45 @@ import numpy as np
 
 from ringkit._validation import ParameterError, check_positive, check_range
 from ringkit.analysis._common import Described
+from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
 from ringkit.units import HBAR, K_B, PHI0
 
-__all__ = ["predict_amplitudes", "MODEL_DESCRIPTION"]
+__all__ = [
+    "predict_amplitudes",
+    "fit_amplitude_prefactors",
+    "match_prefactors",
+    "MODEL_DESCRIPTION",
+    "KAPPA_MAX",
+]
+
+KAPPA_MAX = 1.0 / np.sqrt(2.0)
+"""Largest rms/G of an oscillating conductance that stays >= 0 (G (1 + cos phi))."""
+
+JUNCTION_REFLECTION = 1.0 / 9.0
+"""Back-scattering probability of the symmetric three-way junction (eps = 4/9, from memory)."""
 
 MODEL_DESCRIPTION = (
-    "amplitude_he = c_he F_T(pi r) exp(-pi r/L_phi)/sqrt(N); amplitude_h2e = "
-    "sqrt((c_aas exp(-2 pi r/L_phi))^2 [diffusive only] + (c_he F_T(2 pi r) "
-    "exp(-2 pi r/L_phi))^2/N); F_T = min(1, L_T/L) diffusive (L_T = sqrt(hbar D/kT), "
-    "D = v_F l/d), x/sinh x ballistic (x = pi k T L/(hbar v_F)); rms in e^2/h"
+    "A_he = c_he sqrt(N_c) F(pi r) exp(-pi r/L_phi)/sqrt(n); A_h2e = sqrt((c_aas p_ret "
+    "exp(-2 pi r/L_phi))^2 + (c_he sqrt(N_c) F(2 pi r) exp(-2 pi r/L_phi))^2/n); "
+    "b = l/(l + pi r), N_c = 1 + (N-1) b, p_ret = (pi r + l R_j)/(pi r + l), "
+    "F = b x/sinh x + (1-b)/sqrt(1 + (L/L_T)^2); each bounded smoothly by G/sqrt(2), "
+    "G = 2N/(1 + pi r/(2 l)) unless given; rms in e^2/h (docs/amplitude-model.md)"
 )
 
 
-def _thermal(length: np.ndarray, regime: np.ndarray, l_t: float, x_per_m: float) -> np.ndarray:
+def _smooth_min(raw: np.ndarray, cap: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore"):
+        inv = np.where(raw > 0, 1.0 / np.maximum(raw, 1e-300) ** 2, np.inf) + 1.0 / cap**2
+    return np.where(raw > 0, 1.0 / np.sqrt(inv), 0.0)
+
+
+def _thermal(length, ball_w, l_t: float, x_per_m: float) -> np.ndarray:
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        diff = np.minimum(1.0, l_t / length)
         x = x_per_m * length
-        ball = np.where(x > 1e-8, x / np.sinh(np.maximum(x, 1e-8)), 1.0)
+        ball = np.where(x > 1e-8, x / np.sinh(np.clip(x, 1e-8, 700)), 1.0)
         ball = np.where(x > 700, 0.0, ball)
-    return np.where(regime == "diffusive", diff, ball)
+        diff = 1.0 / np.sqrt(1.0 + (length / l_t) ** 2) if np.isfinite(l_t) else 1.0
+    return ball_w * ball + (1.0 - ball_w) * diff
 
 
 def _from_material(material: Any, attrs: tuple[str, ...]) -> float | None:
@@ -73,61 +103,77 @@ def _from_material(material: Any, attrs: tuple[str, ...]) -> float | None:
     return None
 
 
-def predict_amplitudes(
-    radius: np.ndarray,
-    *,
-    material: Any = None,
-    lphi: float | None = None,
-    temperature: float | None = None,
-    mean_free_path: float | None = None,
-    fermi_velocity: float | None = None,
-    dimension: int = 2,
-    coherent_amplitude: float = 1.0,
-    aas_amplitude: float = 1.0,
-    n_averaged: int = 1,
-    simulated: Mapping | Any = None,
-):
-    """Semi-analytic h/e and h/2e rms amplitudes versus ring radius (module docstring).
+def _model(r, p: dict) -> dict[str, np.ndarray]:
+    l1, l2 = path_length(r, 1), path_length(r, 2)
+    mfp, n = p["mean_free_path"], p["n_modes"]
+    b = mfp / (mfp + l1)
+    g = p["conductance"] if p["conductance"] is not None else 2.0 * n / (1.0 + l1 / (2 * mfp))
+    g = np.broadcast_to(np.asarray(g, dtype=float), r.shape)
+    n_c = 1.0 + (n - 1.0) * b
+    d1, d2 = np.exp(-l1 / p["lphi"]), np.exp(-l2 / p["lphi"])
+    f1 = _thermal(l1, b, p["l_t"], p["x_per_m"])
+    f2 = _thermal(l2, b, p["l_t"], p["x_per_m"])
+    sq = np.sqrt(n_c / p["n_averaged"])
+    p_ret = (l1 + mfp * p["junction_reflection"]) / (l1 + mfp)
+    he_raw = p["c_he"] * sq * f1 * d1
+    harm_raw = p["c_he"] * sq * f2 * d2
+    aas_raw = p["c_aas"] * p_ret * d2
+    cap = KAPPA_MAX * g
+    he = _smooth_min(he_raw, cap)
+    h2e = _smooth_min(np.hypot(aas_raw, harm_raw), cap)
+    share = np.where(np.hypot(aas_raw, harm_raw) > 0, h2e / np.hypot(aas_raw, harm_raw), 0.0)
+    return {
+        "amplitude_he_rms": he,
+        "amplitude_h2e_rms": h2e,
+        "aas_h2e_rms": aas_raw * share,
+        "harmonic_h2e_rms": harm_raw * share,
+        "conductance": g,
+        "n_coherent_channels": n_c,
+        "ballistic_weight": b,
+        "return_probability": p_ret,
+        "thermal_factor_he": f1,
+        "dephasing_factor_he": d1,
+        "dephasing_factor_h2e": d2,
+        "period_he": PHI0 / (np.pi * r**2),
+        "frequency_he": np.pi * r**2 / PHI0,
+        "path_length_he": l1,
+        "regime": np.where(mfp < l1, "diffusive", "ballistic"),
+    }
 
-    Parameters
-    ----------
-    radius : array
-        Ring (mean) radii in m.
-    material : object, optional
-        Anything with ``fermi_velocity``, ``elastic_mean_free_path`` or
-        ``mean_free_path``, ``phase_coherence_length`` and ``temperature`` (e.g.
-        :class:`ringkit.device.Material`); explicit keywords override it.
-    lphi : float
-        Phase-coherence length L_phi in m (``inf`` allowed: no dephasing).
-    temperature : float
-        Temperature in K (>= 0).
-    mean_free_path : float
-        Elastic mean free path l in m.
-    fermi_velocity : float
-        Fermi velocity in m/s.
-    dimension : {2, 3}
-        Dimension in ``D = v_F l/d`` (2DEG: 2, metal film: 3).
-    coherent_amplitude, aas_amplitude : float
-        rms prefactors in e^2/h (see module docstring).
-    n_averaged : int
-        Number of independent samples averaged (ensemble mean, series array).
-    simulated : mapping or xarray.Dataset, optional
-        Simulated (or measured) points to place beside the model: ``radius`` (m) and any
-        of ``amplitude_he_rms``, ``amplitude_h2e_rms`` (e^2/h) with optional ``*_err``.
 
-    Returns
-    -------
-    xarray.Dataset
-        Coordinate ``radius``; variables ``amplitude_he_rms``, ``amplitude_h2e_rms``,
-        ``aas_h2e_rms``, ``harmonic_h2e_rms`` (e^2/h), ``thermal_factor_he``,
-        ``dephasing_factor_he``, ``dephasing_factor_h2e``, ``period_he`` (T),
-        ``frequency_he`` (1/T), ``path_length_he`` (m), ``regime``; with ``simulated``
-        also ``sim_*`` variables on coordinate ``sim_radius`` and the model evaluated
-        there (``model_amplitude_*_at_sim``). ``attrs`` hold every input and the model
-        description.
-    """
-    import xarray as xr
+_UNITS = {
+    "amplitude_he_rms": ("e^2/h", "predicted h/e rms amplitude"),
+    "amplitude_h2e_rms": ("e^2/h", "predicted h/2e rms amplitude (AAS + 2nd harmonic)"),
+    "aas_h2e_rms": ("e^2/h", "AAS part of the h/2e amplitude"),
+    "harmonic_h2e_rms": ("e^2/h", "second h/e harmonic part of the h/2e amplitude"),
+    "conductance": ("e^2/h", "mean two-terminal conductance G (bound: rms <= G/sqrt(2))"),
+    "n_coherent_channels": ("1", "independent coherent channels N_c = 1 + (N-1) b"),
+    "ballistic_weight": ("1", "b = l/(l + pi r)"),
+    "return_probability": ("1", "closed-loop return probability of the AAS term"),
+    "thermal_factor_he": ("1", "thermal averaging factor of the h/e term"),
+    "dephasing_factor_he": ("1", "exp(-pi r/L_phi)"),
+    "dephasing_factor_h2e": ("1", "exp(-2 pi r/L_phi)"),
+    "period_he": ("T", "h/e period h/(e pi r^2)"),
+    "frequency_he": ("1/T", "h/e frequency pi r^2/(h/e)"),
+    "path_length_he": ("m", "path length pi r of the h/e pair (ringkit.conventions)"),
+    "regime": ("", "dominant regime: diffusive if l < pi r else ballistic (smooth crossover)"),
+}
 
+
+def _parameters(
+    material,
+    lphi,
+    temperature,
+    mean_free_path,
+    fermi_velocity,
+    dimension,
+    coherent_amplitude,
+    aas_amplitude,
+    n_averaged,
+    n_modes,
+    conductance,
+    junction_reflection,
+) -> dict:
     if material is not None:
         if lphi is None:
             lphi = _from_material(material, ("phase_coherence_length",))
@@ -157,106 +203,324 @@ def predict_amplitudes(
     c_aas = check_positive("aas_amplitude", aas_amplitude, "e^2/h", allow_zero=True)
     if int(n_averaged) != n_averaged or n_averaged < 1:
         raise ParameterError("n_averaged", n_averaged, "must be an integer >= 1")
+    if int(n_modes) != n_modes or n_modes < 1:
+        raise ParameterError("n_modes", n_modes, "must be an integer >= 1 (modes per arm)")
+    if conductance is not None:
+        conductance = check_positive("conductance", conductance, "e^2/h")
+    r_j = check_range("junction_reflection", junction_reflection, 0.0, 1.0)
+    diffusion = fermi_velocity * mean_free_path / dimension
+    l_t = np.inf if temperature == 0 else float(np.sqrt(HBAR * diffusion / (K_B * temperature)))
+    return {
+        "lphi": lphi,
+        "temperature": temperature,
+        "mean_free_path": mean_free_path,
+        "fermi_velocity": fermi_velocity,
+        "dimension": dimension,
+        "diffusion": diffusion,
+        "l_t": l_t,
+        "x_per_m": np.pi * K_B * temperature / (HBAR * fermi_velocity),
+        "c_he": c_he,
+        "c_aas": c_aas,
+        "n_averaged": int(n_averaged),
+        "n_modes": int(n_modes),
+        "conductance": conductance,
+        "junction_reflection": r_j,
+    }
+
+
+def predict_amplitudes(
+    radius: np.ndarray,
+    *,
+    material: Any = None,
+    lphi: float | None = None,
+    temperature: float | None = None,
+    mean_free_path: float | None = None,
+    fermi_velocity: float | None = None,
+    dimension: int = 2,
+    coherent_amplitude: float = 1.0,
+    aas_amplitude: float = 1.0,
+    n_averaged: int = 1,
+    n_modes: int = 1,
+    conductance: float | None = None,
+    junction_reflection: float = JUNCTION_REFLECTION,
+    simulated: Mapping | Any = None,
+):
+    """Semi-analytic h/e and h/2e rms amplitudes versus ring radius (module docstring).
+
+    Parameters
+    ----------
+    radius : array
+        Ring (mean) radii in m.
+    material : object, optional
+        Anything with ``fermi_velocity``, ``elastic_mean_free_path`` or
+        ``mean_free_path``, ``phase_coherence_length`` and ``temperature`` (e.g.
+        :class:`ringkit.device.Material`); explicit keywords override it.
+    lphi : float
+        Phase-coherence length L_phi in m (``inf`` allowed), convention
+        :data:`ringkit.conventions.LPHI_CONVENTION` (h/e damped by exp(-pi r/L_phi)).
+    temperature : float
+        Temperature in K (>= 0).
+    mean_free_path : float
+        Elastic mean free path l in m.
+    fermi_velocity : float
+        Fermi velocity in m/s.
+    dimension : {1, 2, 3}
+        Dimension in ``D = v_F l/d`` (2DEG: 2, metal film: 3).
+    coherent_amplitude, aas_amplitude : float
+        rms prefactors ``c_he``, ``c_aas`` in e^2/h.
+    n_averaged : int
+        Number of independent samples averaged (ensemble mean, series array).
+    n_modes : int
+        Open transverse modes per arm, N >= 1.
+    conductance : float, optional
+        Mean two-terminal conductance G in e^2/h (default: the model's ``2N/(1 + pi r/2l)``).
+    junction_reflection : float
+        Back-scattering probability at a junction, in [0, 1] (AAS in ballistic rings).
+    simulated : mapping or xarray.Dataset, optional
+        Simulated (or measured) points to place beside the model: ``radius`` (m) and any
+        of ``amplitude_he_rms``, ``amplitude_h2e_rms`` (e^2/h) with optional ``*_err``.
+
+    Returns
+    -------
+    xarray.Dataset
+        Coordinate ``radius``; the variables of the module docstring (``amplitude_he_rms``,
+        ``amplitude_h2e_rms``, ``aas_h2e_rms``, ``harmonic_h2e_rms``, ``conductance``, ...);
+        with ``simulated`` also ``sim_*`` variables on ``sim_radius`` and the model there
+        (``model_amplitude_*_at_sim``). ``attrs`` hold every input, the model description,
+        ``regime_boundary_radius`` (m, where l = pi r) and the L_phi convention.
+    """
+    import xarray as xr
+
+    p = _parameters(
+        material,
+        lphi,
+        temperature,
+        mean_free_path,
+        fermi_velocity,
+        dimension,
+        coherent_amplitude,
+        aas_amplitude,
+        n_averaged,
+        n_modes,
+        conductance,
+        junction_reflection,
+    )
     r = np.atleast_1d(np.asarray(radius, dtype=float))
     if r.ndim != 1 or np.any(~np.isfinite(r)) or np.any(r <= 0):
         raise ParameterError("radius", Described(str(radius)), "must be a 1-D array of > 0", "m")
-
-    diffusion = fermi_velocity * mean_free_path / dimension
-    l_t = np.inf if temperature == 0 else float(np.sqrt(HBAR * diffusion / (K_B * temperature)))
-    x_per_m = np.pi * K_B * temperature / (HBAR * fermi_velocity)
-
-    def model(rr: np.ndarray) -> dict[str, np.ndarray]:
-        l1, l2 = np.pi * rr, 2 * np.pi * rr
-        regime = np.where(mean_free_path < l1, "diffusive", "ballistic")
-        d1, d2 = np.exp(-l1 / lphi), np.exp(-l2 / lphi)
-        f1 = _thermal(l1, regime, l_t, x_per_m)
-        f2 = _thermal(l2, regime, l_t, x_per_m)
-        he = c_he * f1 * d1 / np.sqrt(n_averaged)
-        harm = c_he * f2 * d2 / np.sqrt(n_averaged)
-        aas = np.where(regime == "diffusive", c_aas * d2, 0.0)
-        return {
-            "amplitude_he_rms": he,
-            "amplitude_h2e_rms": np.hypot(aas, harm),
-            "aas_h2e_rms": aas,
-            "harmonic_h2e_rms": harm,
-            "thermal_factor_he": f1,
-            "dephasing_factor_he": d1,
-            "dephasing_factor_h2e": d2,
-            "period_he": PHI0 / (np.pi * rr**2),
-            "frequency_he": np.pi * rr**2 / PHI0,
-            "path_length_he": l1,
-            "regime": regime,
-        }
-
-    units = {
-        "amplitude_he_rms": ("e^2/h", "predicted h/e rms amplitude"),
-        "amplitude_h2e_rms": ("e^2/h", "predicted h/2e rms amplitude (AAS + 2nd harmonic)"),
-        "aas_h2e_rms": ("e^2/h", "AAS part of the h/2e amplitude"),
-        "harmonic_h2e_rms": ("e^2/h", "second h/e harmonic part of the h/2e amplitude"),
-        "thermal_factor_he": ("1", "thermal averaging factor of the h/e term"),
-        "dephasing_factor_he": ("1", "exp(-pi r/L_phi)"),
-        "dephasing_factor_h2e": ("1", "exp(-2 pi r/L_phi)"),
-        "period_he": ("T", "h/e period h/(e pi r^2)"),
-        "frequency_he": ("1/T", "h/e frequency pi r^2/(h/e)"),
-        "path_length_he": ("m", "path length pi r of the h/e pair"),
-        "regime": ("", "diffusive if l < pi r else ballistic"),
-    }
-    values = model(r)
     data = {
-        k: ("radius", v, {"units": units[k][0], "long_name": units[k][1]})
-        for k, v in values.items()
+        k: ("radius", v, {"units": _UNITS[k][0], "long_name": _UNITS[k][1]})
+        for k, v in _model(r, p).items()
     }
     coords: dict[str, Any] = {"radius": ("radius", r, {"units": "m", "long_name": "ring radius"})}
     if simulated is not None:
-        if hasattr(simulated, "data_vars"):
-            keys = set(simulated.data_vars) | set(simulated.coords)
-        else:
-            keys = set(simulated.keys())
-        if "radius" not in keys:
-            raise ParameterError("simulated", Described(str(sorted(keys))), "needs 'radius'")
-        sr = np.atleast_1d(np.asarray(simulated["radius"], dtype=float))
-        coords["sim_radius"] = ("sim_radius", sr, {"units": "m", "long_name": "simulated radius"})
-        at = model(sr)
-        present = [k for k in ("amplitude_he_rms", "amplitude_h2e_rms") if k in keys]
-        if not present:
-            raise ParameterError(
-                "simulated",
-                Described(str(sorted(keys))),
-                "needs amplitude_he_rms and/or amplitude_h2e_rms",
-            )
-        for key in present:
-            data[f"sim_{key}"] = (
-                "sim_radius",
-                np.asarray(simulated[key], dtype=float),
-                {"units": "e^2/h", "long_name": f"simulated {key}"},
-            )
-            if f"{key}_err" in keys:
-                data[f"sim_{key}_err"] = (
-                    "sim_radius",
-                    np.asarray(simulated[f"{key}_err"], dtype=float),
-                    {"units": "e^2/h", "long_name": f"1-sigma error of simulated {key}"},
-                )
-            data[f"model_{key}_at_sim"] = (
-                "sim_radius",
-                at[key],
-                {"units": "e^2/h", "long_name": f"model {key} at the simulated radii"},
-            )
+        _add_simulated(data, coords, simulated, p)
     attrs = {
-        "lphi_m": lphi,
-        "temperature_K": temperature,
-        "mean_free_path_m": mean_free_path,
-        "fermi_velocity_m_per_s": fermi_velocity,
-        "dimension": dimension,
-        "diffusion_constant_m2_per_s": diffusion,
-        "thermal_length_m": l_t,
-        "coherent_amplitude_e2h": c_he,
-        "aas_amplitude_e2h": c_aas,
-        "n_averaged": int(n_averaged),
+        "lphi_m": p["lphi"],
+        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        "temperature_K": p["temperature"],
+        "mean_free_path_m": p["mean_free_path"],
+        "fermi_velocity_m_per_s": p["fermi_velocity"],
+        "dimension": p["dimension"],
+        "diffusion_constant_m2_per_s": p["diffusion"],
+        "thermal_length_m": p["l_t"],
+        "coherent_amplitude_e2h": p["c_he"],
+        "aas_amplitude_e2h": p["c_aas"],
+        "n_averaged": p["n_averaged"],
+        "n_modes": p["n_modes"],
+        "conductance_e2h": "model" if p["conductance"] is None else p["conductance"],
+        "junction_reflection": p["junction_reflection"],
+        "kappa_max": KAPPA_MAX,
+        "regime_boundary_radius": p["mean_free_path"] / np.pi,
         "model": MODEL_DESCRIPTION,
         "references": (
             "Milliken, Umbach, Webb PRB 36, 4465 (1987); Hansen et al. PRB 64, 045327 (2001); "
             "Washburn et al. PRB 32, 4789 (1985); Umbach et al. PRL 56, 386 (1986); "
-            "Al'tshuler, Aronov, Spivak JETP Lett. 33, 94 (1981); Webb et al. PRL 54, 2696 (1985)"
+            "Al'tshuler, Aronov, Spivak JETP Lett. 33, 94 (1981); Webb et al. PRL 54, 2696 "
+            "(1985); Lee, Stone PRL 55, 1622 (1985); Datta 1995; Buttiker, Imry, Azbel PRA 30, "
+            "1982 (1984); docs/amplitude-model.md"
         ),
     }
     return xr.Dataset(data, coords=coords, attrs=attrs)
+
+
+def _add_simulated(data: dict, coords: dict, simulated, p: dict) -> None:
+    if hasattr(simulated, "data_vars"):
+        keys = set(simulated.data_vars) | set(simulated.coords)
+    else:
+        keys = set(simulated.keys())
+    if "radius" not in keys:
+        raise ParameterError("simulated", Described(str(sorted(keys))), "needs 'radius'")
+    sr = np.atleast_1d(np.asarray(simulated["radius"], dtype=float))
+    coords["sim_radius"] = ("sim_radius", sr, {"units": "m", "long_name": "simulated radius"})
+    at = _model(sr, p)
+    present = [k for k in ("amplitude_he_rms", "amplitude_h2e_rms") if k in keys]
+    if not present:
+        raise ParameterError(
+            "simulated",
+            Described(str(sorted(keys))),
+            "needs amplitude_he_rms and/or amplitude_h2e_rms",
+        )
+    for key in present:
+        data[f"sim_{key}"] = (
+            "sim_radius",
+            np.asarray(simulated[key], dtype=float),
+            {"units": "e^2/h", "long_name": f"simulated {key}"},
+        )
+        if f"{key}_err" in keys:
+            data[f"sim_{key}_err"] = (
+                "sim_radius",
+                np.asarray(simulated[f"{key}_err"], dtype=float),
+                {"units": "e^2/h", "long_name": f"1-sigma error of simulated {key}"},
+            )
+        data[f"model_{key}_at_sim"] = (
+            "sim_radius",
+            at[key],
+            {"units": "e^2/h", "long_name": f"model {key} at the simulated radii"},
+        )
+
+
+def fit_amplitude_prefactors(
+    radius,
+    *,
+    amplitude_he=None,
+    amplitude_he_err=None,
+    amplitude_h2e=None,
+    amplitude_h2e_err=None,
+    **model_kwargs,
+) -> dict:
+    """Fit ``coherent_amplitude`` and ``aas_amplitude`` to simulated amplitudes versus radius.
+
+    Weighted least squares (``scipy.optimize.least_squares``) of the model of
+    :func:`predict_amplitudes` to, e.g., the ensemble medians of the h/e and h/2e rms
+    amplitudes with their bootstrap errors; the h/e data fix ``c_he``, the h/2e data then fix
+    ``c_aas`` (the h/2e model contains both). 1-sigma errors from the Jacobian at the optimum,
+    scaled by sqrt(chi^2/dof) when no errors are given (then only the scatter is known).
+
+    Parameters
+    ----------
+    radius : array
+        Radii in m.
+    amplitude_he, amplitude_h2e : array, optional
+        Amplitudes in e^2/h (at least one).
+    amplitude_he_err, amplitude_h2e_err : array, optional
+        1-sigma errors (same shape), e.g. bootstrap errors of the medians.
+    **model_kwargs
+        Everything else of :func:`predict_amplitudes` (``lphi``, ``temperature``, ...).
+
+    Returns
+    -------
+    dict
+        ``coherent_amplitude``, ``coherent_amplitude_err``, ``aas_amplitude``,
+        ``aas_amplitude_err`` (e^2/h; None if not constrained by the data), ``chi2``, ``dof``,
+        ``unconstrained`` (list of names).
+    """
+    from scipy.optimize import least_squares
+
+    r = np.atleast_1d(np.asarray(radius, dtype=float))
+    for key in ("coherent_amplitude", "aas_amplitude", "simulated"):
+        if key in model_kwargs:
+            raise ParameterError(key, model_kwargs[key], "is fitted here; do not pass it")
+    parts = []
+    for name, val, err in (
+        ("amplitude_he_rms", amplitude_he, amplitude_he_err),
+        ("amplitude_h2e_rms", amplitude_h2e, amplitude_h2e_err),
+    ):
+        if val is None:
+            continue
+        y = np.asarray(val, dtype=float)
+        if y.shape != r.shape or np.any(~np.isfinite(y)):
+            raise ParameterError(name, Described(str(val)), f"must be finite, shape {r.shape}")
+        s = np.ones_like(y) if err is None else np.asarray(err, dtype=float)
+        if s.shape != r.shape or np.any(~(s > 0)):
+            raise ParameterError(f"{name}_err", Described(str(err)), "must be > 0, same shape")
+        parts.append((name, y, s, err is not None))
+    if not parts:
+        raise ParameterError("amplitude_he", None, "give amplitude_he and/or amplitude_h2e")
+    has_aas = any(name == "amplitude_h2e_rms" for name, *_ in parts)
+    names = ["coherent_amplitude"] + (["aas_amplitude"] if has_aas else [])
+
+    def resid(theta):
+        kw = dict(zip(names, np.abs(theta), strict=True))
+        ds = predict_amplitudes(r, **model_kwargs, **kw)
+        return np.concatenate([(ds[n].values - y) / s for n, y, s, _ in parts])
+
+    fit = least_squares(resid, x0=np.ones(len(names)), x_scale="jac")
+    chi2 = float(np.sum(fit.fun**2))
+    dof = int(fit.fun.size - len(names))
+    jtj = fit.jac.T @ fit.jac
+    scale = 1.0 if all(w for *_, w in parts) else max(chi2 / max(dof, 1), 0.0)
+    out: dict = {"chi2": chi2, "dof": dof, "unconstrained": [], "n_points": int(fit.fun.size)}
+    try:
+        cov = np.linalg.inv(jtj) * scale
+        errs = np.sqrt(np.clip(np.diag(cov), 0, None))
+    except np.linalg.LinAlgError:
+        errs = np.full(len(names), np.inf)
+    for k, name in enumerate(names):
+        val = float(abs(fit.x[k]))
+        bad = not np.isfinite(errs[k]) or errs[k] > 10 * max(val, 1e-12)
+        out[name] = None if bad else val
+        out[f"{name}_err"] = None if bad else float(errs[k])
+        if bad:
+            out["unconstrained"].append(name)
+    if not has_aas:
+        out["aas_amplitude"] = out["aas_amplitude_err"] = None
+        out["unconstrained"].append("aas_amplitude")
+    return out
+
+
+def _kwargs_from_attrs(attrs: Mapping) -> dict:
+    g = attrs.get("conductance_e2h", "model")
+    return {
+        "lphi": float(attrs["lphi_m"]),
+        "temperature": float(attrs["temperature_K"]),
+        "mean_free_path": float(attrs["mean_free_path_m"]),
+        "fermi_velocity": float(attrs["fermi_velocity_m_per_s"]),
+        "dimension": int(attrs.get("dimension", 2)),
+        "n_averaged": int(attrs.get("n_averaged", 1)),
+        "n_modes": int(attrs.get("n_modes", 1)),
+        "conductance": None if isinstance(g, str) else float(g),
+        "junction_reflection": float(attrs.get("junction_reflection", JUNCTION_REFLECTION)),
+    }
+
+
+def match_prefactors(dataset) -> tuple[float, float]:
+    """Prefactors ``(c_he, c_aas)`` for which the model passes through the simulated points.
+
+    For a :func:`predict_amplitudes` dataset with ``sim_*`` variables: ``c_he`` solves
+    ``mean log(sim_he/model_he) = 0`` (a monotone scalar equation, Brent's method); then
+    ``c_aas`` the same for h/2e with ``c_he`` fixed. Points the bound by G cannot reach leave
+    the prefactor at its largest bracket value. For prefactors with uncertainties use
+    :func:`fit_amplitude_prefactors`.
+    """
+    from scipy.optimize import brentq
+
+    ds = dataset
+    kw = _kwargs_from_attrs(ds.attrs)
+    sr = np.asarray(ds["sim_radius"].values, dtype=float)
+    c_he = float(ds.attrs.get("coherent_amplitude_e2h", 1.0))
+    c_aas = float(ds.attrs.get("aas_amplitude_e2h", 1.0))
+
+    def solve(key: str, make) -> float | None:
+        if f"sim_{key}" not in ds:
+            return None
+        sim = np.asarray(ds[f"sim_{key}"].values, dtype=float)
+        ok = sim > 0
+        if not np.any(ok):
+            return None
+
+        def f(logc: float) -> float:
+            mod = predict_amplitudes(sr[ok], **kw, **make(np.exp(logc)))[key].values
+            return float(np.mean(np.log(np.maximum(mod, 1e-300) / sim[ok])))
+
+        lo, hi = -30.0, 8.0
+        if f(hi) < 0:
+            return float(np.exp(hi))
+        if f(lo) > 0:
+            return float(np.exp(lo))
+        return float(np.exp(brentq(f, lo, hi, xtol=1e-12)))
+
+    new_he = solve("amplitude_he_rms", lambda c: {"coherent_amplitude": c, "aas_amplitude": c_aas})
+    c_he = c_he if new_he is None else new_he
+    new_aas = solve("amplitude_h2e_rms", lambda c: {"coherent_amplitude": c_he, "aas_amplitude": c})
+    return c_he, c_aas if new_aas is None else new_aas

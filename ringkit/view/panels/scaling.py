@@ -275,24 +275,13 @@ def _simulate(params, radii, seeds, width, lattice_spacing, n_flux, n_probes, ma
 
 def calibrated_prefactors(dataset) -> tuple[float, float]:
     """Prefactors ``(coherent_amplitude, aas_amplitude)`` matching the model to the simulated
-    points of a :func:`scaling_curves` dataset (geometric mean of simulated/model ratios,
-    scaled by the dataset's current prefactors). The AAS prefactor is scaled by the h/2e
-    ratio, which is approximate where the second h/e harmonic contributes to the model's
-    h/2e amplitude."""
-    ds = dataset
-    c_he = float(ds.attrs.get("coherent_amplitude_e2h", 1.0))
-    c_aas = float(ds.attrs.get("aas_amplitude_e2h", 1.0))
-    sim = np.asarray(ds["sim_amplitude_he_rms"])
-    mod = np.asarray(ds["model_amplitude_he_rms_at_sim"])
-    ok = (sim > 0) & (mod > 0)
-    if not np.any(ok):
+    points of a :func:`scaling_curves` dataset (mean log ratio simulated/model = 0, solved
+    by :func:`ringkit.analysis.scaling.match_prefactors`)."""
+    from ringkit.analysis.scaling import match_prefactors
+
+    if "sim_amplitude_he_rms" not in dataset or not np.any(
+        np.asarray(dataset["sim_amplitude_he_rms"]) > 0
+    ):
         raise ParameterError("simulated", "points", "have no positive h/e amplitude to calibrate")
-    new_he = c_he * float(np.exp(np.mean(np.log(sim[ok] / mod[ok]))))
-    new_aas = c_aas
-    if "sim_amplitude_h2e_rms" in ds and "model_amplitude_h2e_rms_at_sim" in ds:
-        s2 = np.asarray(ds["sim_amplitude_h2e_rms"])
-        m2 = np.asarray(ds["model_amplitude_h2e_rms_at_sim"])
-        ok2 = (s2 > 0) & (m2 > 0)
-        if np.any(ok2) and c_aas > 0:
-            new_aas = c_aas * float(np.exp(np.mean(np.log(s2[ok2] / m2[ok2]))))
-    return new_he, new_aas
+    # the model is bounded by G (not linear in the prefactors): solve for the prefactors
+    return match_prefactors(dataset)
