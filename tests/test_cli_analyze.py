@@ -371,3 +371,29 @@ def test_temperature_series_from_a_folder_of_files(tmp_path, capsys):
     assert [q["temperature_K"] for q in s["points"]] == [0.3, 0.6, 1.0, 1.5]
     scale = s["path_length_m"] / (np.pi * 500e-9)
     assert s["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.01)
+
+
+def test_joint_fit_separates_thermal_averaging(tmp_path, capsys):
+    """INVENTED series: h/e = 0.4 x/sinh(x) exp(-pi r/L_phi), h/2e = 0.1 exp(-2 pi r/L_phi)
+    (thermal averaging acts on h/e only: Hansen et al., Phys. Rev. B 64, 045327 (2001)),
+    x = pi k_B T/E_c with E_c = k_B x 1 K, L_phi = 2 um (T/1 K)^-1, r = 500 nm."""
+    b = np.linspace(-0.1, 0.1, 1601)
+    r = 500e-9
+    f = np.pi * r**2 / 4.135667696923859e-15
+    for temp in (0.2, 0.4, 0.7, 1.0, 1.5):
+        lphi, x = 2e-6 / temp, np.pi * temp
+        a1 = 0.4 * x / np.sinh(x) * np.exp(-np.pi * r / lphi)
+        a2 = 0.1 * np.exp(-2 * np.pi * r / lphi)
+        g = 2 + a1 * np.cos(2 * np.pi * f * b) + a2 * np.cos(4 * np.pi * f * b + 0.3)
+        (tmp_path / f"ring_{temp}K.csv").write_text(
+            "B (T),G (e^2/h)\n"
+            + "".join(f"{u!r},{v!r}\n" for u, v in zip(b.tolist(), g.tolist(), strict=True))
+        )
+    args = [str(tmp_path), "--group-by", "temperature", "--r-in", "480nm", "--r-out", "520nm"]
+    d = _json(capsys, *args, "--fit", "joint", "--thermal", "ballistic")
+    s = d["lphi_series"]
+    assert s["fit"]["joint"] and len(s["points_h2e"]) == 5
+    scale = s["path_length_m"] / (np.pi * r)  # path-length convention of the fit
+    assert s["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.03)
+    ec = s["fit"]["values"]["thermal_energy"]
+    assert ec == pytest.approx(1.380649e-23, rel=0.1)  # k_B x 1 K (SI exact)

@@ -40,6 +40,37 @@ def group_by_temperature(temperatures: list[float | None], rtol: float = 1e-3) -
     return groups
 
 
+def _average(idx: list[int], temps, amps: np.ndarray, noise: np.ndarray) -> dict:
+    """Mean cosine amplitude of traces ``idx`` and its error (module docstring)."""
+    a = amps[idx]
+    nz = np.where(np.isfinite(noise[idx]), noise[idx], 0.0)
+    n = len(idx)
+    var = float(np.mean(nz**2)) / n + (float(np.var(a, ddof=1)) / n if n > 1 else 0.0)
+    return {
+        "temperature_K": float(np.mean([temps[i] for i in idx])),
+        "amplitude_e2h": math.sqrt(2) * float(np.mean(a)),
+        "amplitude_err_e2h": math.sqrt(2) * math.sqrt(var),
+        "n_traces": n,
+    }
+
+
+def _points(temps, amps, noise) -> list[dict]:
+    amps = np.asarray(amps, dtype=float)
+    noise = np.asarray(noise, dtype=float)
+    usable = [
+        t if (t is not None and math.isfinite(amps[i]) and amps[i] > 0) else None
+        for i, t in enumerate(temps)
+    ]
+    return [_average(idx, temps, amps, noise) for idx in group_by_temperature(usable)]
+
+
+def _arrays(pts: list[dict]) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]:
+    t = np.array([q["temperature_K"] for q in pts])
+    a = np.array([q["amplitude_e2h"] for q in pts])
+    err = np.array([q["amplitude_err_e2h"] for q in pts])
+    return t, a, (err if np.all(err > 0) else None)
+
+
 def lphi_from_series(
     temperatures: list[float | None],
     amplitudes_rms: list[float],
@@ -50,6 +81,8 @@ def lphi_from_series(
     thermal: str = "none",
     thermal_energy: float | None = None,
     p: float | None = None,
+    amplitudes_h2e_rms: list[float] | None = None,
+    noise_h2e_rms: list[float] | None = None,
 ) -> dict:
     """Average per temperature and fit L_phi(T) (module docstring).
 
@@ -64,78 +97,89 @@ def lphi_from_series(
         Ring radius in m (path length ``order * pi * radius``).
     order, thermal, thermal_energy, p
         Passed to :func:`~ringkit.analysis.fitting.fit_lphi_temperature`.
+    amplitudes_h2e_rms, noise_h2e_rms : list of float, optional
+        h/2e band rms and noise of each trace: the joint h/e + h/2e fit
+        (:func:`~ringkit.analysis.fit_joint.fit_lphi_joint`, Hansen et al., Phys. Rev. B
+        64, 045327 (2001)) separates thermal averaging (h/e only) from dephasing.
 
     Returns
     -------
     dict
         ``lphi_ref_m``, ``lphi_ref_err_m`` (L_phi at the reference temperature and its
-        1-sigma error), ``points`` (T, amplitude, error, n traces), ``fit`` (values, errors, units,
-        reduced chi2, model), ``lphi_at_points`` (L_phi and error at each T), ``path_length_m``,
-        ``lphi_convention``, ``n_traces_without_temperature``.
+        1-sigma error; NaN/inf if unconstrained), ``points`` (T, amplitude, error, n
+        traces; ``points_h2e`` for the joint fit), ``fit`` (values, errors, units, reduced
+        chi2, model, unconstrained, notes), ``lphi_at_points_m`` and errors,
+        ``path_length_m``, ``lphi_convention``, ``n_traces_without_temperature``.
     """
-    amps = np.asarray(amplitudes_rms, dtype=float)
-    noise = np.asarray(noise_rms, dtype=float)
-    usable = [
-        t if (t is not None and math.isfinite(amps[i]) and amps[i] > 0) else None
-        for i, t in enumerate(temperatures)
-    ]
-    groups = group_by_temperature(usable)
-    if len(groups) < 3:
+    pts = _points(temperatures, amplitudes_rms, noise_rms)
+    if len(pts) < 3:
         raise ParameterError(
             "temperature series",
-            f"{len(groups)} distinct temperatures",
+            f"{len(pts)} distinct temperatures",
             "need at least 3 temperatures with an h/e amplitude (give group_by or a "
             "temperature in each file's header or name)",
         )
-    pts = []
-    for idx in groups:
-        a = amps[idx]
-        nz = np.where(np.isfinite(noise[idx]), noise[idx], 0.0)
-        n = len(idx)
-        var = float(np.mean(nz**2)) / n + (float(np.var(a, ddof=1)) / n if n > 1 else 0.0)
-        pts.append(
-            {
-                "temperature_K": float(np.mean([temperatures[i] for i in idx])),
-                "amplitude_e2h": math.sqrt(2) * float(np.mean(a)),
-                "amplitude_err_e2h": math.sqrt(2) * math.sqrt(var),
-                "n_traces": n,
-            }
-        )
-    t = np.array([q["temperature_K"] for q in pts])
-    a = np.array([q["amplitude_e2h"] for q in pts])
-    err = np.array([q["amplitude_err_e2h"] for q in pts])
+    t, a, err = _arrays(pts)
     length = float(path_length(radius, order))
-    fit = fit_lphi_temperature(
-        t,
-        a,
-        path_length=length,
-        order=order,
-        amplitude_err=err if np.all(err > 0) else None,
-        thermal=thermal,
-        thermal_energy=thermal_energy,
-        p=p,
-    )
+    out: dict = {}
+    if amplitudes_h2e_rms is not None:
+        from ringkit.analysis.fit_joint import fit_lphi_joint
+
+        pts2 = _points(temperatures, amplitudes_h2e_rms, noise_h2e_rms)
+        t2, a2, err2 = _arrays(pts2)
+        both = err is not None and err2 is not None
+        fit = fit_lphi_joint(
+            t,
+            a,
+            t2,
+            a2,
+            radius=radius,
+            amplitude_he_err=err if both else None,
+            amplitude_h2e_err=err2 if both else None,
+            thermal=thermal,
+            thermal_energy=thermal_energy,
+            p=p,
+        )
+        out["points_h2e"] = pts2
+        out["path_length_h2e_m"] = float(path_length(radius, 2))
+    else:
+        fit = fit_lphi_temperature(
+            t,
+            a,
+            path_length=length,
+            order=order,
+            amplitude_err=err,
+            thermal=thermal,
+            thermal_energy=thermal_energy,
+            p=p,
+        )
     lphi, lphi_err = lphi_at(fit, t)
     ref_name = next(k for k in fit.values if k.replace("_", "") == "lphiref")
-    return {
-        "lphi_ref_m": float(fit.values[ref_name]),
-        "lphi_ref_err_m": float(fit.errors[ref_name]),
-        "reference_temperature_K": float(fit.fixed.get("reference_temperature", 1.0)),
-        "points": pts,
-        "fit": {
-            "values": dict(fit.values),
-            "errors": dict(fit.errors),
-            "units": dict(fit.units),
-            "reduced_chi2": fit.reduced_chi2,
-            "dof": fit.dof,
-            "model": fit.model,
-            "success": fit.success,
-        },
-        "lphi_at_points_m": [float(x) for x in np.ravel(lphi)],
-        "lphi_err_at_points_m": [float(x) for x in np.ravel(lphi_err)],
-        "path_length_m": length,
-        "order": order,
-        "thermal": thermal,
-        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
-        "n_traces_without_temperature": sum(1 for x in temperatures if x is None),
-    }
+    out.update(
+        {
+            "lphi_ref_m": float(fit.values[ref_name]),
+            "lphi_ref_err_m": float(fit.errors[ref_name]),
+            "reference_temperature_K": float(fit.fixed.get("reference_temperature", 1.0)),
+            "points": pts,
+            "fit": {
+                "values": dict(fit.values),
+                "errors": dict(fit.errors),
+                "units": dict(fit.units),
+                "reduced_chi2": fit.reduced_chi2,
+                "dof": fit.dof,
+                "model": fit.model,
+                "success": fit.success,
+                "unconstrained": list(getattr(fit, "unconstrained", ())),
+                "notes": list(getattr(fit, "notes", ())),
+                "joint": amplitudes_h2e_rms is not None,
+            },
+            "lphi_at_points_m": [float(x) for x in np.ravel(lphi)],
+            "lphi_err_at_points_m": [float(x) for x in np.ravel(lphi_err)],
+            "path_length_m": length,
+            "order": order,
+            "thermal": thermal,
+            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            "n_traces_without_temperature": sum(1 for x in temperatures if x is None),
+        }
+    )
+    return out

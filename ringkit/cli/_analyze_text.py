@@ -51,8 +51,9 @@ def lab_lines(rec: dict[str, Any]) -> list[str]:
 def series_lines(s: dict[str, Any]) -> list[str]:
     """Table of amplitude and L_phi versus temperature and the fitted parameters."""
     fit = s["fit"]
+    kind = "joint h/e + h/2e fit" if fit.get("joint") else "h/e"
     lines = [
-        f"L_phi(T) from {len(s['points'])} temperatures (h/e, path length "
+        f"L_phi(T) from {len(s['points'])} temperatures ({kind}, h/e path length "
         f"{s['path_length_m'] * 1e6:.4g} um = pi x r, r = {s['radius_m'] * 1e9:.4g} nm; "
         f"thermal factor {s['thermal']}):",
         "  T (K)     A (e^2/h)          L_phi (um)        traces",
@@ -69,9 +70,18 @@ def series_lines(s: dict[str, Any]) -> list[str]:
         unit = fit["units"].get(name, "")
         if unit == "m":
             lines.append(f"  {name:<15} {value * 1e6:.4g} +- {err * 1e6:.2g} um")
+        elif unit == "J":  # k_B = 1.380649e-23 J/K and e = 1.602176634e-19 C (SI exact)
+            lines.append(
+                f"  {name:<15} {value / 1.602176634e-25:.4g} +- {err / 1.602176634e-25:.2g} ueV "
+                f"(k_B x {value / 1.380649e-23:.4g} K)"
+            )
         else:
             lines.append(f"  {name:<15} {value:.4g} +- {err:.2g} {unit}".rstrip())
     lines.append(f"  reduced chi2    {_num(fit['reduced_chi2'], '.3g')} ({fit['dof']} dof)")
+    if fit.get("unconstrained"):
+        lines.append(
+            f"  unconstrained   {', '.join(fit['unconstrained'])} (the data cannot fix them)"
+        )
     lines.append(f"  convention      {s['lphi_convention']}")
     if s.get("n_traces_left_out"):
         lines.append(

@@ -192,6 +192,13 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="E_c of the thermal factor, e.g. 2K or 0.17meV (fitted if omitted)",
     )
     t.add_argument("--exponent", type=float, help="fix p of L_phi ~ T^-p (fitted if omitted)")
+    t.add_argument(
+        "--fit",
+        default="he",
+        choices=("he", "joint"),
+        help="h/e amplitudes alone (default) or the joint h/e + h/2e fit that separates "
+        "thermal averaging from dephasing (use with --thermal ballistic or diffusive)",
+    )
     o = p.add_argument_group("output")
     o.add_argument("--json", action="store_true", help="print one JSON object")
     o.add_argument("--figures", metavar="DIR", help="write PNG figures into DIR")
@@ -259,6 +266,12 @@ def _series(args, traces, records) -> dict[str, Any]:
     else:
         radius = sum(r["radius_m"] for r in usable) / len(usable)
     temps = [r["temperature_K"] if r in usable else None for r in records]
+    joint = {}
+    if args.fit == "joint":
+        joint = {
+            "amplitudes_h2e_rms": [r.get("amplitude_h2e_e2h", float("nan")) for r in records],
+            "noise_h2e_rms": [r.get("noise_h2e_rms_e2h", float("nan")) for r in records],
+        }
     try:
         out = lphi_from_series(
             temps,
@@ -268,6 +281,7 @@ def _series(args, traces, records) -> dict[str, Any]:
             thermal=args.thermal,
             thermal_energy=args.thermal_energy,
             p=args.exponent,
+            **joint,
         )
     except ValueError as err:
         raise UserError(f"temperature series: {err}") from err
