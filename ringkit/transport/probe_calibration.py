@@ -189,21 +189,23 @@ class ProbeFluxSolver:
         for kt, x in zip(self._kt, ls, strict=True):
             lmat[kt, c0 : c0 + x.shape[1]] = x
             c0 += x.shape[1]
-        # A' = A + D: cut hoppings change by dh (A = E - H - Sigma), probes add +i eta/2
-        dh = self.model.cut.entries(f) - self.model.cut.entries(ref)
-        d = np.zeros((f.size, nk, nk), dtype=complex)
-        np.add.at(d, (slice(None), self._kc[0], self._kc[1]), -dh)
+        # 1) probes (flux-independent): A_p = A + i eta/2 on the probe orbitals,
+        #    G_p = (1 + G D_p)^-1 G  (one dense solve of the keep block per energy and eta)
+        dp = np.zeros(nk, dtype=complex)
         for e, kt in zip(eta, self._kt[len(lead_l) :], strict=True):
-            d[:, kt, kt] += 0.5j * e
-        # batched products as single 2-D BLAS calls (stacked complex matmul is slow)
-        gd = (g @ d.transpose(1, 0, 2).reshape(nk, -1)).reshape(nk, f.size, nk)
-        mat = np.eye(nk) + gd.transpose(1, 0, 2)
-        rhs = np.broadcast_to(g @ lmat, (f.size, nk, lmat.shape[1]))
-        x = np.linalg.solve(mat, rhs)
-        amp = (lmat.conj().T @ x.transpose(1, 0, 2).reshape(nk, -1)).reshape(
-            -1, f.size, lmat.shape[1]
-        )
-        amp = amp.transpose(1, 0, 2)
+            dp[kt] += 0.5j * e
+        gp = np.linalg.solve(np.eye(nk) + g * dp[None, :], g)
+        # 2) flux (Woodbury on the cut entries, as in FluxTubeSweeper): A' = A_p - dH,
+        #    L^+ G' L = base + left diag(v) (1 - Q diag(v))^-1 right
+        rc, cc = self._kc
+        v = self.model.cut.entries(f) - self.model.cut.entries(ref)
+        lh = lmat.conj().T
+        base = lh @ gp @ lmat
+        left, right, q = lh @ gp[:, rc], gp[cc, :] @ lmat, gp[np.ix_(cc, rc)]
+        mat = np.eye(rc.size)[None] - q[None] * v[:, None, :]
+        y = np.linalg.solve(mat, np.broadcast_to(right, (f.size,) + right.shape))
+        z = (v[:, :, None] * y).transpose(1, 0, 2).reshape(rc.size, -1)
+        amp = (left @ z).reshape(left.shape[0], f.size, -1).transpose(1, 0, 2) + base[None]
         t2 = np.abs(amp) ** 2
         tm = np.zeros((f.size, nt, nt))
         live = np.flatnonzero(np.asarray(nch) > 0)
