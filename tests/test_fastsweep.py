@@ -322,3 +322,116 @@ def test_no_open_channel_every_ringkit_path():
         for kw in ({"method": "kwant"}, {}):
             ds = field_sweep(ring, vals, energy=energy, **kw)
             assert np.all(ds.G.values == 0.0), (mode, kw)
+
+
+# ------------------------------------------------------- reuse of one factorization (issue 11)
+# method="krylov": block GMRES preconditioned by the LU at a reference field, error of every
+# amplitude estimated below tol (docs/engine.md, section 6). Independent references: plain
+# kwant.smatrix on the same finalized system; Onsager-Buttiker reciprocity G(B) = G(-B) for a
+# two-terminal conductance (M. Buttiker, Phys. Rev. Lett. 57, 1761 (1986)); current
+# conservation (unitarity of S).
+
+
+def _gated_ring(seed=3):
+    from ringkit.device import ArmGate, Material, RingDevice, RingGeometry
+    from ringkit.tightbinding import build_ring
+
+    material = Material.preset("GaAs", mean_free_path=3e-7)
+    geometry = RingGeometry.from_mean_radius(1.5e-7, 6e-8)
+    gate = ArmGate("upper", 0.4 * material.fermi_energy_J)
+    return build_ring(RingDevice(material, geometry, gate=gate), seed=seed)
+
+
+def test_krylov_reuse_equals_kwant_with_gate_and_probes_at_two_energies():
+    from types import SimpleNamespace
+
+    ring = _gated_ring()
+    params = ring.params()
+    period = PHI0 / (np.pi * ring.device.geometry.mean_radius**2)
+    fields = np.linspace(-0.4, 0.6, 21) * period
+    e0 = ring.fermi_energy_lattice
+    probes = SimpleNamespace(sites=np.array([40, 400, 800, 1200]), eta=0.05)
+    for energy in (e0, 1.07 * e0):
+        sw = FieldSweeper(ring.fsyst, field_param="B", params=params, energy=energy)
+        kr = FieldSweeper(
+            ring.fsyst,
+            field_param="B",
+            params=params,
+            energy=energy,
+            method="krylov",
+            model=sw.model,
+        )
+        g = kr.transmission(fields)
+        st = kr.krylov_stats
+        assert st.factorizations < len(fields)  # the factorization is really reused
+        assert st.max_error <= 1e-10
+        pick = [0, 7, 13, 20]
+        ref = [
+            kwant.smatrix(ring.fsyst, energy, params={**params, "B": b}).transmission(1, 0)
+            for b in fields[pick]
+        ]
+        assert np.max(np.abs(g[pick] - ref)) < 1e-8
+        assert np.max(np.abs(g - sw.transmission(fields))) < 1e-8
+        assert np.ptp(g) > 1e-2  # the sweep has structure on the scale of the tolerance
+        # with probes (all terminal columns): same as the direct path, current conserved
+        krp = kr.__class__(
+            ring.fsyst,
+            field_param="B",
+            params=params,
+            energy=energy,
+            method="krylov",
+            probes=probes,
+            model=sw.model,
+        )
+        swp = FieldSweeper(
+            ring.fsyst,
+            field_param="B",
+            params=params,
+            energy=energy,
+            probes=probes,
+            model=sw.model,
+        )
+        tm = krp.transmission_matrix(fields[:6])
+        assert np.max(np.abs(tm - swp.transmission_matrix(fields[:6]))) < 1e-8
+        nch = krp.num_modes()
+        assert np.max(np.abs(tm.sum(axis=1) - nch)) < 1e-8  # columns: sum_i T_ij = N_j
+        assert np.max(np.abs(tm.sum(axis=2) - nch)) < 1e-8  # rows: sum_j T_ij = N_i
+        gk = krp.conductance(fields[:6])
+        assert np.max(np.abs(gk - swp.conductance(fields[:6]))) < 1e-8
+
+
+def test_krylov_reuse_onsager_and_unitarity():
+    fsyst = square_ring(16, 10, 5, disorder=1.5, seed=11)
+    fields = np.linspace(0.0, 4e-3, 9)
+    sym = np.concatenate([fields, -fields])
+    kr = FieldSweeper(fsyst, field_param="phi", energy=0.8, method="krylov")
+    g = kr.transmission(sym)
+    assert np.max(np.abs(g[:9] - g[9:])) < 1e-9  # G(B) = G(-B), two terminals
+    tm = kr.transmission_matrix(fields[3])
+    n = kr.num_modes()
+    assert np.max(np.abs(tm.sum(axis=0) - n)) < 1e-9
+    s = kr.smatrix(fields[3]).data
+    assert np.max(np.abs(s.conj().T @ s - np.eye(len(s)))) < 1e-9  # unitarity of S
+
+
+def test_krylov_fallback_warns_once_and_stays_exact():
+    from ringkit.transport.fastsweep import KrylovFallbackWarning
+
+    fsyst = square_ring(16, 10, 5, disorder=1.5, seed=11)
+    fields = np.linspace(0.0, 6e-3, 7)
+    kr = FieldSweeper(fsyst, field_param="phi", energy=0.8, method="krylov", max_iter=1)
+    with pytest.warns(KrylovFallbackWarning, match=r"of 7 field point") as rec:
+        g = kr.transmission(fields)
+    assert len(rec) == 1
+    assert kr.krylov_stats.fallbacks >= 1 and kr.n_fallbacks == kr.krylov_stats.fallbacks
+    ref = [_kwant_t(fsyst, 0.8, "phi", v) for v in fields]
+    assert np.max(np.abs(g - ref)) < 1e-10
+    with pytest.raises(ParameterError, match="tol"):
+        FieldSweeper(fsyst, field_param="phi", energy=0.8, method="krylov", tol=1e-3)
+    with pytest.raises(ParameterError, match="field-free leads"):
+        FieldSweeper(
+            square_ring(14, 9, 5, disorder=1.0, seed=3, field_in_leads=True),
+            field_param="phi",
+            energy=0.6,
+            method="krylov",
+        )

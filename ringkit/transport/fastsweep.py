@@ -33,6 +33,7 @@ import numpy as np
 from kwant.solvers.common import SMatrix
 
 from ringkit._validation import ParameterError, check_choice
+from ringkit.transport._engine_krylov import KrylovReuse
 from ringkit.transport._engine_linsys import (
     MumpsKernel,
     PatternSystem,
@@ -42,11 +43,16 @@ from ringkit.transport._engine_linsys import (
 from ringkit.transport._engine_model import PeierlsModel, build_peierls_model, lead_depends_on
 from ringkit.transport._engine_threads import limited
 
-__all__ = ["FieldSweeper", "kron_reduce", "BoundStateWarning"]
+__all__ = ["FieldSweeper", "kron_reduce", "BoundStateWarning", "KrylovFallbackWarning"]
 
 
 class BoundStateWarning(RuntimeWarning):
     """The energy coincides with a bound state in the continuum of the open system."""
+
+
+class KrylovFallbackWarning(RuntimeWarning):
+    """Some field points of a ``method="krylov"`` sweep did not converge and were solved
+    directly (exact, slower)."""
 
 
 def kron_reduce(cmat: np.ndarray, source: int = 0, drain: int = 1) -> np.ndarray:
@@ -120,9 +126,13 @@ class FieldSweeper:
         site indices of ``fsyst`` and coupling Gamma (self-energy ``-i Gamma/2`` on each
         orbital), in the energy units of the Hamiltonian. Probes are terminals numbered after
         the leads.
-    method : {"schur", "lu"}
+    method : {"schur", "lu", "krylov"}
         ``"schur"`` (default): MUMPS Schur complement onto the terminal variables;
-        ``"lu"``: numeric LU and solve for the needed columns.
+        ``"lu"``: numeric LU and solve for the needed columns; ``"krylov"``: reuse one LU
+        across a field window, block GMRES preconditioned by it with the error of every
+        amplitude estimated below ``tol`` (:mod:`ringkit.transport._engine_krylov`,
+        ``docs/engine.md``); points not converged within ``max_iter`` are solved directly
+        (:class:`KrylovFallbackWarning`, once per call, with the count). Field-free leads only.
     ordering : str
         MUMPS ordering (default ``"amd"``).
     field_scale : float, optional
@@ -130,6 +140,11 @@ class FieldSweeper:
         automatically if omitted).
     model : PeierlsModel, optional
         Reuse the field model of another sweeper of the same system (see :meth:`at_energy`).
+    tol : float
+        ``method="krylov"``: bound on the estimated absolute error of every scattering
+        amplitude (default 1e-10; allowed 1e-15 to 1e-6).
+    max_iter : int
+        ``method="krylov"``: block iterations before a point is solved directly.
 
     Raises
     ------
@@ -168,6 +183,8 @@ class FieldSweeper:
         ordering: str = "amd",
         field_scale: float | None = None,
         model: PeierlsModel | None = None,
+        tol: float = 1e-10,
+        max_iter: int = 20,
     ) -> None:
         if not isinstance(fsyst, kwant.system.FiniteSystem):
             raise ParameterError(
@@ -186,7 +203,8 @@ class FieldSweeper:
             raise ParameterError("energy", energy, "must be a real number") from None
         if not np.isfinite(energy):
             raise ParameterError("energy", energy, "must be finite")
-        check_choice("method", method, ("schur", "lu"))
+        check_choice("method", method, ("schur", "lu", "krylov"))
+        self.tol, self.max_iter = tol, max_iter
         self.fsyst = fsyst
         self.field_param = field_param
         self.params = {k: v for k, v in dict(params or {}).items() if k != field_param}
@@ -213,6 +231,7 @@ class FieldSweeper:
         ]
         self._system: PatternSystem | None = None
         self._kernel: MumpsKernel | None = None
+        self._krylov: KrylovReuse | None = None
         self._lu: MumpsKernel | None = None
         self.n_fallbacks = 0
         self.n_singular = 0
@@ -269,7 +288,17 @@ class FieldSweeper:
             self._prepare_dense()  # right-hand sides depend on the lead modes
             return
         self._system = system
-        self._kernel = MumpsKernel(system, self.method, self.ordering)
+        if self.method == "krylov":
+            if any(self._lead_dep):
+                raise ParameterError(
+                    "method", "krylov", "needs field-free leads (use 'schur' or 'lu')"
+                )
+            self._krylov = KrylovReuse(
+                system, ordering=self.ordering, tol=self.tol, max_iter=self.max_iter
+            )
+            self._kernel = self._krylov._lu
+        else:
+            self._kernel = MumpsKernel(system, self.method, self.ordering)
         self._prepare_dense()
 
     def _prepare_dense(self) -> None:
@@ -363,6 +392,10 @@ class FieldSweeper:
         self._prepare(value)
         if self.method == "lu":
             return self._lu_solution(ncols)
+        if self.method == "krylov":
+            rhs = self._rhs if ncols is None else self._rhs[:, :ncols]
+            x, _ = self._krylov.solve(value, rhs, key=-1 if ncols is None else ncols)
+            return x[self._out_all]
         self._kernel.factor()
         x = np.linalg.solve(self._kernel.schur, self._rhs)[self._out_all]
         tm = self._tmatrix_from(x)
@@ -447,9 +480,10 @@ class FieldSweeper:
         if not (0 <= to_lead < nl and 0 <= from_lead < nl):
             raise ParameterError("to_lead/from_lead", (to_lead, from_lead), f"in 0..{nl - 1}")
         out = np.empty(len(arr))
+        before = self._krylov_fallbacks()
         for k, v in enumerate(arr):
             ncols = None
-            if self.method == "lu" and from_lead == 0 and not any(self._lead_dep):
+            if self.method != "schur" and from_lead == 0 and not any(self._lead_dep):
                 ncols = int(self._col_sizes[0])
             x = self._solution(v, ncols=ncols)
             c0 = int(self._col_sizes[:from_lead].sum())
@@ -458,7 +492,31 @@ class FieldSweeper:
             r1 = r0 + int(self._row_sizes[to_lead])
             blk = x[r0:r1, c0:c1]
             out[k] = float(np.vdot(blk, blk).real)
+        self._warn_krylov(before, len(arr))
         return out[0] if scalar else out
+
+    def _krylov_fallbacks(self) -> int:
+        return 0 if self._krylov is None else self._krylov.stats.fallbacks
+
+    def _warn_krylov(self, before: int, n_points: int) -> None:
+        """One warning per call naming the points that were solved directly."""
+        new = self._krylov_fallbacks() - before
+        if new <= 0:
+            return
+        self.n_fallbacks += new
+        warnings.warn(
+            f"{new} of {n_points} field point(s) did not converge within max_iter = "
+            f"{self.max_iter} block iterations (tol {self.tol:g}) and were solved directly "
+            "from a fresh factorization (exact, slower)",
+            KrylovFallbackWarning,
+            stacklevel=4,  # user code -> @limited wrapper -> public method -> here
+        )
+
+    @property
+    def krylov_stats(self):
+        """Counters of the ``method="krylov"`` path (points, factorizations, solves,
+        iterations, fallbacks, max_error), or None for the direct methods."""
+        return None if self._krylov is None else self._krylov.stats
 
     def _tmatrix_one(self, value: float) -> np.ndarray:
         x = self._solution(value)
@@ -478,7 +536,9 @@ class FieldSweeper:
         The diagonal holds the reflection ``N_j - sum_{i != j} T_ij``.
         """
         arr, scalar = self._values(values)
+        before = self._krylov_fallbacks()
         res = np.stack([self._tmatrix_one(v) for v in arr])
+        self._warn_krylov(before, len(arr))
         return res[0] if scalar else res
 
     def conductance_matrix(self, values) -> np.ndarray:
@@ -527,4 +587,6 @@ class FieldSweeper:
             method=self.method,
             ordering=self.ordering,
             model=self.model,
+            tol=self.tol,
+            max_iter=self.max_iter,
         )
