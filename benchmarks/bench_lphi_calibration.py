@@ -7,6 +7,12 @@ are calibrated for the requested L_phi on 16 energies; the realised L_phi is the
 16 held-out energies (interleaved with the calibration energies, same window). Prints
 realised/requested ratios and the fraction within 15 %.
 
+Part C (definition check): at a FIXED probe coupling and probe density, the per-device
+realised L_phi (-pi r/ln rho on each ring) is compared with the L_phi of the size fit
+ln rho = ln C - pi r/L_phi over rings of several radii (the reviewer's definition: damping of
+the h/e amplitude with the path length). Equal values and ln C ~ 0 mean that the per-device
+measurement realises the same L_phi as the size-scaling definition.
+
 Part B (cost, realistic ring): a GaAs ring of mean radius 0.5 um (ringkit device, flux-tube
 mode), calibration time and the equivalent number of factorizations; median of repeats,
 load average printed. Thread settings: OPENBLAS_NUM_THREADS as set in the environment
@@ -87,6 +93,52 @@ def part_a(n_cases: int, l_phi: float = 30.0, rm: float = 18.0) -> list[str]:
     return head + rows + ["", f"Held-out realised within 15 %: **{frac:.0%}** of {n_cases}.", ""]
 
 
+def part_c(eta: float = 0.2, width: int = 5, density: float = 0.5) -> list[str]:
+    rng = np.random.default_rng(BENCH_SEED + 1)
+    radii = (10.0, 14.0, 18.0, 22.0, 26.0)
+    rows, lr_all, pl_all = [], [], []
+    for rm in radii:
+        per = []
+        for _ in range(3):
+            seed, e0 = int(rng.integers(0, 2**31)), float(rng.uniform(0.8, 1.2))
+            fs = square_ring(
+                rm + width / 2, rm - width / 2, width, disorder=0.7, seed=seed, field_param="flux"
+            )
+            model = FluxTubeModel(fs, flux_period=1.0)
+            v = _velocity(fs, e0)
+            n_p = int(round(2 * np.pi * rm * density))
+            from ringkit.transport.probes import ring_probe_sites
+
+            sol = ProbeFluxSolver(
+                model, ring_probe_sites(fs, n_p), default_calibration_energies(e0, v, rm, 16)
+            )
+            m = measure_realised_lphi(sol, eta, radius=rm)
+            per.append(m["log_ratio"])
+            lr_all.append(m["log_ratio"])
+            pl_all.append(np.pi * rm)
+        lr = float(np.mean(per))
+        rows.append(
+            f"| {rm:g} | {np.pi * rm:.1f} | {lr:.3f} ± {np.std(per, ddof=1) / np.sqrt(3):.3f} "
+            f"| {-np.pi * rm / lr:.1f} |"
+        )
+        print(rows[-1], flush=True)
+    (slope, icpt), cov = np.polyfit(pl_all, lr_all, 1, cov=True)
+    l_fit, l_err = -1 / slope, np.sqrt(cov[0, 0]) / slope**2
+    return [
+        f"## C. Per-device versus size-fit L_phi (fixed eta = {eta} t, {density} probes per "
+        f"site of circumference, width {width}, W = 0.7 t, 3 seeds per radius, "
+        f"default_rng({BENCH_SEED + 1}))",
+        "",
+        "| r (a) | pi r (a) | ln rho (mean ± sem) | per-device L_phi (a) |",
+        "|---|---|---|---|",
+        *rows,
+        "",
+        f"Size fit ln rho = ln C - pi r/L_phi: L_phi = {l_fit:.1f} ± {l_err:.1f} a, "
+        f"ln C = {icpt:.3f} ± {np.sqrt(cov[1, 1]):.3f}.",
+        "",
+    ]
+
+
 def part_b(repeats: int) -> list[str]:
     from ringkit.device import Material, RingDevice, RingGeometry
     from ringkit.tightbinding import build_ring
@@ -146,7 +198,11 @@ def main() -> None:
         "Convention: h/e damped as exp(-L/L_phi), L = pi r (ringkit.conventions).",
         "",
     ]
+    if "--only-c" in sys.argv:
+        print("\n".join(part_c()))
+        return
     lines += part_a(6 if quick else 30)
+    lines += part_c()
     lines += part_b(1 if quick else 3)
     load1 = os.getloadavg()
     lines.append(f"Load average at end: {load1[0]:.2f}, {load1[1]:.2f}, {load1[2]:.2f}.")

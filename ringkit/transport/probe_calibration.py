@@ -372,7 +372,7 @@ def calibrate_probes(
     fsyst = model.fsyst
     r = _estimate_radius(fsyst) if radius is None else check_positive("radius", radius)
     length = path_length(r, 1)
-    sites = ring_probe_sites(fsyst, n_probes)
+    sites = ring_probe_sites(fsyst, n_probes, across=True)
     prop, _ = fsyst.leads[0].modes(float(energy), params=model.params)
     v = float(np.mean(np.abs(prop.velocities)))
     if energies is None:
@@ -411,25 +411,43 @@ def calibrate_probes(
         probe_fraction=f_uniform,
         calibration=ANALYTIC_LATTICE_FACTOR if lattice else 1.0,
     )
-    hist: list[tuple[float, float]] = []  # (ln eta, ln(-ln rho))
-    meas = None
+    hist: list[tuple[float, float]] = []  # (ln eta, ln(-ln rho)) of damped points
+    best = None  # (|ln(-ln rho) - ln aim|, eta, measurement)
     for _ in range(int(max_steps) + 1):
         meas = measure_realised_lphi(solver, eta, radius=r, n_flux=n_flux, seed=seed, a0=a0)
-        eta_meas = eta
         lr = meas["log_ratio"]
         if lr >= 0:  # no measurable damping: much stronger coupling
             eta *= 4.0
             continue
+        miss = abs(math.log(-lr / aim))
+        if best is None or miss < best[0]:
+            best = (miss, eta, meas)
         hist.append((math.log(eta), math.log(-lr)))
         if abs(-lr / aim - 1.0) <= tol:
             break
+        slope = 1.0
         if len(hist) >= 2 and abs(hist[-1][0] - hist[-2][0]) > 1e-12:
             (x0, y0), (x1, y1) = hist[-2], hist[-1]
             slope = (y1 - y0) / (x1 - x0)
-            slope = min(max(slope, 0.3), 3.0)
-        else:
-            slope = 1.0
-        eta = math.exp(hist[-1][0] + (math.log(aim) - hist[-1][1]) / slope)
+            if slope <= 0.05:  # past the maximum damping (strong probes are avoided)
+                eta = math.exp(0.5 * (x0 + x1)) if y1 < y0 else math.exp(x1 + 0.5)
+                continue
+            slope = min(slope, 3.0)
+        step = (math.log(aim) - hist[-1][1]) / slope
+        eta = math.exp(hist[-1][0] + max(min(step, 2.5), -2.5))
+    if best is None:
+        raise ParameterError(
+            "l_phi", l_phi, "the probes do not damp the h/e amplitude on this device"
+        )
+    _, eta_meas, meas = best
+    if best[0] > math.log1p(max(tol, 3 * meas["log_ratio_err"] / abs(meas["log_ratio"]))):
+        warnings.warn(
+            f"requested l_phi = {l_phi:g} not reached: the closest coupling realises "
+            f"{length / -meas['log_ratio']:.4g} (pi r/L_phi = {-meas['log_ratio']:.3g}); "
+            f"validated range {lo} <= pi r/L_phi <= {hi}; more probes (n_probes) damp more",
+            CalibrationRangeWarning,
+            stacklevel=2,
+        )
     lr, lr_err = meas["log_ratio"], meas["log_ratio_err"]
     scale = target / aim
     eta_final = eta_meas * scale

@@ -145,6 +145,7 @@ def ring_probe_sites(
     *,
     center: tuple[float, float] | None = None,
     positions: np.ndarray | None = None,
+    across: bool = False,
 ):
     """Pick ``n_probes`` sites spread evenly along both arms of a two-lead ring.
 
@@ -153,6 +154,11 @@ def ring_probe_sites(
     a share of probes proportional to its angular extent; probes sit at the centres of equal
     angular sub-intervals (never at a junction), each on the site nearest to the middle radius
     of its sub-interval. Lead-interface sites are never used.
+
+    With ``across=True`` the radius of probe k is instead ``r_min + (r_max - r_min) u_k`` with
+    ``u_k`` the golden-ratio sequence ``(k + 1/2) * 0.618... mod 1``, so that the probes also
+    sample the cross-section of wide arms (used by the realised-L_phi calibration: probes only
+    on the middle line of a wide arm are avoided by the electrons at strong coupling).
 
     ``positions`` (n_sites, 2), in kwant's site order and position units, may be given when
     already known (the same numbers as ``site.pos``); otherwise they are read from the sites.
@@ -197,7 +203,8 @@ def ring_probe_sites(
     for iface in fsyst.lead_interfaces:
         banned[np.asarray(iface)] = True
     chosen = []
-    for target, hw in zip(targets, half, strict=True):
+    golden = (np.sqrt(5.0) - 1.0) / 2.0
+    for k, (target, hw) in enumerate(zip(targets, half, strict=True)):
         d = np.abs((ang - target + np.pi) % (2 * np.pi) - np.pi)
         cand = np.flatnonzero((d <= hw) & ~banned)
         if len(cand) == 0:
@@ -205,6 +212,9 @@ def ring_probe_sites(
                 "n_probes", n_probes, "too many probes for this ring (an arm sector is empty)"
             )
         r_mid = 0.5 * (rad[cand].min() + rad[cand].max())
+        if across:
+            u = ((k + 0.5) * golden) % 1.0
+            r_mid = rad[cand].min() + u * (rad[cand].max() - rad[cand].min())
         point = c + r_mid * np.array([np.cos(target), np.sin(target)])
         best = int(cand[np.argmin(np.hypot(*(pos[cand] - point).T))])
         chosen.append(best)
