@@ -458,3 +458,26 @@ def test_attach_probes_reports_its_status_and_convention():
     pr = attach_probes(fsyst, l_phi=30.0, energy=1.1, n_probes=6, zero_field={"flux": 0.0})
     assert pr.info["lphi_convention"] == LPHI_CONVENTION
     assert pr.info["l_phi_realised"] is None and "not measured" in pr.info["l_phi_status"]
+
+
+def test_calibrate_ring_probes_in_si_for_a_uniform_field_ring():
+    # a ringkit ring in uniform-field mode is calibrated on its flux-tube twin (same sites and
+    # disorder); the probe sites map back by lattice tag and the lengths come back in m
+    from ringkit.device import Material, RingDevice, RingGeometry
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.probe_calibration import calibrate_ring_probes
+
+    dev = RingDevice(
+        Material.preset("GaAs", temperature=0.3),
+        RingGeometry.from_mean_radius(0.1e-6, 0.03e-6),
+        field_mode="uniform",
+    )
+    ring = build_ring(dev, seed=5)
+    l_phi = 0.25e-6  # pi r/L_phi = 1.26, inside the validated range
+    pr = calibrate_ring_probes(ring, l_phi, ring.fermi_energy, n_probes=24, n_energies=8)
+    assert pr.info["calibrated_on"] == "flux-tube twin"
+    assert pr.info["path_length"] == pytest.approx(np.pi * 0.1e-6, rel=1e-12)
+    assert pr.info["l_phi_realised"] == pytest.approx(l_phi, rel=0.05)  # secant tolerance 3 %
+    assert 0 < pr.info["l_phi_realised_err"] < 0.5 * l_phi
+    assert len(set(pr.sites.tolist())) == 24
+    assert np.all(np.isin(ring.arm_of_site[pr.sites], ["upper", "lower"]))  # on the arms

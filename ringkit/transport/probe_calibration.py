@@ -43,8 +43,9 @@ range. See docs/probes.md.
 
 Public API
 ----------
-ProbeFluxSolver, calibrate_probes, measure_realised_lphi, he_amplitudes,
-default_calibration_energies, CalibrationRangeWarning, VALIDATED_DAMPING
+ProbeFluxSolver, calibrate_probes, calibrate_ring_probes (ringkit rings, SI, either field
+mode), measure_realised_lphi, he_amplitudes, default_calibration_energies,
+CalibrationRangeWarning, VALIDATED_DAMPING
 """
 
 from __future__ import annotations
@@ -80,6 +81,7 @@ __all__ = [
     "he_amplitudes",
     "measure_realised_lphi",
     "calibrate_probes",
+    "calibrate_ring_probes",
 ]
 
 VALIDATED_DAMPING = (0.25, 3.0)
@@ -465,3 +467,73 @@ def calibrate_probes(
         }
     )
     return DephasingProbes(sites, float(eta_final), float(l_phi), info)
+
+
+def calibrate_ring_probes(
+    ring,
+    l_phi: float,
+    energy: float,
+    *,
+    gate: float | None = None,
+    n_probes: int = 100,
+    **kwargs,
+) -> DephasingProbes:
+    """:func:`calibrate_probes` for a ringkit ring, SI in and out, either field mode.
+
+    Parameters
+    ----------
+    ring : ringkit.tightbinding.TightBindingRing
+        From :func:`ringkit.tightbinding.build_ring`. A uniform-field ring is calibrated on its
+        flux-tube twin (same device and seed, ``field_mode="flux_tube"``: the same sites,
+        disorder and hoppings apart from the Peierls phases); the probe sites are mapped back
+        by their lattice tags. The realised L_phi is the zero-field value.
+    l_phi : float
+        Requested L_phi in m (convention :data:`ringkit.conventions.LPHI_CONVENTION`).
+    energy : float
+        Fermi energy in J above the band bottom.
+    gate : float, optional
+        Arm-gate potential in J.
+    **kwargs
+        Passed to :func:`calibrate_probes` (``n_energies``, ``tol``, ...).
+
+    Returns
+    -------
+    DephasingProbes
+        Sites of ``ring.fsyst``; ``info`` lengths in m (``l_phi_realised``,
+        ``l_phi_realised_err``, ``path_length``, ``radius``, ``l_phi_requested``).
+    """
+    import dataclasses
+
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.lowrank import FluxTubeModel
+
+    a = ring.lattice_spacing
+    twin = ring
+    if ring.field_mode != "flux_tube":
+        twin = build_ring(dataclasses.replace(ring.device, field_mode="flux_tube"), seed=ring.seed)
+    model = FluxTubeModel(twin.fsyst, params=twin.params(gate=gate))
+    l_lat = l_phi if math.isinf(l_phi) else check_positive("l_phi", l_phi, "m") / a
+    pr = calibrate_probes(
+        model,
+        l_lat,
+        ring.to_lattice_energy(energy),
+        n_probes=n_probes,
+        radius=ring.device.geometry.mean_radius / a,
+        **kwargs,
+    )
+    sites = pr.sites
+    if twin is not ring:
+        index = {tuple(t): i for i, t in enumerate(np.asarray(ring.tags).tolist())}
+        try:
+            sites = np.array([index[tuple(twin.tags[s].tolist())] for s in pr.sites])
+        except KeyError:
+            raise ParameterError(
+                "ring", "uniform-field ring", "its flux-tube twin has other sites"
+            ) from None
+    info = dict(pr.info)
+    for key in ("l_phi_requested", "l_phi_realised", "l_phi_realised_err", "path_length", "radius"):
+        if key in info and info[key] is not None:
+            info[key] = float(info[key]) * a
+    info["lattice_spacing"] = a
+    info["calibrated_on"] = "flux-tube twin" if twin is not ring else "this ring"
+    return DephasingProbes(sites, pr.eta, float(l_phi), info)
