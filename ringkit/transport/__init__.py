@@ -18,7 +18,10 @@ API (engine)
 FieldSweeper, kron_reduce                   (fastsweep: fixed-pattern sweeps of any kwant system)
 FluxTubeSweeper, FluxTubeModel              (lowrank: exact low-rank flux-tube sweeps)
 thermal_weights, thermal_average, thermal_conductance   (thermal: -df/dE averaging)
-DephasingProbes, attach_probes, effective_conductance   (probes: Büttiker voltage probes)
+DephasingProbes, attach_probes, effective_conductance, thermal_probe_conductance
+                                            (probes: energy-conserving dephasing probes and
+                                            voltage probes, docs/probes.md)
+calibrate_probes, calibrate_ring_probes     (probe_calibration: realised L_phi per device)
 run_ensemble, SweepTask, EnsembleResult     (ensemble: any concurrent.futures executor)
 fast_field_conductance                      (sweep: the default path of field_sweep)
 """
@@ -44,7 +47,13 @@ from ringkit.transport.dataset import (
 from ringkit.transport.ensemble import EnsembleResult, SweepTask, run_ensemble
 from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
 from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
-from ringkit.transport.probes import DephasingProbes, attach_probes, effective_conductance
+from ringkit.transport.probe_calibration import calibrate_probes, calibrate_ring_probes
+from ringkit.transport.probes import (
+    DephasingProbes,
+    attach_probes,
+    effective_conductance,
+    thermal_probe_conductance,
+)
 from ringkit.transport.sweep import fast_field_conductance
 from ringkit.transport.thermal import thermal_average, thermal_conductance, thermal_weights
 
@@ -72,6 +81,9 @@ __all__ = [
     "DephasingProbes",
     "attach_probes",
     "effective_conductance",
+    "thermal_probe_conductance",
+    "calibrate_probes",
+    "calibrate_ring_probes",
     "run_ensemble",
     "SweepTask",
     "EnsembleResult",
