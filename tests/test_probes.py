@@ -24,6 +24,7 @@ from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
 from ringkit.transport.probe_calibration import (
     VALIDATED_DAMPING,
     CalibrationRangeWarning,
+    LphiCalibrator,
     ProbeFluxSolver,
     calibrate_probes,
     default_calibration_energies,
@@ -438,19 +439,21 @@ def test_realised_lphi_on_held_out_seeds_and_widths():
 
 def test_calibration_range_warning_and_linear_extrapolation():
     fsyst = square_ring(14, 10, 4, disorder=0.7, seed=11, field_param="flux")
-    model = FluxTubeModel(fsyst, flux_period=1.0)
+    cal = LphiCalibrator(
+        FluxTubeModel(fsyst, flux_period=1.0), 1.0, n_probes=24, radius=12.0, n_energies=8
+    )  # one set-up, several L_phi
     lo, hi = VALIDATED_DAMPING
     l_weak = np.pi * 12 / (lo / 4)  # four times weaker than the validated bound
     with pytest.warns(CalibrationRangeWarning, match=r"validated range 0.25 <= pi r/L_phi <= 3"):
-        pr = calibrate_probes(model, l_weak, 1.0, n_probes=24, radius=12.0, n_energies=8)
+        pr = cal.probes(l_weak)
     assert pr.info["extrapolated"]
     assert pr.info["l_phi_realised"] == pytest.approx(l_weak, rel=0.05)
     # the rate picture (eta proportional to 1/L_phi at weak coupling): measured directly
-    sol = ProbeFluxSolver(model, pr.sites, pr.info["calibration_energies"])
-    direct = measure_realised_lphi(sol, pr.eta, radius=12.0)["l_phi_realised"]
-    assert direct == pytest.approx(l_weak, rel=0.15)
-    inf = calibrate_probes(model, np.inf, 1.0, n_probes=8, radius=12.0, n_energies=4)
-    assert inf.eta == 0.0
+    assert cal.measure(pr.eta)["l_phi_realised"] == pytest.approx(l_weak, rel=0.15)
+    mid = cal.probes(20.0)  # pi r/L_phi = 1.9: inside the range, no warning (filterwarnings)
+    assert not mid.info["extrapolated"] and mid.eta > pr.eta
+    assert mid.info["l_phi_realised"] == pytest.approx(20.0, rel=0.031)
+    assert cal.probes(np.inf).eta == 0.0
 
 
 def test_attach_probes_reports_its_status_and_convention():

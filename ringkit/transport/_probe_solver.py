@@ -1,0 +1,236 @@
+"""Exact conductance matrices of a flux-tube device for any probe coupling and flux.
+
+Used by :mod:`ringkit.transport.probe_calibration` (module docstring there): per energy ONE
+sparse factorization of ``E - H - Sigma_leads`` and the block of its inverse on the cut,
+lead-interface and probe orbitals; probes are folded in by a dense Dyson solve, the flux by the
+Woodbury update of :class:`ringkit.transport.lowrank.FluxTubeSweeper`. Also the realised-L_phi
+measurement (h/e damping with a bootstrap error over the energies).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+from collections.abc import Sequence
+
+import numpy as np
+
+from ringkit._validation import ParameterError, check_positive
+from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.transport._lowrank_linalg import (
+    Factorization,
+    SparsePattern,
+    gamma_factor,
+    lead_self_energies,
+)
+from ringkit.transport.fastsweep import kron_reduce
+
+__all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_lphi"]
+
+
+def _one_blas_thread():
+    """Small dense blocks: one BLAS thread (threads only contend here); no-op without
+    threadpoolctl."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - optional dependency
+        return contextlib.nullcontext()
+    return threadpool_limits(limits=1, user_api="blas")
+
+
+class ProbeFluxSolver:
+    """Exact conductance matrices of a flux-tube device for any probe coupling and flux.
+
+    Parameters
+    ----------
+    model : ringkit.transport.lowrank.FluxTubeModel
+        The device WITHOUT probes (its probes, if any, are ignored).
+    probe_sites : sequence of int
+        Site indices of the probes (kwant order).
+    energies : sequence of float
+        Energies (Hamiltonian units); one sparse factorization each.
+
+    Notes
+    -----
+    Terminals are ordered as in :class:`FluxTubeSweeper`: kwant leads first, then the probes.
+    """
+
+    def __init__(self, model, probe_sites: Sequence[int], energies: Sequence[float]) -> None:
+        self.model = model
+        self.probe_sites = np.asarray(probe_sites, dtype=np.int64)
+        self.energies = np.atleast_1d(np.asarray(energies, dtype=float))
+        if self.energies.ndim != 1 or self.energies.size == 0:
+            raise ParameterError("energies", energies, "must be a non-empty 1-D sequence")
+        h0, cut, off = model.h0, model.cut, model.offsets
+        n = h0.shape[0]
+        self.probe_orbitals = [np.arange(off[s], off[s + 1]) for s in self.probe_sites]
+        leads = list(model.lead_orbitals)
+        sources = [(h0.row, h0.col), (cut.rows, cut.cols), (np.arange(n), np.arange(n))]
+        sources += [(np.repeat(o, o.size), np.tile(o, o.size)) for o in leads]
+        self._pattern = SparsePattern(n, sources)
+        allt = leads + self.probe_orbitals
+        keep = np.unique(np.concatenate([cut.rows, cut.cols] + allt))
+        self.keep = keep
+        self._kc = (np.searchsorted(keep, cut.rows), np.searchsorted(keep, cut.cols))
+        self._kt = [np.searchsorted(keep, o) for o in allt]
+        self._lu = Factorization()
+        self._cache: dict = {}
+        self._blocks = [self._factor(e) for e in self.energies]
+
+    def _factor(self, energy: float) -> tuple:
+        m, n = self.model, self.model.h0.shape[0]
+        sig = lead_self_energies(m.fsyst.leads, m.params, float(energy), self._cache)
+        zero = m.cut.entries(0.0)
+        for c in (0.2113, 0.4367, 0.0791):
+            ref = c * m.flux_period
+            vals = [-m.h0.data, -(m.cut.entries(ref) - zero), np.full(n, float(energy))]
+            vals += [-s.ravel() for s in sig]
+            if self._lu.factor(self._pattern.matrix(self._pattern.fill(vals))):
+                break
+        else:
+            raise ParameterError("energies", energy, "E - H - Sigma is singular there")
+        g = self._lu.inverse_block(self.keep)
+        return ref, g, [gamma_factor(s) for s in sig]
+
+    @property
+    def n_terminals(self) -> int:
+        return len(self.model.lead_orbitals) + len(self.probe_sites)
+
+    def conductance_matrices(self, eta, fluxes) -> np.ndarray:
+        """Büttiker conductance matrices, shape ``(n_energies, n_flux, n, n)`` (e^2/h per spin).
+
+        ``eta`` is a scalar or one value per probe (energy units); ``fluxes`` in the model's
+        flux unit. ``C_ij = -T_ij`` (i != j), ``C_jj = sum_{i != j} T_ij``.
+        """
+        f = np.atleast_1d(np.asarray(fluxes, dtype=float))
+        np_ = len(self.probe_sites)
+        eta = np.broadcast_to(np.asarray(eta, dtype=float), (np_,))
+        if np.any(~np.isfinite(eta)) or np.any(eta < 0):
+            raise ParameterError("eta", eta, "must be finite and >= 0 (energy units)")
+        nt = self.n_terminals
+        out = np.empty((self.energies.size, f.size, nt, nt))
+        with _one_blas_thread():
+            for ie in range(self.energies.size):
+                out[ie] = self._matrices_at(ie, eta, f)
+        return out
+
+    def _matrices_at(self, ie: int, eta: np.ndarray, f: np.ndarray) -> np.ndarray:
+        nt, nk = self.n_terminals, self.keep.size
+        ref, g, lead_l = self._blocks[ie]
+        ls = lead_l + [
+            math.sqrt(e) * np.eye(o.size) for e, o in zip(eta, self.probe_orbitals, strict=True)
+        ]
+        nch = [x.shape[1] for x in ls]
+        lmat = np.zeros((nk, sum(nch)), dtype=complex)
+        c0 = 0
+        for kt, x in zip(self._kt, ls, strict=True):
+            lmat[kt, c0 : c0 + x.shape[1]] = x
+            c0 += x.shape[1]
+        # 1) probes (flux-independent): A_p = A + i eta/2 on the probe orbitals,
+        #    G_p = (1 + G D_p)^-1 G  (one dense solve of the keep block per energy and eta)
+        dp = np.zeros(nk, dtype=complex)
+        for e, kt in zip(eta, self._kt[len(lead_l) :], strict=True):
+            dp[kt] += 0.5j * e
+        gp = np.linalg.solve(np.eye(nk) + g * dp[None, :], g)
+        # 2) flux (Woodbury on the cut entries, as in FluxTubeSweeper): A' = A_p - dH,
+        #    L^+ G' L = base + left diag(v) (1 - Q diag(v))^-1 right
+        rc, cc = self._kc
+        v = self.model.cut.entries(f) - self.model.cut.entries(ref)
+        lh = lmat.conj().T
+        base = lh @ gp @ lmat
+        left, right, q = lh @ gp[:, rc], gp[cc, :] @ lmat, gp[np.ix_(cc, rc)]
+        mat = np.eye(rc.size)[None] - q[None] * v[:, None, :]
+        y = np.linalg.solve(mat, np.broadcast_to(right, (f.size,) + right.shape))
+        z = (v[:, :, None] * y).transpose(1, 0, 2).reshape(rc.size, -1)
+        amp = (left @ z).reshape(left.shape[0], f.size, -1).transpose(1, 0, 2) + base[None]
+        t2 = np.abs(amp) ** 2
+        tm = np.zeros((f.size, nt, nt))
+        live = np.flatnonzero(np.asarray(nch) > 0)
+        if live.size:
+            st = np.r_[0, np.cumsum(nch)][live]
+            tm[:, live[:, None], live[None, :]] = np.add.reduceat(
+                np.add.reduceat(t2, st, axis=1), st, axis=2
+            )
+        idx = np.arange(nt)
+        tm[:, idx, idx] = 0.0
+        c = -tm
+        c[:, idx, idx] = tm.sum(axis=1)
+        return c
+
+    def effective_conductance(self, eta, fluxes, *, source: int = 0, drain: int = 1):
+        """Energy-conserving (dephasing-probe) G_eff per energy, shape (n_energies, n_flux)."""
+        cm = self.conductance_matrices(eta, fluxes)
+        with _one_blas_thread():
+            return kron_reduce(cm, source, drain)
+
+
+def he_amplitudes(solver: ProbeFluxSolver, eta, n_flux: int = 16) -> np.ndarray:
+    """h/e amplitude (first flux harmonic of G_eff, e^2/h per spin) at each solver energy."""
+    period = solver.model.flux_period
+    flux = np.arange(int(n_flux)) * period / int(n_flux)
+    g = solver.effective_conductance(eta, flux)
+    return 2.0 * np.abs(np.fft.rfft(g, axis=-1)[:, 1]) / int(n_flux)
+
+
+def _log_ratio(a_eta: np.ndarray, a0: np.ndarray) -> float:
+    return 0.5 * float(np.log(np.sum(a_eta**2) / np.sum(a0**2)))
+
+
+def _bootstrap(a_eta: np.ndarray, a0: np.ndarray, n_boot: int, seed: int) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    idx = rng.integers(0, a0.size, size=(n_boot, a0.size))
+    num, den = (a_eta[idx] ** 2).sum(axis=1), (a0[idx] ** 2).sum(axis=1)
+    return 0.5 * np.log(num / den)
+
+
+def measure_realised_lphi(
+    solver: ProbeFluxSolver,
+    eta,
+    *,
+    radius: float,
+    n_flux: int = 16,
+    n_boot: int = 400,
+    seed: int = 0,
+    a0: np.ndarray | None = None,
+) -> dict:
+    """Realised L_phi of probes at coupling ``eta`` on the solver's device (module docstring).
+
+    Parameters
+    ----------
+    solver : ProbeFluxSolver
+    eta : float or array
+        Probe coupling(s), energy units.
+    radius : float
+        Mean ring radius in position units; the path length is
+        ``ringkit.conventions.path_length(radius, 1)`` (``pi r``).
+    n_flux : int
+        Flux points per period for the h/e harmonic.
+    n_boot : int
+        Bootstrap resamples over the energies.
+    a0 : ndarray, optional
+        Probe-free amplitudes if already known.
+
+    Returns
+    -------
+    dict
+        ``l_phi_realised``, ``l_phi_realised_err`` (position units), ``log_ratio`` (ln rho),
+        ``log_ratio_err``, ``path_length``, ``n_energies`` and the convention text.
+    """
+    length = path_length(check_positive("radius", radius, "position units"), 1)
+    if a0 is None:
+        a0 = he_amplitudes(solver, 0.0, n_flux)
+    a1 = he_amplitudes(solver, eta, n_flux)
+    lr = _log_ratio(a1, a0)
+    boots = _bootstrap(a1, a0, n_boot, seed)
+    lr_err = float(np.std(boots, ddof=1)) if a0.size > 1 else float("inf")
+    lphi = length / -lr if lr < 0 else float("inf")
+    err = lphi * lr_err / abs(lr) if lr < 0 else float("inf")
+    return {
+        "l_phi_realised": float(lphi),
+        "l_phi_realised_err": float(err),
+        "log_ratio": lr,
+        "log_ratio_err": lr_err,
+        "path_length": float(length),
+        "n_energies": int(a0.size),
+        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+    }
