@@ -5,6 +5,10 @@
 #                               (default: ringkit-demo-output)
 #   ./bootstrap.sh test [ARGS]  set up (with test extras and browser), then run the full test suite
 #   ./bootstrap.sh setup        set up only
+#   ./bootstrap.sh lab [ARGS]   set up, then open JupyterLab on 127.0.0.1 in notebooks/ with the
+#                               project's kernel ("Python (ringkit)"); ARGS go to jupyter lab
+#   ./bootstrap.sh app [ARGS]   set up, then serve the device explorer as a Voila app on
+#                               127.0.0.1 (notebooks/01_device_design.ipynb); ARGS go to voila
 #
 # Idempotent: a second run reuses the virtual environment (.venv) and the cached kwant wheel.
 # Environment overrides: RINGKIT_PYTHON (interpreter, default python3.11 or python3),
@@ -143,5 +147,24 @@ case "$MODE" in
         unset MPLBACKEND
         exec "$VPY" -m pytest "$@"
         ;;
-    *) die "unknown mode '$MODE' (use: setup, demo, test)" ;;
+    lab)
+        # The project's kernel: this venv's Python, registered inside the venv only.
+        "$VPY" -m ipykernel install --sys-prefix --name ringkit --display-name "Python (ringkit)" \
+            >/dev/null || die "could not register the ringkit Jupyter kernel"
+        unset MPLBACKEND
+        ROOT_ARGS=()
+        if is_root; then ROOT_ARGS=(--allow-root); fi
+        say "JupyterLab on 127.0.0.1 (Ctrl-C to stop)"
+        exec "$VENV/bin/jupyter" lab --ServerApp.ip=127.0.0.1 \
+            --ServerApp.root_dir="$HERE/notebooks" "${ROOT_ARGS[@]}" "$@"
+        ;;
+    app)
+        unset MPLBACKEND
+        ROOT_ARGS=()
+        if is_root; then ROOT_ARGS=(--ServerApp.allow_root=True); fi
+        say "device explorer (Voila) on 127.0.0.1 (Ctrl-C to stop)"
+        exec "$VENV/bin/voila" "$HERE/notebooks/01_device_design.ipynb" --Voila.ip=127.0.0.1 \
+            "${ROOT_ARGS[@]}" "$@"
+        ;;
+    *) die "unknown mode '$MODE' (use: setup, demo, test, lab, app)" ;;
 esac

@@ -57,6 +57,9 @@ def test_notebook_runs_and_draws(name, tmp_path, monkeypatch):
     assert "Traceback" not in text
     if name.startswith("03"):
         assert "INVENTED" in "".join(c.source for c in nb.cells)
+        # issue 16 pt 8: a one-line laboratory caution at the top of the notebook
+        first = nb.cells[0].source.splitlines()
+        assert any(ln.startswith("**Laboratory caution:**") for ln in first[:4])
 
 
 @pytest.mark.notebook

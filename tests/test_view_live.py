@@ -272,7 +272,7 @@ def test_live_off_uniform_too_large_and_invalid():
     assert "flux-tube" in ex.live_note and "lattice (live)" in ex.summary.value
     ex.controls["field_mode"].value = "flux_tube"
     assert ex.live is not None
-    ex.controls["radius"].value = 2000.0  # ~34 000 sites at the automatic spacing
+    ex.controls["radius"].value = 3000.0  # ~50 000 sites at the automatic spacing
     assert ex.live is None and "sites >" in ex.live_note
     ex.live_lattice.value = False
     assert ex.live is None and ex.live_note is None

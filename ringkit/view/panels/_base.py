@@ -1,7 +1,8 @@
-"""Shared plumbing of the widget panels: PNG figure pane, message area, background jobs.
+"""Shared plumbing of the widget panels: figure pane, message area, background jobs.
 
-A panel owns pyplot-free Agg figures and shows them as PNG bytes in ``ipywidgets.Image``
-(works headless, in Voila and in static exports; tests read the artists directly). Compute
+A panel owns pyplot-free figures and shows them as interactive ipympl canvases inside a
+Jupyter kernel, or as PNG bytes in ``ipywidgets.Image`` (headless, static exports, no ipympl;
+tests read the artists directly). Compute
 errors that are bad input (:class:`ValueError`, which includes
 :class:`~ringkit._validation.ParameterError`) are shown in the panel's message area while the
 last good plot stays on screen. Long computations run in a :class:`BackgroundJob` (a thread
@@ -11,8 +12,11 @@ with a progress callback and cooperative cancellation).
 from __future__ import annotations
 
 import html
+import importlib.util
+import os
 import threading
 import time
+import warnings
 from collections.abc import Callable
 from typing import TYPE_CHECKING, Any
 
@@ -23,27 +27,166 @@ from ringkit.view.style import figure_to_png
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.figure import Figure
 
-__all__ = ["FigurePane", "PanelBase", "BackgroundJob", "JobCancelled"]
+__all__ = [
+    "FigurePane",
+    "PanelBase",
+    "BackgroundJob",
+    "JobCancelled",
+    "LatestOnly",
+    "canvas_available",
+    "in_kernel",
+]
+
+
+def in_kernel() -> bool:
+    """True inside a Jupyter kernel (a frontend may show widgets and canvases)."""
+    try:
+        from IPython import get_ipython
+    except ImportError:  # pragma: no cover - IPython comes with ipywidgets
+        return False
+    shell = get_ipython()
+    return shell is not None and getattr(shell, "kernel", None) is not None
+
+
+def canvas_available() -> bool:
+    """True when figures can be interactive ipympl canvases: ipympl is installed, the code
+    runs inside a Jupyter kernel (a frontend can show the canvas), and ``RINGKIT_FIGURES`` is
+    not ``"png"``."""
+    if os.environ.get("RINGKIT_FIGURES", "").lower() == "png" or not in_kernel():
+        return False
+    return importlib.util.find_spec("ipympl") is not None
 
 
 class FigurePane:
-    """An Agg figure displayed as PNG in an :class:`ipywidgets.Image`.
+    """A figure shown as an interactive ipympl canvas, or as PNG in an ``ipywidgets.Image``.
+
+    The canvas (zoom, pan, cursor read-out) is used when :func:`canvas_available`; otherwise
+    (no ipympl, no kernel: headless tests, static export) the figure is rendered to PNG at
+    ``png_scale`` times its nominal resolution (``PNG_SCALE`` = 2 inside a kernel, where a
+    screen shows it; 1 headless) and shown at exactly its nominal CSS size
+    (``figsize x figure.dpi`` px; narrower screens only scale it down), so text stays sharp
+    on high-density screens and is never stretched.
 
     Parameters
     ----------
     figure : Figure
-        A figure with an Agg canvas (see :func:`ringkit.view.style.new_figure`).
+        A pyplot-free figure (see :func:`ringkit.view.style.new_figure`).
+    interactive : bool, optional
+        Force the canvas (True) or the PNG image (False); default :func:`canvas_available`.
+
+    Attributes
+    ----------
+    widget : ipywidgets.Widget
+        What the panel displays (the canvas or ``image``).
+    image : ipywidgets.Image
+        The PNG view (holds the last PNG bytes in PNG mode).
+    interactive : bool
+    png_scale : float
+    render_count : int
     """
 
-    def __init__(self, figure: Figure) -> None:
+    PNG_SCALE = 2.0
+
+    def __init__(self, figure: Figure, *, interactive: bool | None = None) -> None:
         self.figure = figure
-        self.image = widgets.Image(format="png", layout=widgets.Layout(max_width="100%"))
+        w_in, h_in = figure.get_size_inches()
+        css_w, css_h = round(w_in * figure.dpi), round(h_in * figure.dpi)
+        self.css_size = (css_w, css_h)
+        self.image = widgets.Image(
+            format="png",
+            layout=widgets.Layout(width=f"{css_w}px", height="auto", max_width="100%"),
+        )
+        self.image.add_class("ringkit-figure")
         self.render_count = 0
+        self.png_scale = self.PNG_SCALE if in_kernel() else 1.0
+        self.interactive = canvas_available() if interactive is None else bool(interactive)
+        self.canvas = None
+        self.widget: widgets.Widget = self.image
+        if self.interactive:
+            from ipympl.backend_nbagg import Canvas, FigureManager
+
+            canvas = Canvas(figure)
+            with warnings.catch_warnings():
+                # ipympl 0.10 Toolbar + traitlets: a DeprecationWarning about super().__init__
+                # arguments inside ipympl (upstream, harmless)
+                warnings.filterwarnings(
+                    "ignore", "Passing unrecognized arguments", DeprecationWarning
+                )
+                self._manager = FigureManager(canvas, 0)
+            canvas.header_visible = False
+            canvas.footer_visible = True  # cursor read-out
+            canvas.toolbar_position = "left"
+            canvas.resizable = False
+            canvas.capture_scroll = False
+            canvas.layout = widgets.Layout(width=f"{css_w + 40}px", max_width="100%")
+            canvas.add_class("ringkit-figure")
+            canvas.add_class("ringkit-canvas")
+            self.canvas = canvas
+            self.widget = canvas
 
     def refresh(self) -> None:
-        """Render the figure and push the PNG bytes to the widget."""
-        self.image.value = figure_to_png(self.figure)
+        """Redraw the canvas, or render the PNG and push the bytes to the image."""
+        if self.canvas is not None:
+            from ringkit.view.style import style_context
+
+            with style_context():
+                self.canvas.draw_idle()
+        else:
+            self.image.value = figure_to_png(self.figure, dpi=self.png_scale * self.figure.dpi)
         self.render_count += 1
+
+
+class LatestOnly:
+    """Run ``func(arg)`` in one worker thread for the most recently submitted ``arg`` only.
+
+    Submissions made while a computation runs replace each other; when it ends, only the
+    newest is started (older ones are dropped). ``on_done(arg, result)`` /
+    ``on_error(arg, exc)`` run in the worker thread; ``is_current(arg)`` lets them check that
+    no newer submission is pending.
+    """
+
+    def __init__(self, func, on_done, on_error) -> None:
+        self._func, self._on_done, self._on_error = func, on_done, on_error
+        self._lock = threading.Lock()
+        self._pending: list = []
+        self._serial = 0
+        self._thread: threading.Thread | None = None
+        self._idle = threading.Event()
+        self._idle.set()
+
+    def submit(self, arg) -> int:
+        """Queue ``arg`` (replacing a queued one); returns its serial number."""
+        with self._lock:
+            self._serial += 1
+            self._pending[:] = [(self._serial, arg)]
+            self._idle.clear()
+            if self._thread is None or not self._thread.is_alive():
+                self._thread = threading.Thread(target=self._run, daemon=True,
+                                                name="ringkit-live")  # fmt: skip
+                self._thread.start()
+            return self._serial
+
+    def is_current(self, serial: int) -> bool:
+        """True if ``serial`` is the newest submission."""
+        return serial == self._serial
+
+    def _run(self) -> None:
+        while True:
+            with self._lock:
+                if not self._pending:
+                    self._idle.set()
+                    return
+                serial, arg = self._pending.pop()
+            try:
+                result = self._func(arg)
+            except BaseException as exc:  # shown by the panel, never lost
+                self._on_error(serial, arg, exc)
+            else:
+                self._on_done(serial, arg, result)
+
+    def wait(self, timeout: float | None = None) -> bool:
+        """Block until nothing is queued or running; True if idle."""
+        return self._idle.wait(timeout)
 
 
 class JobCancelled(Exception):

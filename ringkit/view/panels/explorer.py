@@ -34,9 +34,21 @@ from ringkit.analysis.network1d import NetworkRing
 from ringkit.analysis.spectrum import OscillationSpectrum, ab_bands, oscillation_spectrum
 from ringkit.units import PHI0
 
-__all__ = ["ExplorerParams", "PreviewResult", "explorer_preview", "preview_field_grid", "N_PROBES"]
+__all__ = [
+    "ExplorerParams",
+    "PreviewResult",
+    "explorer_preview",
+    "preview_field_grid",
+    "N_PROBES",
+    "DENSITY_RANGE",
+    "MOBILITY_RANGE",
+]
 
 MATERIALS = ("GaAs", "InAs", "Au")
+DENSITY_RANGE = (1e13, 1e19)
+"""Accepted sheet density in m^-2 (1e9 to 1e15 cm^-2: depleted to metallic 2D films)."""
+MOBILITY_RANGE = (1e-4, 1e3)
+"""Accepted mobility in m^2/(V s) (1 to 1e7 cm^2/(V s)); ``inf`` means clean."""
 N_PROBES = 40
 """Dephasing probes of the full computation when L_phi is set (also drawn in the sketch)."""
 
@@ -59,7 +71,10 @@ class ExplorerParams:
         Polar angle of the left lead in rad, in (pi/2, 3 pi/2); the right lead sits at 0, so
         the upper arm is ``lead_angle/(2 pi)`` of the circumference (arm length asymmetry).
     fermi_energy : float or None
-        Fermi energy in J; None keeps the preset's density.
+        Fermi energy in J; None keeps the preset's density. Give this or ``density``.
+    density : float or None
+        Sheet electron density in m^-2 of the spin-degenerate 2DEG (sets
+        ``E_F = pi hbar^2 n/m*``); in (1e13, 1e19) m^-2 (1e9 to 1e15 cm^-2).
     mobility : float or None
         Mobility in m^2/(V s) (sets the elastic mean free path); None = preset value,
         ``inf`` = clean (no disorder).
@@ -98,6 +113,7 @@ class ExplorerParams:
     width_ratio: float = 1.0
     lead_angle: float = math.pi
     fermi_energy: float | None = None
+    density: float | None = None
     mobility: float | None = None
     phase_coherence_length: float | None = 2e-6
     temperature: float = 0.1
@@ -116,6 +132,14 @@ class ExplorerParams:
         check_choice("gate_arm", self.gate_arm, ("upper", "lower"))
         check_choice("field_mode", self.field_mode, ("uniform", "flux_tube"))
         check_positive("width_ratio", self.width_ratio)
+        if self.density is not None:
+            if self.fermi_energy is not None:
+                raise ParameterError(
+                    "density", self.density, "give fermi_energy or density, not both", "m^-2"
+                )
+            check_range("density", self.density, *DENSITY_RANGE, unit="m^-2")
+        if self.mobility is not None and not math.isinf(self.mobility):
+            check_range("mobility", self.mobility, *MOBILITY_RANGE, unit="m^2/(V s)")
         check_range("field_min", self.field_min, unit="T")
         check_range("field_max", self.field_max, unit="T")
         if not self.field_max > self.field_min:
@@ -136,7 +160,9 @@ class ExplorerParams:
         from ringkit.device.material import Material
 
         over: dict[str, Any] = {"temperature": self.temperature}
-        if self.fermi_energy is not None:
+        if self.density is not None:
+            over["density"] = self.density
+        elif self.fermi_energy is not None:
             over["fermi_energy"] = self.fermi_energy
         if self.mobility is not None:
             over["mobility"] = None if math.isinf(self.mobility) else self.mobility
@@ -210,6 +236,9 @@ class PreviewResult:
     ring : NetworkRing
     elapsed : float
         Compute time in s.
+    notes : tuple of str
+        Warnings raised by the computation (e.g. an unconverged thermal average), recorded
+        instead of emitted so that the panel can show them.
     """
 
     field: np.ndarray
@@ -221,6 +250,7 @@ class PreviewResult:
     amplitude_h2e: float
     ring: NetworkRing
     elapsed: float
+    notes: tuple[str, ...] = ()
 
 
 def preview_field_grid(params: ExplorerParams, period: float) -> np.ndarray:
@@ -251,7 +281,12 @@ def explorer_preview(params: ExplorerParams) -> PreviewResult:
     ring = params.network_ring()
     period = PHI0 / ring.area
     field = preview_field_grid(params, period)
-    g = ring.conductance(field)
+    import warnings
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        g = ring.conductance(field)
+    notes = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
     spec = oscillation_spectrum(field, g, window="hann", pad=4)
     r_in = math.sqrt(geo.area_inner / math.pi)
     r_out = math.sqrt(geo.area_outer / math.pi)
@@ -266,4 +301,5 @@ def explorer_preview(params: ExplorerParams) -> PreviewResult:
         amplitude_h2e=_band_rms(spec, bands[2]),
         ring=ring,
         elapsed=time.perf_counter() - t0,
+        notes=notes,
     )

@@ -69,11 +69,13 @@ __all__ = [
     "LiveResult",
     "live_device",
     "live_flux_grid",
+    "live_flux_of",
     "single_thread_blas",
 ]
 
-LIVE_MAX_SITES = 12_000
-"""Largest site estimate for which the live view computes (0.5 s budget at ~10 000 sites)."""
+LIVE_MAX_SITES = 40_000
+"""Largest site estimate for which the live view computes (the explorer's default 0.5 µm
+ring has ~24 000 sites; timings: benchmarks/bench_live_preview.py)."""
 
 LIVE_MAX_ENERGIES = 3
 """Energies of the thermal average in the live view (one factorization each)."""
@@ -235,6 +237,17 @@ def live_flux_grid(
     k0 = math.ceil(field_min / step - 1e-9)
     k1 = math.floor(field_max / step + 1e-9)
     return np.arange(k0, k1 + 1, dtype=np.int64), m
+
+
+def live_flux_of(params: ExplorerParams, *, points_per_period: int = 64,
+                 min_points: int = 161) -> np.ndarray:  # fmt: skip
+    """Flux grid (Wb) the live view uses for ``params`` (builds the lattice for its area)."""
+    from ringkit.tightbinding import build_ring
+
+    ring = build_ring(live_device(params), seed=params.seed)
+    k, m = live_flux_grid(params.field_min, params.field_max, PHI0 / ring.loop_area,
+                          points_per_period=points_per_period, min_points=min_points)  # fmt: skip
+    return k * (PHI0 / m)
 
 
 class _Lru(OrderedDict):

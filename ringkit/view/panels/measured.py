@@ -60,6 +60,7 @@ class LoadOptions:
     signal_unit: str = ""
     series_resistance: float = 0.0
     terminals: Literal["two", "four"] = "two"
+    group_by: str = ""
 
     def kwargs(self) -> dict:
         """Keyword arguments for :func:`load_traces`."""
@@ -77,7 +78,18 @@ class LoadOptions:
             "signal_unit": self.signal_unit.strip() or None,
             "series_resistance": self.series_resistance,
             "terminals": self.terminals,
+            "group_by": _group(self.group_by),
         }
+
+
+def _group(text: str) -> str | int | None:
+    """Loader ``group_by`` from the panel's text: "" = auto, "none" = never, else a column."""
+    text = text.strip()
+    if not text or text.lower() == "auto":
+        return "auto"
+    if text.lower() == "none":
+        return None
+    return int(text) if text.isdigit() else text
 
 
 def load_trace_file(path: str | Path, options: LoadOptions | None = None) -> LoadResult:

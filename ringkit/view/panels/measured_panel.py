@@ -5,11 +5,20 @@ the background method and window, and see the trace with its background, the res
 simulated ring of the extracted area, the spectrum with the h/e and h/2e bands, and the
 extracted numbers. Loader errors (unreadable uploads) and invalid settings are shown in the
 message area; the last good plots stay.
+
+Per-file options (columns, units, series resistance, terminals, grouping, radii) return to their
+defaults whenever a *different* file is loaded (a setting made for one file, e.g. the demo's
+1200 Ohm series resistance, never silently applies to the next); changing an option reloads
+the same file. A temperature series (grouped by a temperature column, or one file per
+temperature) gets an L_phi(T) fit (:mod:`ringkit.view.panels.measured_series`). The
+cross-checks of :mod:`ringkit.analysis.checks` (bands overlapping, no peak above the noise
+floor, implausible amplitude or G) are shown in the message area. docs/panels.md.
 """
 
 from __future__ import annotations
 
 import html
+import math
 from pathlib import Path
 from typing import Any
 
@@ -28,9 +37,21 @@ from ringkit.view.panels.measured import (
     load_trace_bytes,
     load_trace_file,
 )
+from ringkit.view.panels.measured_series import series_lphi, trace_caption
 from ringkit.view.style import DELTA_G_LABEL, field_scale, field_unit_for, new_figure
 
+_STYLE = {"description_width": "170px"}
+_WIDE = widgets.Layout(width="400px")
+
 __all__ = ["MeasuredDataPanel"]
+
+
+def _param(name: str, value: float, error: float, unit: str) -> str:
+    """``name = value ± error unit`` with lengths in µm."""
+    if unit == "m":
+        value, error, unit = 1e6 * value, 1e6 * error, "µm"
+    unit = "" if unit in ("1", "amplitude") else f" {unit}"
+    return f"{name} = {value:.4g} ± {error:.2g}{unit}"
 
 
 def _upload_items(value: Any) -> list[tuple[str, bytes]]:
@@ -62,12 +83,14 @@ class MeasuredDataPanel(PanelBase):
         self.analysis: MeasuredAnalysis | None = None
         self.artists: dict[str, Any] = {}
         self.source = ""
-        style = {"description_width": "150px"}
-        lay = widgets.Layout(width="360px")
+        style, lay = _STYLE, _WIDE
         self.upload = widgets.FileUpload(accept=".txt,.dat,.csv,.tsv", multiple=False)
         self.path = widgets.Text(description="file path", style=style, layout=lay)
-        self.load_button = widgets.Button(description="Load path", icon="folder-open")
-        self.demo_button = widgets.Button(description="Load demo (invented)", icon="flask")
+        auto = widgets.Layout(width="auto")
+        self.load_button = widgets.Button(description="Load path", icon="folder-open",
+                                          layout=auto)  # fmt: skip
+        self.demo_button = widgets.Button(description="Load demo (invented data)", icon="flask",
+                                          layout=auto)  # fmt: skip
         self.load_controls = {
             "field_column": widgets.Text(description="field column", placeholder="auto",
                                          style=style, layout=lay),
@@ -83,9 +106,12 @@ class MeasuredDataPanel(PanelBase):
                 layout=lay),
             "terminals": widgets.Dropdown(options=["two", "four"], description="terminals",
                                           style=style, layout=lay),
+            "group_by": widgets.Text(description="group by column", style=style, layout=lay,
+                                     placeholder="auto (temperature column); none"),
         }  # fmt: skip
+        self.file_defaults = {k: w.value for k, w in self.load_controls.items()}
         self.trace_select = widgets.Dropdown(options=[], description="trace", style=style,
-                                             layout=widgets.Layout(width="520px"))  # fmt: skip
+                                             layout=widgets.Layout(width="640px"))  # fmt: skip
         kw = dict(continuous_update=False, style=style, layout=lay)
         self.controls = {
             "field": widgets.FloatRangeSlider(value=(-1.0, 1.0), min=-1.0, max=1.0, step=0.1,
@@ -107,6 +133,14 @@ class MeasuredDataPanel(PanelBase):
                                            description="sim. L_phi (µm)", readout_format=".3g",
                                            **kw),
         }  # fmt: skip
+        self.file_defaults.update(r_in=0.0, r_out=0.0)
+        self.series_button = widgets.Button(description="Fit L_phi(T) over all traces",
+                                            icon="line-chart", layout=auto)  # fmt: skip
+        self.series_summary = widgets.HTML(value="")
+        self.series_summary.add_class("ringkit-series")
+        self.series = None
+        self.series_button.on_click(lambda _: self.fit_series())
+        self._source_key: object = None
         self.upload.observe(self._on_upload, names="value")
         self.load_button.on_click(lambda _: self.load_path(self.path.value))
         self.demo_button.on_click(lambda _: self.load_demo())
@@ -127,12 +161,14 @@ class MeasuredDataPanel(PanelBase):
              widgets.HBox([self.path, self.load_button]),
              *self.load_controls.values()]
         )  # fmt: skip
-        analysis_box = widgets.VBox(list(self.controls.values()))
+        analysis_box = widgets.VBox(
+            [*self.controls.values(), self.series_button, self.series_summary]
+        )
         tabs = widgets.Tab(children=[load_box, analysis_box])
         tabs.set_title(0, "load")
         tabs.set_title(1, "analysis")
         self.widget = widgets.VBox(
-            [tabs, self.trace_select, self.message, self.pane.image, self.summary]
+            [tabs, self.trace_select, self.message, self.pane.widget, self.summary]
         )
         self.widget.add_class("ringkit-measured")
         self._pending: tuple[str, Any] | None = None
@@ -153,7 +189,9 @@ class MeasuredDataPanel(PanelBase):
     def _accept(self, result, source: str) -> None:
         self.traces = tuple(result.traces)
         self.source = source
-        labels = [(f"{i}: {t.label} ({len(t)} points)", i) for i, t in enumerate(self.traces)]
+        labels = [(trace_caption(i, t), i) for i, t in enumerate(self.traces)]
+        self.series = None
+        self.series_summary.value = ""
         self._quiet = True
         try:
             self.trace_select.options = labels
@@ -175,26 +213,60 @@ class MeasuredDataPanel(PanelBase):
         self._accept(result, source)
         return True
 
+    def reset_file_options(self) -> None:
+        """Every per-file option (columns, units, series R, terminals, grouping, radii) back to
+        its default, without reloading."""
+        self._suspend_reload = True
+        self._quiet = True
+        try:
+            for key, value in self.file_defaults.items():
+                w = self.load_controls.get(key) or self.controls[key]
+                w.value = value
+        finally:
+            self._suspend_reload = False
+            self._quiet = False
+
+    def _new_source(self, key: object) -> None:
+        """Reset the per-file options when ``key`` names a different file than the last."""
+        if key != self._source_key:
+            self.reset_file_options()
+            self._source_key = key
+
     def load_bytes(self, content: bytes, filename: str) -> bool:
-        """Load uploaded bytes; on failure show the loader's message (returns False)."""
+        """Load uploaded bytes; on failure show the loader's message (returns False).
+
+        A different file (name or content) than the last one first resets the per-file
+        options to their defaults (:meth:`reset_file_options`)."""
+        import hashlib
+
+        if not getattr(self, "_reloading", False):
+            self._new_source(("bytes", filename, hashlib.sha256(content).hexdigest()))
         self._last_load = ("bytes", (content, filename))
         opts = self.load_options()
         return self._load(lambda: load_trace_bytes(content, filename, opts), f"upload {filename!r}")
 
     def load_path(self, path: str | Path) -> bool:
-        """Load a file or folder path; on failure show the loader's message."""
+        """Load a file or folder path; on failure show the loader's message (a different path
+        than the last one first resets the per-file options)."""
+        if not getattr(self, "_reloading", False):
+            self._new_source(("path", str(Path(path).expanduser().resolve())))
         self._last_load = ("path", path)
         opts = self.load_options()
         return self._load(lambda: load_trace_file(path, opts), str(path))
 
     def load_demo(self) -> bool:
         """Load the INVENTED demo trace (series resistance 1200 Ohm preset)."""
+        content = demo_trace_text().encode()
+        name = "ringkit-demo-invented.tsv"
+        import hashlib
+
+        self._new_source(("bytes", name, hashlib.sha256(content).hexdigest()))
         self._suspend_reload = True
         try:
             self.load_controls["series_resistance"].value = 1200.0
         finally:
             self._suspend_reload = False
-        return self.load_bytes(demo_trace_text().encode(), "ringkit-demo-invented.tsv")
+        return self.load_bytes(content, name)
 
     def _reload(self) -> None:
         if getattr(self, "_suspend_reload", False):
@@ -202,10 +274,14 @@ class MeasuredDataPanel(PanelBase):
         last = getattr(self, "_last_load", None)
         if last is None:
             return
-        if last[0] == "bytes":
-            self.load_bytes(*last[1])
-        else:
-            self.load_path(last[1])
+        self._reloading = True
+        try:
+            if last[0] == "bytes":
+                self.load_bytes(*last[1])
+            else:
+                self.load_path(last[1])
+        finally:
+            self._reloading = False
 
     def _on_control(self, change: dict) -> None:
         if not self._quiet:
@@ -264,9 +340,61 @@ class MeasuredDataPanel(PanelBase):
             self._draw(trace)
 
         ok = self.guarded(work)
-        if ok and self.analysis is not None and self.analysis.notes:
-            self.show_message("\n".join(self.analysis.notes), level="warning")
+        if ok and self.analysis is not None:
+            notes = list(self.analysis.notes) + self._cross_checks()
+            if notes:
+                self.show_message("\n".join(dict.fromkeys(notes)), level="warning")
         return ok
+
+    def _cross_checks(self) -> list[str]:
+        """Messages of :func:`ringkit.analysis.checks.check_result` for the shown analysis."""
+        from ringkit.analysis.checks import check_result
+
+        opts = self.load_options()
+        c = self.controls
+        radii = None
+        if c["r_in"].value > 0 and c["r_out"].value > 0:
+            radii = (c["r_in"].value / 1e9, c["r_out"].value / 1e9)
+        found = check_result(self.analysis.result, radii=radii, terminals=opts.terminals,
+                             series_resistance=opts.series_resistance)  # fmt: skip
+        return [f"{'warning' if f.level == 'warn' else 'check failed'}: {f.message}" for f in found]
+
+    # ------------------------------------------------------------------ temperature series
+    def fit_series(self) -> bool:
+        """L_phi(T) over all loaded traces (grouped by temperature); result in
+        ``self.series`` and the series summary, problems in the message area."""
+        if not self.traces:
+            self.show_message("load a temperature series first")
+            return False
+        try:
+            opts = self.analysis_options()
+            fit = series_lphi(self.traces, opts)
+        except ValueError as exc:
+            self.show_message(f"L_phi(T) fit: {exc}")
+            return False
+        self.series = fit
+        f = fit.fit["fit"]
+        rows = [
+            (
+                f"T = {t:.3g} K",
+                f"h/e amplitude {a:.3g} ± {da:.2g} e²/h; L_phi = {1e6 * lp:.3g} ± "
+                f"{1e6 * dlp:.2g} µm",
+            )
+            for t, a, da, lp, dlp in zip(fit.temperatures, fit.amplitudes,
+                                         fit.amplitude_errors, fit.lphi, fit.lphi_errors,
+                                         strict=True)
+        ]  # fmt: skip
+        params = "; ".join(_param(k, v, f["errors"].get(k, math.nan), f["units"].get(k, ""))
+                           for k, v in f["values"].items())  # fmt: skip
+        rows.append(("fit", f"{f['model']}: {params}; reduced chi² {f['reduced_chi2']:.3g}"))
+        rows.append(("path length", f"π r = {1e6 * fit.fit['path_length_m']:.4g} µm"))
+        if fit.skipped:
+            rows.append(("left out", "; ".join(fit.skipped)))
+        body = "".join(
+            f"<tr><td>{html.escape(k)}</td><td>{html.escape(v)}</td></tr>" for k, v in rows
+        )
+        self.series_summary.value = f"<table class='ringkit-numbers'>{body}</table>"
+        return True
 
     def _draw(self, trace) -> None:
         a = self.analysis

@@ -62,8 +62,8 @@ class SizeScalingPanel(PanelBase):
         self.points_params: ScalingParams | None = None
         self.job: BackgroundJob | None = None
         self.artists: dict[str, Any] = {}
-        style = {"description_width": "170px"}
-        lay = widgets.Layout(width="380px")
+        style = {"description_width": "220px"}
+        lay = widgets.Layout(width="440px")
         kw = dict(continuous_update=False, style=style, layout=lay)
         lphi_um = 1e3 if not math.isfinite(p.lphi) else p.lphi * 1e6
         self.controls = {
@@ -103,9 +103,15 @@ class SizeScalingPanel(PanelBase):
         self.sim_width = widgets.BoundedFloatText(value=50.0, min=5.0, max=2000.0,
                                                   description="arm width (nm)", style=style,
                                                   layout=lay)  # fmt: skip
-        self.sim_button = widgets.Button(description="Simulate ensemble", icon="play")
-        self.cancel_button = widgets.Button(description="Cancel", icon="stop", disabled=True)
-        self.calibrate = widgets.Button(description="Calibrate prefactors", disabled=True)
+        self.sim_button = widgets.Button(
+            description="Simulate ensemble", icon="play", layout=widgets.Layout(width="auto")
+        )
+        self.cancel_button = widgets.Button(
+            description="Cancel", icon="stop", disabled=True, layout=widgets.Layout(width="auto")
+        )
+        self.calibrate = widgets.Button(
+            description="Calibrate prefactors", disabled=True, layout=widgets.Layout(width="auto")
+        )
         self.progress = widgets.FloatProgress(value=0.0, min=0.0, max=1.0, description="sim:")
         self.progress_label = widgets.Label(value="not run")
         self.sim_button.on_click(lambda _: self.run_simulation())
@@ -124,7 +130,7 @@ class SizeScalingPanel(PanelBase):
         tabs = widgets.Tab(children=[widgets.VBox(list(self.controls.values())), sim_box])
         tabs.set_title(0, "model")
         tabs.set_title(1, "simulation")
-        self.widget = widgets.VBox([tabs, self.message, self.pane.image, self.summary])
+        self.widget = widgets.VBox([tabs, self.message, self.pane.widget, self.summary])
         self.widget.add_class("ringkit-scaling")
         self.update()
 
