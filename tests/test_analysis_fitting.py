@@ -26,7 +26,7 @@ from ringkit.analysis import (
 )
 from ringkit.analysis.fit_joint import fit_lphi_joint
 from ringkit.analysis.fitting import UnconstrainedWarning
-from ringkit.conventions import LPHI_CONVENTION, convert_lphi, path_length
+from ringkit.conventions import LPHI_CONVENTION, coherent_damping, convert_lphi, path_length
 
 K_B = constants.k
 DATA = Path(__file__).parent / "data"
@@ -264,6 +264,8 @@ def test_path_length_convention_is_explicit_and_shared():
     r = 0.63e-6
     assert path_length(r, 1) == pytest.approx(np.pi * r, rel=1e-15)
     assert path_length(r, 2) == pytest.approx(2 * np.pi * r, rel=1e-15)
+    assert coherent_damping(np.pi * r, 2 * np.pi * r) == pytest.approx(np.exp(-0.5), rel=1e-15)
+    assert coherent_damping(1e-6, np.inf) == 1.0
     radius = np.linspace(0.3e-6, 1.5e-6, 6)
     a = 0.8 * np.exp(-np.pi * radius / 1.5e-6)  # h/e amplitudes, l_phi = 1.5 um (ringkit)
     default = fit_lphi_size(radius, a)
