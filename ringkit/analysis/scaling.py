@@ -206,7 +206,10 @@ def _parameters(
     if int(n_modes) != n_modes or n_modes < 1:
         raise ParameterError("n_modes", n_modes, "must be an integer >= 1 (modes per arm)")
     if conductance is not None:
-        conductance = check_positive("conductance", conductance, "e^2/h")
+        g = np.asarray(conductance, dtype=float)
+        if g.ndim > 1 or np.any(~np.isfinite(g)) or np.any(g <= 0):
+            raise ParameterError("conductance", conductance, "must be > 0 (scalar or per radius)")
+        conductance = float(g) if g.ndim == 0 else g
     r_j = check_range("junction_reflection", junction_reflection, 0.0, 1.0)
     diffusion = fermi_velocity * mean_free_path / dimension
     l_t = np.inf if temperature == 0 else float(np.sqrt(HBAR * diffusion / (K_B * temperature)))
@@ -272,8 +275,9 @@ def predict_amplitudes(
         Number of independent samples averaged (ensemble mean, series array).
     n_modes : int
         Open transverse modes per arm, N >= 1.
-    conductance : float, optional
-        Mean two-terminal conductance G in e^2/h (default: the model's ``2N/(1 + pi r/2l)``).
+    conductance : float or array, optional
+        Mean two-terminal conductance G in e^2/h, scalar or one value per radius (default: the
+        model's ``2N/(1 + pi r/2l)``).
     junction_reflection : float
         Back-scattering probability at a junction, in [0, 1] (AAS in ballistic rings).
     simulated : mapping or xarray.Dataset, optional
@@ -314,6 +318,8 @@ def predict_amplitudes(
     }
     coords: dict[str, Any] = {"radius": ("radius", r, {"units": "m", "long_name": "ring radius"})}
     if simulated is not None:
+        if np.ndim(p["conductance"]) > 0:
+            raise ParameterError("conductance", "array", "must be a scalar with simulated=")
         _add_simulated(data, coords, simulated, p)
     attrs = {
         "lphi_m": p["lphi"],
@@ -329,6 +335,7 @@ def predict_amplitudes(
         "n_averaged": p["n_averaged"],
         "n_modes": p["n_modes"],
         "conductance_e2h": "model" if p["conductance"] is None else p["conductance"],
+        # (an array of conductances, one per radius, is stored as given)
         "junction_reflection": p["junction_reflection"],
         "kappa_max": KAPPA_MAX,
         "regime_boundary_radius": p["mean_free_path"] / np.pi,

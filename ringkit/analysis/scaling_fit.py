@@ -118,7 +118,7 @@ def _kwargs_from_attrs(attrs: Mapping) -> dict:
         "dimension": int(attrs.get("dimension", 2)),
         "n_averaged": int(attrs.get("n_averaged", 1)),
         "n_modes": int(attrs.get("n_modes", 1)),
-        "conductance": None if isinstance(g, str) else float(g),
+        "conductance": None if isinstance(g, str) else np.asarray(g, dtype=float),
         "junction_reflection": float(attrs.get("junction_reflection", JUNCTION_REFLECTION)),
     }
 
