@@ -396,3 +396,29 @@ def test_joint_fit_error_coverage():
             inside[k] += abs(fit.values[k] - v) < fit.errors[k]
     for k in truth:
         assert 0.58 <= inside[k] / n <= 0.80, (k, inside[k] / n)
+
+
+def test_joint_fit_fixed_energy_and_bad_input():
+    he, h2e = _joint_amplitudes(TEMPS)
+    fit = fit_lphi_joint(
+        TEMPS,
+        he,
+        TEMPS,
+        h2e,
+        path_length_he=np.pi * R_RING,
+        path_length_h2e=2 * np.pi * R_RING,
+        amplitude_he_err=0.02 * he,
+        amplitude_h2e_err=0.02 * h2e,
+        thermal_energy=E_C_JOINT,
+    )  # noise-free closed forms: exact recovery
+    assert fit.values["l_phi_ref"] == pytest.approx(LREF_JOINT, rel=1e-6)
+    assert fit.values["p"] == pytest.approx(1.0, abs=1e-6)
+    assert fit.fixed["thermal_energy"] == E_C_JOINT
+    with pytest.raises(ParameterError, match="radius/path_length"):
+        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, path_length_he=1e-6)
+    with pytest.raises(ParameterError, match="amplitude_he_err/amplitude_h2e_err"):
+        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, amplitude_he_err=0.1)
+    with pytest.raises(ParameterError, match="temperature_he/temperature_h2e"):
+        fit_lphi_joint(TEMPS, he, TEMPS[:1], h2e[:1], radius=R_RING)
+    with pytest.raises(ParameterError, match="thermal_energy"):
+        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, thermal_energy=-1.0)

@@ -119,6 +119,8 @@ def fit_lphi_joint(
     if np.any(t1 <= 0) or np.any(t2 <= 0):
         raise ParameterError("temperature", Described("values <= 0"), "must be > 0", "K")
     fit_p, fit_ec = p is None, thermal != "none" and thermal_energy is None
+    if thermal_energy is not None:
+        thermal_energy = check_positive("thermal_energy", thermal_energy, "J")
     names = (
         ["amplitude0_he", "amplitude0_h2e", "l_phi_ref"]
         + (["p"] if fit_p else [])
@@ -157,7 +159,9 @@ def fit_lphi_joint(
     best = None
     starts_p = [1.0, 0.5, 2.0] if fit_p else [float(p)]
     starts_ec = (
-        [K_B * float(np.median(t_all)) * f for f in (0.3, 1.0, 3.0, 10.0)] if fit_ec else [None]
+        [K_B * float(np.median(t_all)) * f for f in (0.3, 1.0, 3.0, 10.0)]
+        if fit_ec
+        else [thermal_energy]
     )
     for p0 in starts_p:
         # h/2e alone fixes the dephasing law: ln A2 = ln A2_0 - (L2/l_phi_ref) (T/T_ref)^p0
