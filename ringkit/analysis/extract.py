@@ -50,13 +50,12 @@ longer than half an h/e period with ``method="fft"`` -> UndersampledWarning (use
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy.interpolate import CubicSpline
 
 from ringkit._validation import ParameterError, check_choice, check_range
+from ringkit.analysis._bandfilter import band_filter
 from ringkit.analysis._common import (
     Described,
     FieldRangeError,
@@ -64,10 +63,10 @@ from ringkit.analysis._common import (
     SamplingError,
     UndersampledWarning,
     effective_step,
-    is_uniform,
     validate_trace,
 )
 from ringkit.analysis._noise import centroid_error, noise_floor
+from ringkit.analysis._oscresult import OscillationResult
 from ringkit.analysis.background import BackgroundResult, remove_background
 from ringkit.analysis.spectrum import (
     OscillationSpectrum,
@@ -82,176 +81,6 @@ __all__ = ["OscillationResult", "extract_oscillations", "band_filter"]
 #: Peak-to-floor power ratio below which the h/e peak is called unclear (common practice:
 #: the largest of ~1000 pure-noise bins is ~10x their median).
 MIN_PEAK_SIGNIFICANCE = 20.0
-
-
-@dataclass(frozen=True)
-class OscillationResult:
-    """Oscillation content of one trace (all SI; amplitudes in signal units, e.g. e^2/h).
-
-    Attributes
-    ----------
-    period_he, period_he_err : float
-        h/e period and its uncertainty in T.
-    frequency_he, frequency_he_err : float
-        Centroid of the h/e band and its 1-sigma noise uncertainty in 1/T.
-    frequency_he_spread : float
-        Intrinsic rms width of the h/e band content in 1/T (spread, not an error).
-    area, area_err : float
-        Effective enclosed area ``frequency_he * h/e`` and its 1-sigma uncertainty (from the
-        noise) in m^2.
-    area_spread : float
-        rms spread of the enclosed areas ``frequency_he_spread * h/e`` in m^2.
-    radius, radius_err : float
-        Effective radius ``sqrt(area/pi)`` and uncertainty in m.
-    amplitude_he_rms, amplitude_he_pp, amplitude_h2e_rms, amplitude_h2e_pp : float
-        Band rms and mean peak-to-peak amplitude of the h/e and h/2e content.
-    relative_amplitude_he, relative_amplitude_h2e : float
-        rms amplitude / mean conductance (NaN if the mean is not positive).
-    noise_floor : float
-        Mean noise power per spectral bin (signal units squared), ``median / ln 2``.
-    noise_he_rms, noise_h2e_rms : float
-        Expected noise-floor contribution to each band rms.
-    mean_conductance : float
-        Mean of the input signal (or the value passed in).
-    bands : dict
-        ``{1: (f_low, f_high), 2: (...)}`` in 1/T, before the main-lobe margin.
-    band_margin : float
-        Margin added on both sides of each band in 1/T.
-    band_source : str
-        ``"geometry"`` or ``"dominant peak"``.
-    peak_significance : float
-        Largest power over the noise floor in the band used for the area (>= 20 for a
-        clear peak).
-    area_order : int
-        Band the area was taken from: 1 (h/e) or 2 (h/2e centroid / 2; used for
-        ``dominant_order=2`` or when only the h/2e line is clear, e.g. ensemble averages).
-    background_gain_he, background_gain_h2e : float
-        Fraction of an oscillation at the band centroid kept by the background removal.
-    n_points : int
-        Points analysed (after background edges).
-    field_range, field_step : float
-        Analysed field span and effective data step in T.
-    spectrum : OscillationSpectrum
-    background : BackgroundResult
-    notes : tuple of str
-        Human-readable caveats (same text as the warnings emitted).
-    """
-
-    period_he: float
-    period_he_err: float
-    frequency_he: float
-    frequency_he_err: float
-    frequency_he_spread: float
-    area: float
-    area_err: float
-    area_spread: float
-    radius: float
-    radius_err: float
-    amplitude_he_rms: float
-    amplitude_he_pp: float
-    amplitude_h2e_rms: float
-    amplitude_h2e_pp: float
-    relative_amplitude_he: float
-    relative_amplitude_h2e: float
-    noise_he_rms: float
-    noise_h2e_rms: float
-    noise_floor: float
-    mean_conductance: float
-    bands: dict
-    band_margin: float
-    band_source: str
-    peak_significance: float
-    area_order: int
-    background_gain_he: float
-    background_gain_h2e: float
-    n_points: int
-    field_range: float
-    field_step: float
-    spectrum: OscillationSpectrum
-    background: BackgroundResult
-    notes: tuple[str, ...]
-
-    @property
-    def relative_amplitude(self) -> float:
-        """h/e rms amplitude over the mean conductance (dimensionless)."""
-        return self.relative_amplitude_he
-
-    def as_dict(self) -> dict[str, object]:
-        """Scalar results as a plain dict (floats, ints, strings, lists)."""
-        skip = {"spectrum", "background", "bands", "notes"}
-        out: dict[str, object] = {
-            k: v for k, v in self.__dict__.items() if k not in skip and not k.startswith("_")
-        }
-        out["bands"] = {str(k): [float(x) for x in v] for k, v in self.bands.items()}
-        out["notes"] = list(self.notes)
-        return out
-
-
-def band_filter(
-    field: np.ndarray,
-    signal: np.ndarray,
-    band: tuple[float, float],
-    *,
-    margin: float | None = None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Band content of a trace in the field domain (e.g. the h/e oscillation alone).
-
-    The trace is put on a uniform grid (cubic spline if uneven), its mean removed, multiplied
-    by a Hann window w(B), zero-padded and transformed; the positive frequencies in
-    ``[low - margin, high + margin]`` (raised-cosine roll-off over another ``margin``) give
-    the analytic band signal, which is divided by w(B) where ``w >= 1/2`` (the central half
-    of the range). For a cosine inside the band this returns the cosine and its amplitude
-    exactly; strong lines outside the band leak only through the Hann side lobes.
-
-    Parameters
-    ----------
-    field, signal : array_like
-        Field in T and signal.
-    band : (float, float)
-        Band in 1/T.
-    margin : float, optional
-        In 1/T; default (and minimum) two bins, the Hann main-lobe half-width ``2/range``.
-
-    Returns
-    -------
-    grid : ndarray
-        Uniform field grid in T.
-    filtered : ndarray
-        Band content on the grid (signal units); NaN outside the central half.
-    envelope : ndarray
-        Local cosine amplitude (modulus of the analytic band content); NaN outside the
-        central half.
-    """
-    b, s = validate_trace(field, signal)
-    lo, hi = (float(x) for x in band)
-    if not 0 <= lo <= hi:
-        raise ParameterError("band", band, "must satisfy 0 <= f_low <= f_high", "1/T")
-    n = b.size
-    if is_uniform(b):
-        grid, y = b, s
-    else:
-        grid = np.linspace(b[0], b[-1], n)
-        y = CubicSpline(b, s)(grid)
-    step = (grid[-1] - grid[0]) / (n - 1)
-    w = np.hanning(n)
-    spec = np.fft.fft(w * (y - y.mean()), 2 * n)
-    freq = np.fft.fftfreq(2 * n, step)
-    lobe = 2.0 / (n * step)
-    m = lobe if margin is None else max(float(margin), lobe)
-    lo_m, hi_m = lo - m, hi + m
-    mask = ((freq >= lo_m) & (freq <= hi_m)).astype(float)
-    below = (freq < lo_m) & (freq > lo_m - m)
-    above = (freq > hi_m) & (freq < hi_m + m)
-    mask[below] = 0.5 * (1 + np.cos(np.pi * (lo_m - freq[below]) / m))
-    mask[above] = 0.5 * (1 + np.cos(np.pi * (freq[above] - hi_m) / m))
-    mask[freq <= 0] = 0.0
-    analytic = np.fft.ifft(2 * spec * mask)[:n]
-    central = w >= 0.5
-    filtered = np.full(n, np.nan)
-    envelope = np.full(n, np.nan)
-    filtered[central] = analytic.real[central] / w[central]
-    envelope[central] = np.abs(analytic[central]) / w[central]
-    return grid, filtered, envelope
 
 
 def _pp(field: np.ndarray, signal: np.ndarray, band: tuple[float, float], margin: float) -> float:
