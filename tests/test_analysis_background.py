@@ -32,7 +32,8 @@ def test_one_period_boxcar_leaves_he_and_h2e_intact(samples_per_period):
     background = 50.0 + 30.0 * b  # linear: a symmetric kernel reproduces it exactly
     res = remove_background(b, _osc(b) + background, method="moving_average", period=P)
     v = res.valid
-    # docs/physics.md §12.3: a residual of 7e-17 was computed for this construction
+    # boxcar transfer sin(pi f w)/(pi f w) vanishes at f = n/w (closed form; docs/physics.md
+    # §12.3, where a residual of 7e-17 was computed for this construction)
     assert np.max(np.abs(res.residual[v] - _osc(b)[v])) < 1e-12
     taps = res.parameters["kernel_taps"]
     assert res.n_valid == b.size - taps + 1

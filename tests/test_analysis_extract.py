@@ -97,7 +97,8 @@ def test_without_geometry_uses_dominant_peak():
 
 
 def test_ensemble_average_with_geometry_takes_area_from_h2e():
-    """h/e averages out over disorder, h/2e (AAS) survives (docs/physics.md §9.1)."""
+    """h/e averages out over disorder, h/2e (AAS) survives (Al'tshuler, Aronov, Spivak, JETP
+    Lett. 33, 94 (1981); docs/physics.md §9.1)."""
     rng = np.random.default_rng(6)
     r_true = 0.63e-6
     f1 = np.pi * r_true**2 / PHI0

@@ -37,7 +37,8 @@ DATA = Path(__file__).parent / "data"
     [(0.1, 0.983738), (0.5, 0.682569), (1.0, 0.272029), (2.0, 0.0234671), (3.0, 0.00152115)],
 )
 def test_ballistic_thermal_factor_check_values(a_kt, expected):
-    # x = pi a k_B T with a = 1/E_c (docs/physics.md, "Thermal averaging", check values)
+    # closed form x/sinh x, x = pi a k_B T with a = 1/E_c (kernel identity, docs/physics.md
+    # §5.4 "Thermal averaging", computed check values)
     temperature = 0.7
     e_c = K_B * temperature / a_kt
     assert thermal_factor(temperature, "ballistic", e_c) == pytest.approx(expected, rel=1e-5)

@@ -131,7 +131,7 @@ def test_hann_window_numbers():
 
 
 def test_frequency_axis_area_and_radius():
-    # 1 um^2 <-> f = 241.7989 1/T (docs/physics.md §1.2, [C] from h/e)
+    # 1 um^2 <-> f = 241.7989 1/T (computed from h/e of scipy.constants; docs/physics.md §1.2)
     area = 1e-12
     f0 = area / PHI0
     assert f0 == pytest.approx(241.7989, rel=1e-6)
