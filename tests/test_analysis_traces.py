@@ -524,6 +524,18 @@ def test_temperature_series_grouped_automatically():
     assert all(tr.temperature is None for tr in flat)  # explicit opt-out keeps the old split
 
 
+def test_drifting_temperature_log_is_not_split(tmp_path):
+    p = tmp_path / "drift.csv"
+    temps = np.linspace(0.25, 0.30, 40)  # logged continuously: every row differs by > 1e-3
+    b = np.linspace(0, 0.1, 40)
+    p.write_text(
+        "T (K),B (T),G (e^2/h)\n" + "".join(f"{t},{x},2\n" for t, x in zip(temps, b, strict=True))
+    )
+    res = load_traces(p)
+    assert len(res.traces) == 1 and res.report.n_dropped == 0
+    assert any("drifts" in c for c in res.report.caveats)
+
+
 def test_unit_option_contradicting_the_header(tmp_path):
     p = tmp_path / "mt.csv"
     p.write_text("B [mT],R [Ohm]\n" + _rows([10 * b for b in B10], R10))

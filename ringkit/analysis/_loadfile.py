@@ -54,6 +54,19 @@ def _pick(spec: str | int, infos: list[ColumnInfo], path: Path, what: str) -> in
     raise TraceFormatError(f"{path}: no {what} column named {spec!r} (columns: {names})")
 
 
+def _clusters(values: np.ndarray, rtol: float) -> np.ndarray:
+    """Cluster index of each value: sorted values within ``rtol`` of a cluster's first one."""
+    uniq = np.unique(values)
+    cluster = np.zeros(uniq.size, dtype=int)
+    start = uniq[0] if uniq.size else 0.0
+    for k in range(1, uniq.size):
+        new = abs(uniq[k] - start) > rtol * max(abs(start), 1e-300)
+        cluster[k] = cluster[k - 1] + int(new)
+        if new:
+            start = uniq[k]
+    return cluster[np.searchsorted(uniq, values)]
+
+
 def _column_infos(labels: list[str] | None, ncol: int) -> list[ColumnInfo]:
     """Parsed labels; repeated labels get ``#<index>`` appended (e.g. ``R (Ohm)#2``)."""
     if labels is None:
@@ -143,9 +156,20 @@ def load_file(path: Path, tally: Tally, o: dict) -> list[dict]:
             f"{path}: unit of field column {infos[jf].label!r} unknown; give field_unit "
             "(T, mT, G, ...) or a header like 'B (T)'"
         )
+    auto_caveat = None
     if o["group_by"] == GROUP_AUTO:
         temps = [j for j, c in enumerate(infos) if c.quantity == "temperature" and j != jf]
         jg = temps[0] if len(temps) == 1 else None
+        if jg is not None:
+            tv = data[:, jg][np.isfinite(data[:, jg])]
+            counts = np.bincount(_clusters(tv, o["group_rtol"])) if tv.size else np.zeros(0)
+            if counts.size > 1 and counts.min() < o["min_points"]:  # a drifting log, not steps
+                auto_caveat = (
+                    f"{path.name}: temperature column {infos[jg].label!r} drifts "
+                    f"({np.min(tv):g} to {np.max(tv):g}) rather than stepping: not grouped; "
+                    "give group_by= to split it anyway"
+                )
+                jg = None
     elif o["group_by"] is not None:
         jg = _pick(o["group_by"], infos, path, "group_by")
     else:
@@ -172,8 +196,9 @@ def load_file(path: Path, tally: Tally, o: dict) -> list[dict]:
                 f"is also the {'field' if col == jf else 'group_by'} column of {path.name}",
             )
     file_temp, temp_source, temp_caveat = _file_temperature(path, table, o["temperature"])
-    if temp_caveat:
-        tally.caveats.append(temp_caveat)
+    for caveat in (temp_caveat, auto_caveat):
+        if caveat:
+            tally.caveats.append(caveat)
     out: list[dict] = []
     for j in js:
         info = infos[j]
@@ -268,17 +293,9 @@ def _column_traces(ctx: dict, tally: Tally, o: dict) -> list[dict]:
     groups: list[tuple[float | None, np.ndarray]] = []
     if jg is not None:
         gvals = data[:, jg]
-        uniq = np.unique(gvals[ok])
-        cluster = np.zeros(uniq.size, dtype=int)
-        start = uniq[0] if uniq.size else 0.0
-        for k in range(1, uniq.size):
-            new = abs(uniq[k] - start) > o["group_rtol"] * max(abs(start), 1e-300)
-            cluster[k] = cluster[k - 1] + int(new)
-            if new:
-                start = uniq[k]
         row_cluster = np.full(gvals.size, -1)
-        row_cluster[ok] = cluster[np.searchsorted(uniq, gvals[ok])]
-        for c in range(int(cluster[-1]) + 1 if uniq.size else 0):
+        row_cluster[ok] = _clusters(gvals[ok], o["group_rtol"])
+        for c in range(int(row_cluster.max()) + 1):
             sel = row_cluster == c
             groups.append((float(np.median(gvals[sel])), sel))
     else:
