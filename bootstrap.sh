@@ -8,7 +8,7 @@
 #   ./bootstrap.sh lab [ARGS]   set up, then open JupyterLab on 127.0.0.1 in notebooks/ with the
 #                               project's kernel ("Python (ringkit)"); ARGS go to jupyter lab
 #   ./bootstrap.sh app [ARGS]   set up, then serve the device explorer as a Voila app on
-#                               127.0.0.1 (notebooks/01_device_design.ipynb); ARGS go to voila
+#                               127.0.0.1 (notebooks/explorer_app.ipynb); ARGS go to voila
 #
 # Idempotent: a second run reuses the virtual environment (.venv) and the cached kwant wheel.
 # Environment overrides: RINGKIT_PYTHON (interpreter, default python3.11 or python3),
@@ -163,8 +163,10 @@ case "$MODE" in
         ROOT_ARGS=()
         if is_root; then ROOT_ARGS=(--ServerApp.allow_root=True); fi
         say "device explorer (Voila) on 127.0.0.1 (Ctrl-C to stop)"
-        exec "$VENV/bin/voila" "$HERE/notebooks/01_device_design.ipynb" --Voila.ip=127.0.0.1 \
-            "${ROOT_ARGS[@]}" "$@"
+        # ringkit's template (share/jupyter/voila/templates/ringkit): no request leaves 127.0.0.1
+        export JUPYTER_PATH="$HERE/share/jupyter${JUPYTER_PATH:+:$JUPYTER_PATH}"
+        exec "$VENV/bin/voila" "$HERE/notebooks/explorer_app.ipynb" --Voila.ip=127.0.0.1 \
+            --template=ringkit "${ROOT_ARGS[@]}" "$@"
         ;;
     *) die "unknown mode '$MODE' (use: setup, demo, test, lab, app)" ;;
 esac

@@ -116,6 +116,7 @@ class FigurePane:
             canvas.header_visible = False
             canvas.footer_visible = True  # cursor read-out
             canvas.toolbar_position = "left"
+            canvas.toolbar_visible = "visible"
             canvas.resizable = False
             canvas.capture_scroll = False
             canvas.layout = widgets.Layout(width=f"{css_w + 40}px", max_width="100%")
