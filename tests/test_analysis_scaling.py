@@ -54,7 +54,8 @@ def test_zero_temperature_no_dephasing_gives_prefactors():
     # diffusive (l = 0.1 um << pi r): N_c -> 1 + (N-1) b with N = 1 -> 1; p_ret -> ~1
     p_ret = (np.pi * R + 0.1e-6 / 9) / (np.pi * R + 0.1e-6)
     assert ds["amplitude_he_rms"].values == pytest.approx(0.7, rel=1e-12)
-    assert ds["amplitude_h2e_rms"].values == pytest.approx(np.hypot(0.4 * p_ret, 0.7), rel=1e-12)
+    # the second harmonic needs the same closed-loop return as the AAS term
+    assert ds["amplitude_h2e_rms"].values == pytest.approx(np.hypot(0.4, 0.7) * p_ret, rel=1e-12)
 
 
 def test_dephasing_ratio_is_exponential_in_path_length():
@@ -212,6 +213,15 @@ def test_ballistic_amplitude_grows_as_sqrt_of_modes_diffusive_is_universal():
         for n in (1, 4, 16, 64)
     ]
     assert np.diff(np.log(he)) / np.log(4) == pytest.approx([0.5] * 3, abs=1e-6)
+    mixed = [
+        float(
+            predict_amplitudes(r, mean_free_path=1e3, n_modes=n, mode_mixing=1.0, **kw)[
+                "amplitude_he_rms"
+            ][0]
+        )
+        for n in (1, 4, 16, 64)
+    ]
+    assert mixed == pytest.approx([mixed[0]] * 4, rel=1e-12)  # fully mixed: universal
     dif = [
         float(predict_amplitudes(r, mean_free_path=1e-12, n_modes=n, **kw)["amplitude_he_rms"][0])
         for n in (1, 4, 16, 64)

@@ -18,11 +18,12 @@ boundary ``l = pi r`` (``b = 1/2``) is reported as ``regime_boundary_radius``.
   two arms of length ``L1`` in parallel, ``G = 2 N/(1 + L1/(2 l))`` e^2/h (spin-degenerate;
   Landauer transmission ``N lambda/(L + lambda)``, S. Datta, Electronic Transport in Mesoscopic
   Systems (CUP 1995), from memory).
-* Number of independent coherent channels ``N_c = 1 + (N - 1) b``: ballistic arms keep ``N``
-  channels with independent phases (rms of the sum ~ sqrt(N), central limit theorem); a
-  diffusive arm mixes them and the fluctuation is universal, of order e^2/h whatever ``N``
-  (Lee and Stone, Phys. Rev. Lett. 55, 1622 (1985); Webb et al., Phys. Rev. Lett. 54, 2696
-  (1985)).
+* Number of independent coherent channels ``N_c = 1 + (N - 1) b (1 - m)``: ballistic arms
+  without mode mixing (``m = 0``, default) keep ``N`` channels with independent phases (rms
+  of the sum ~ sqrt(N), central limit theorem); a diffusive arm, or junctions and bends that
+  mix the modes completely (``m = 1``), give a universal fluctuation of order e^2/h whatever
+  ``N`` (Lee and Stone, Phys. Rev. Lett. 55, 1622 (1985); Webb et al., Phys. Rev. Lett. 54,
+  2696 (1985)). benchmarks/RESULTS-amplitude-model.md compares both with simulated rings.
 * Dephasing ``D_n = exp(-L_n/L_phi)`` (Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987),
   abstract verified, reference from memory; Hansen et al., Phys. Rev. B 64, 045327 (2001)).
 * Thermal factor ``F = b x/sinh x + (1 - b)/sqrt(1 + (L/L_T)^2)`` with ``x = pi k_B T L/(hbar
@@ -36,7 +37,8 @@ boundary ``l = pi r`` (``b = 1/2``) is reported as ``regime_boundary_radius``.
   Imry and Azbel, Phys. Rev. A 30, 1982 (1984), from memory), not reduced by thermal or
   ensemble averaging (Al'tshuler, Aronov, Spivak, JETP Lett. 33, 94 (1981); Umbach et al.,
   Phys. Rev. Lett. 56, 386 (1986)); added in quadrature to the second h/e harmonic
-  ``c_he sqrt(N_c) F(L2) D_2/sqrt(n_averaged)``.
+  ``c_he sqrt(N_c) F(L2) D_2 p_ret/sqrt(n_averaged)`` (a second winding needs the same
+  return as the AAS loop).
 * Bound by G: every amplitude is passed through the smooth minimum
   ``A = (A_raw^-2 + (kappa G)^-2)^-1/2`` with ``kappa = 1/sqrt(2)``: a conductance that stays
   >= 0 can oscillate at most as ``G (1 + cos phi)``, whose rms is ``G/sqrt(2)``.
@@ -73,8 +75,8 @@ JUNCTION_REFLECTION = 1.0 / 9.0
 
 MODEL_DESCRIPTION = (
     "A_he = c_he sqrt(N_c) F(pi r) exp(-pi r/L_phi)/sqrt(n); A_h2e = sqrt((c_aas p_ret "
-    "exp(-2 pi r/L_phi))^2 + (c_he sqrt(N_c) F(2 pi r) exp(-2 pi r/L_phi))^2/n); "
-    "b = l/(l + pi r), N_c = 1 + (N-1) b, p_ret = (pi r + l R_j)/(pi r + l), "
+    "exp(-2 pi r/L_phi))^2 + (c_he sqrt(N_c) F(2 pi r) exp(-2 pi r/L_phi) p_ret)^2/n); "
+    "b = l/(l + pi r), N_c = 1 + (N-1) b (1-m), p_ret = (pi r + l R_j)/(pi r + l), "
     "F = b x/sinh x + (1-b)/sqrt(1 + (L/L_T)^2); each bounded smoothly by G/sqrt(2), "
     "G = 2N/(1 + pi r/(2 l)) unless given; rms in e^2/h (docs/amplitude-model.md)"
 )
@@ -109,14 +111,14 @@ def _model(r, p: dict) -> dict[str, np.ndarray]:
     b = mfp / (mfp + l1)
     g = p["conductance"] if p["conductance"] is not None else 2.0 * n / (1.0 + l1 / (2 * mfp))
     g = np.broadcast_to(np.asarray(g, dtype=float), r.shape)
-    n_c = 1.0 + (n - 1.0) * b
+    n_c = 1.0 + (n - 1.0) * b * (1.0 - p["mode_mixing"])
     d1, d2 = np.exp(-l1 / p["lphi"]), np.exp(-l2 / p["lphi"])
     f1 = _thermal(l1, b, p["l_t"], p["x_per_m"])
     f2 = _thermal(l2, b, p["l_t"], p["x_per_m"])
     sq = np.sqrt(n_c / p["n_averaged"])
     p_ret = (l1 + mfp * p["junction_reflection"]) / (l1 + mfp)
     he_raw = p["c_he"] * sq * f1 * d1
-    harm_raw = p["c_he"] * sq * f2 * d2
+    harm_raw = p["c_he"] * sq * f2 * d2 * p_ret
     aas_raw = p["c_aas"] * p_ret * d2
     cap = KAPPA_MAX * g
     he = _smooth_min(he_raw, cap)
@@ -173,6 +175,7 @@ def _parameters(
     n_modes,
     conductance,
     junction_reflection,
+    mode_mixing=0.0,
 ) -> dict:
     if material is not None:
         if lphi is None:
@@ -228,6 +231,7 @@ def _parameters(
         "n_modes": int(n_modes),
         "conductance": conductance,
         "junction_reflection": r_j,
+        "mode_mixing": check_range("mode_mixing", mode_mixing, 0.0, 1.0),
     }
 
 
@@ -246,6 +250,7 @@ def predict_amplitudes(
     n_modes: int = 1,
     conductance: float | None = None,
     junction_reflection: float = JUNCTION_REFLECTION,
+    mode_mixing: float = 0.0,
     simulated: Mapping | Any = None,
 ):
     """Semi-analytic h/e and h/2e rms amplitudes versus ring radius (module docstring).
@@ -280,6 +285,9 @@ def predict_amplitudes(
         model's ``2N/(1 + pi r/2l)``).
     junction_reflection : float
         Back-scattering probability at a junction, in [0, 1] (AAS in ballistic rings).
+    mode_mixing : float
+        0: ballistic channels keep independent phases (sqrt(N) scaling); 1: modes fully mixed
+        by junctions/bends (universal amplitude); in between linearly in ``N_c``.
     simulated : mapping or xarray.Dataset, optional
         Simulated (or measured) points to place beside the model: ``radius`` (m) and any
         of ``amplitude_he_rms``, ``amplitude_h2e_rms`` (e^2/h) with optional ``*_err``.
@@ -308,6 +316,7 @@ def predict_amplitudes(
         n_modes,
         conductance,
         junction_reflection,
+        mode_mixing,
     )
     r = np.atleast_1d(np.asarray(radius, dtype=float))
     if r.ndim != 1 or np.any(~np.isfinite(r)) or np.any(r <= 0):
@@ -337,6 +346,7 @@ def predict_amplitudes(
         "conductance_e2h": "model" if p["conductance"] is None else p["conductance"],
         # (an array of conductances, one per radius, is stored as given)
         "junction_reflection": p["junction_reflection"],
+        "mode_mixing": p["mode_mixing"],
         "kappa_max": KAPPA_MAX,
         "regime_boundary_radius": p["mean_free_path"] / np.pi,
         "model": MODEL_DESCRIPTION,

@@ -120,6 +120,7 @@ def _kwargs_from_attrs(attrs: Mapping) -> dict:
         "n_modes": int(attrs.get("n_modes", 1)),
         "conductance": None if isinstance(g, str) else np.asarray(g, dtype=float),
         "junction_reflection": float(attrs.get("junction_reflection", JUNCTION_REFLECTION)),
+        "mode_mixing": float(attrs.get("mode_mixing", 0.0)),
     }
 
 
