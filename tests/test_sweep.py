@@ -20,7 +20,8 @@ from ringkit.device import ArmGate, Material, RingDevice, RingGeometry
 from ringkit.tightbinding import build_ring
 from ringkit.transport import field_sweep
 from ringkit.transport.fastsweep import FieldSweeper
-from ringkit.transport.thermal import thermal_weights
+from ringkit.transport.sweep import transmission_bound
+from ringkit.transport.thermal import thermal_average
 from ringkit.units import PHI0
 
 A = 10e-9
@@ -61,30 +62,31 @@ def test_fast_path_equals_kwant(mode):
     assert np.max(np.abs(fast["G"].values - ref)) < 1e-10
     assert np.max(np.abs(slow["G"].values - ref)) < 1e-10
     assert fast.attrs["n_energies"] == 1
+    assert fast.attrs["thermal_error_estimate"] == 0.0
 
 
-def test_finite_temperature_equals_weighted_kwant_sum():
+def test_finite_temperature_equals_policy_sum_of_kwant_values():
     ring = _ring("flux_tube")
     fluxes = np.array([0.0, 0.3, 0.5]) * PHI0
     temperature = 2.0  # K; k_B T / t = 0.0306 here
     ds = field_sweep(ring, fluxes, temperature=temperature)
-    from ringkit.transport.sweep import ring_correlation_energy
-
-    grid = thermal_weights(
+    # the same policy run on plain kwant.smatrix values picks the same energies (the values
+    # agree to 1e-10) and gives G(T) = sum_k w_k G(E_k)
+    avg = thermal_average(
+        lambda e: _kwant_G(ring, "flux", fluxes, e) / 2,
         ring.fermi_energy_lattice,
         temperature,
         energy_unit=ring.hopping,
-        correlation_energy=ring_correlation_energy(ring),
+        tol=0.5e-4,
+        bound=transmission_bound(ring, ring.fermi_energy_lattice, temperature, 1e-4, ring.params()),
     )
-    assert ds.attrs["n_energies"] == grid.n_energies > 5
-    ref = sum(
-        w * _kwant_G(ring, "flux", fluxes, e)
-        for e, w in zip(grid.energies, grid.weights, strict=True)
-    )
-    assert np.max(np.abs(ds["G"].values - ref)) < 1e-10
+    assert ds.attrs["n_energies"] == avg.n_energies > 15
+    assert ds.attrs["thermal_error_estimate"] == pytest.approx(2 * avg.error, rel=1e-6)
+    assert ds.attrs["thermal_tol"] == 1e-4 and ds.attrs["thermal_method"] == "adaptive"
+    ref = 2 * avg.weights @ np.array([_kwant_G(ring, "flux", fluxes, e) / 2 for e in avg.energies])
+    assert np.max(np.abs(ds["G"].values - ref)) < 1e-9
     # T -> 0 is the single-energy result
     cold = field_sweep(ring, fluxes, temperature=1e-9)
-    assert cold.attrs["n_energies"] == 1 or np.allclose(cold["G"], field_sweep(ring, fluxes)["G"])
     assert np.max(np.abs(cold["G"].values - field_sweep(ring, fluxes)["G"].values)) < 1e-8
 
 

@@ -21,7 +21,8 @@ classical_transmission(coupling, *, arm_reflection=(0, 0))
 coherent_fraction(path_length, phase_coherence_length)
     ``exp(-L/L_phi)``.
 thermal_weights(energies, mu, temperature)
-    Normalised ``-df/dE`` quadrature weights.
+    Normalised ``-df/dE`` weights on a uniform grid (kept for comparisons; the ring itself
+    uses the thermal policy of :mod:`ringkit.thermal_policy`).
 NetworkRing
     Frozen dataclass: a physical ring (SI) -> ``conductance(field)`` in e^2/h with thermal
     energy averaging, a coherent fraction, an arm gate and arm-length asymmetry.
@@ -45,6 +46,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ringkit._validation import ParameterError, check_positive, check_range
+from ringkit.thermal_policy import DEFAULT_TOL, EnergyAverage, energy_average
 from ringkit.units import HBAR, K_B, M_E, PHI0
 
 __all__ = [
@@ -383,27 +385,6 @@ class NetworkRing:
     def _wavevector(self, energy: np.ndarray) -> np.ndarray:
         return np.sqrt(2 * self.effective_mass * M_E * np.maximum(energy, 0.0)) / HBAR
 
-    def energy_grid(self, *, max_points: int = 801, phase_step: float = 0.15) -> np.ndarray:
-        """Energies (J) for the thermal average: +-9 k_B T around E_F, fine enough that the
-        total dynamic phase ``k (L_1 + L_2)`` moves by at most ``phase_step`` rad per step
-        (capped at ``max_points``). A single point at T = 0.
-
-        Accuracy: near integer flux quanta the ring has resonances much narrower than any
-        affordable step (their width vanishes at integer flux), so a uniform grid samples them
-        unevenly. Measured for a symmetric GaAs ring (r = 0.5 µm, eps = 1/2, T = 2 K, 365
-        fields) against a 0.01 rad grid: max error 0.023 e^2/h at 0.35 rad, 0.008 at 0.15 rad,
-        0.001-0.005 at 0.03-0.1 rad; away from those fields ~1e-3 at 0.15 rad."""
-        if self.temperature == 0.0:
-            return np.array([self.fermi_energy])
-        kt = K_B * self.temperature
-        half = min(9.0 * kt, 0.999 * self.fermi_energy)
-        # d(k L)/dE = L / (hbar v), v = hbar k / m*
-        v = HBAR * self.fermi_wavevector / (self.effective_mass * M_E)
-        span = 2 * half * self.circumference / (HBAR * v)
-        n = int(min(max_points, max(3, math.ceil(span / phase_step) + 1)))
-        n += 1 - n % 2  # odd: E_F on the grid
-        return np.linspace(self.fermi_energy - half, self.fermi_energy + half, n)
-
     def _arm_setup(self, energy: np.ndarray) -> tuple[np.ndarray, np.ndarray, tuple]:
         l1, l2 = self.arm_lengths
         k = self._wavevector(energy)
@@ -427,7 +408,13 @@ class NetworkRing:
         phi = 2 * math.pi * np.asarray(field, dtype=float) * self.area / PHI0
         return ring_transmission(th1, th2, phi, self.coupling, arm_reflection=refl)
 
-    def conductance(self, field: np.ndarray, *, max_energy_points: int | None = None) -> np.ndarray:
+    def conductance(
+        self,
+        field: np.ndarray,
+        *,
+        max_energy_points: int | None = None,
+        tol: float = DEFAULT_TOL,
+    ) -> np.ndarray:
         """Two-terminal conductance G(B) in e^2/h, thermally averaged, with dephasing mixing.
 
         Parameters
@@ -435,12 +422,11 @@ class NetworkRing:
         field : array_like
             Magnetic field values in T.
         max_energy_points : int, optional
-            Upper limit of the energy grid used for the thermal average. Default: enough to
-            resolve the phase (:meth:`energy_grid`) but at most ``max(65, 160000 // field.size)``
-            so that one call stays around 0.2 s. Above that (roughly k_B T > 1 K x 0.5 µm/r
-            for GaAs) the grid is coarser than the phase step and samples the resonances
-            quasi-randomly: the result then approaches the thermal mean only statistically
-            (percent-level errors), adequate for a preview, not for quantitative work.
+            Energy budget of the thermal average (default 4000); when it is not enough for
+            ``tol`` a :class:`ringkit.thermal_policy.ThermalToleranceWarning` is issued.
+        tol : float
+            Absolute error goal of G in e^2/h at every field (default 1e-4), by the thermal
+            policy of :mod:`ringkit.thermal_policy` (the same rule as the lattice engine).
 
         Returns
         -------
@@ -448,26 +434,44 @@ class NetworkRing:
             ``spin_degeneracy * [f <T>_E + (1 - f) T_classical]`` with the same shape as field.
         """
         b = np.asarray(field, dtype=float)
-        if max_energy_points is None:
-            max_energy_points = max(65, 160_000 // max(b.size, 1))
-        energies = self.energy_grid(max_points=max_energy_points)
-        trans = self.transmission(b[..., None], energies)
-        if energies.size > 1:
-            trans = trans @ thermal_weights(energies, self.fermi_energy, self.temperature)
-        else:
-            trans = trans[..., 0]
+        avg = self.thermal_average(b, max_energy_points=max_energy_points, tol=tol)
+        trans = avg.value.reshape(b.shape)
         f = self.coherent_fraction
         if f < 1.0:
-            trans = f * trans + (1.0 - f) * self._classical_average(energies)
+            trans = f * trans + (1.0 - f) * self._classical_average(avg)
         return self.spin_degeneracy * trans
 
-    def _classical_average(self, energies: np.ndarray) -> float:
+    def thermal_average(
+        self, field: np.ndarray, *, max_energy_points: int | None = None, tol: float = DEFAULT_TOL
+    ) -> EnergyAverage:
+        """Thermal average of the coherent transmission ``|t|^2`` over ``field`` (T).
+
+        ``value`` has the shape of ``field.ravel()``; ``errors``, ``n_energies`` and
+        ``energies`` (J) as in :func:`ringkit.thermal_policy.energy_average` (tolerance
+        ``tol / spin_degeneracy`` on the transmission).
+        """
+        b = np.asarray(field, dtype=float).ravel()
+
+        def trans(energies: np.ndarray) -> np.ndarray:
+            return self.transmission(b[None, :], np.asarray(energies)[:, None])
+
+        return energy_average(
+            trans,
+            self.fermi_energy,
+            K_B * self.temperature,
+            tol=tol / self.spin_degeneracy,
+            bound=1.0,
+            batched=True,
+            max_energies=4000 if max_energy_points is None else int(max_energy_points),
+        )
+
+    def _classical_average(self, avg: EnergyAverage) -> float:
+        """Incoherent transmission averaged with the weights of the coherent average."""
+        energies = avg.energies
         _, _, refl = self._arm_setup(energies)
         pairs = np.stack([np.broadcast_to(np.asarray(x, float), energies.shape) for x in refl])
         uniq, inverse = np.unique(pairs, axis=1, return_inverse=True)
         vals = np.array(
             [classical_transmission(self.coupling, arm_reflection=tuple(u)) for u in uniq.T]
         )[np.ravel(inverse)]
-        if energies.size == 1:
-            return float(vals[0])
-        return float(vals @ thermal_weights(energies, self.fermi_energy, self.temperature))
+        return float(vals @ avg.weights)

@@ -188,6 +188,8 @@ def field_sweep(
     l_phi: float | None = None,
     n_probes: int = 100,
     method: str = "auto",
+    thermal_tol: float = 1e-4,
+    thermal_method: str = "adaptive",
 ) -> xr.Dataset:
     """Conductance versus field: coordinate ``B`` [T] (uniform) or ``flux`` [Wb] (flux tube).
 
@@ -203,8 +205,10 @@ def field_sweep(
     spin_resolved, zeeman : bool
         See :func:`conductance` (these use the plain kwant path, coherent and at T = 0).
     temperature : float
-        Temperature in K; ``G(B, T) = integral G(E, B)(-df/dE) dE`` on an energy grid set by
-        k_B T and the ring's correlation energy (number of energies in the attrs).
+        Temperature in K; ``G(B, T) = integral G(E, B)(-df/dE) dE`` by the thermal policy
+        (:mod:`ringkit.thermal_policy`): energies are added until the estimated error of G at
+        every field point is below ``thermal_tol``. The attrs hold ``n_energies``,
+        ``thermal_error_estimate``, ``thermal_tol`` and ``thermal_method``.
     l_phi : float, optional
         Phase-coherence length in m, realised by ``n_probes`` floating Büttiker probes along
         both arms (None: fully coherent).
@@ -215,6 +219,10 @@ def field_sweep(
         sweep in uniform field, exact low-rank update in flux-tube mode); "kwant": one
         ``kwant.smatrix`` per point (reference path). "auto" uses "kwant" only for
         ``zeeman``/``spin_resolved``.
+    thermal_tol : float
+        Absolute error goal of the thermal average in e^2/h (default 1e-4).
+    thermal_method : {"adaptive", "grid"}
+        Rule of the thermal average ("grid": the dense uniform reference).
 
     Warns once for the largest |B| (see :func:`conductance`).
     """
@@ -251,6 +259,8 @@ def field_sweep(
             temperature=temperature,
             l_phi=l_phi,
             n_probes=n_probes,
+            thermal_tol=thermal_tol,
+            thermal_method=thermal_method,
         )
         info = dict(res.info)
         attrs.update(

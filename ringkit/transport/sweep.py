@@ -3,7 +3,8 @@
 API
 ---
 fast_field_conductance(ring, fields, *, energy, gate=None, temperature=0.0, l_phi=None,
-                       n_probes=100) -> FastSweepResult
+                       n_probes=100, thermal_tol=1e-4, thermal_method="adaptive")
+    -> FastSweepResult
     Two-terminal G [e^2/h] (spin-degenerate) over a field sweep.
 
 Which solver
@@ -14,9 +15,12 @@ Which solver
   then an exact low-rank update per flux value).
 
 Both agree with plain ``kwant.smatrix`` on the same system to 1e-10 (tests/test_sweep.py).
-Finite temperature uses :func:`ringkit.transport.thermal.thermal_conductance` with the
-ballistic correlation energy ``hbar v_F / (2 pi r_mean)`` of the ring, so that resonances of
-the whole loop are resolved. Dephasing adds floating Büttiker probes along both arms
+Finite temperature uses the one thermal policy (:mod:`ringkit.thermal_policy` through
+:func:`ringkit.transport.thermal.thermal_conductance`): energies are added until the estimated
+error of G at every field point, and of the h/e and h/2e band projections of G over the field
+axis (uniformly spaced sweeps), is below ``thermal_tol`` (e^2/h). The number of energies, the
+error estimate, the tolerance and the method are returned in ``info`` (dataset attrs).
+Dephasing adds floating Büttiker probes along both arms
 (:func:`ringkit.transport.probes.attach_probes`) coupled for the requested ``l_phi``.
 """
 
@@ -28,13 +32,19 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ringkit._validation import check_positive
+from ringkit.thermal_policy import DEFAULT_TOL, thermal_window
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes
 from ringkit.transport.thermal import thermal_conductance
-from ringkit.units import HBAR
+from ringkit.units import HBAR, K_B, PHI0
 
-__all__ = ["FastSweepResult", "fast_field_conductance", "ring_correlation_energy"]
+__all__ = [
+    "FastSweepResult",
+    "fast_field_conductance",
+    "ring_correlation_energy",
+    "transmission_bound",
+]
 
 
 @dataclass(frozen=True)
@@ -46,9 +56,11 @@ class FastSweepResult:
     conductance : ndarray
         Two-terminal G in e^2/h (spin-degenerate, probes floating).
     info : dict
-        ``solver``, ``n_energies`` (thermal grid size), ``n_probes``, ``probe_eta``,
-        ``temperature_K``, ``l_phi_m`` and ``n_fallbacks`` (points recomputed by a direct
-        solve).
+        ``solver``, ``n_energies`` (energies of the thermal average), ``thermal_error_estimate``
+        (largest estimated error of G, e^2/h), ``thermal_error_he`` / ``thermal_error_h2e``
+        (estimated error of the rms h/e and h/2e band contents; -1 if not computed),
+        ``thermal_tol``, ``thermal_method``, ``n_probes``, ``probe_eta``, ``temperature_K``,
+        ``l_phi_m`` and ``n_fallbacks`` (points recomputed by a direct solve).
     """
 
     conductance: np.ndarray
@@ -71,6 +83,8 @@ def fast_field_conductance(
     temperature: float = 0.0,
     l_phi: float | None = None,
     n_probes: int = 100,
+    thermal_tol: float = DEFAULT_TOL,
+    thermal_method: str = "adaptive",
 ) -> FastSweepResult:
     """Two-terminal conductance over a field sweep with the fast solvers.
 
@@ -90,6 +104,10 @@ def fast_field_conductance(
         Phase-coherence length in m (None or inf: fully coherent, no probes).
     n_probes : int
         Number of dephasing probes spread along both arms when ``l_phi`` is finite.
+    thermal_tol : float
+        Absolute error goal of the thermal average in e^2/h (default 1e-4), in [1e-10, 0.1].
+    thermal_method : {"adaptive", "grid"}
+        Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
 
     Returns
     -------
@@ -120,21 +138,37 @@ def fast_field_conductance(
             ring.fsyst, field_param=name, params=params, energy=e_t, probes=probes
         )
         solver = "fixed-pattern MUMPS sweep (ringkit.transport.fastsweep)"
+    thermal = {"thermal_error_estimate": 0.0, "thermal_error_he": 0.0, "thermal_error_h2e": 0.0}
     if temperature > 0:
+        bands = _band_projector(ring, values)
+        # per spin: G = 2 T, so the tolerance of T is half the tolerance of G
         res = thermal_conductance(
             sweeper,
             values,
             temperature,
             energy_unit=ring.hopping,
-            correlation_energy=ring_correlation_energy(ring),
+            tol=0.5 * thermal_tol,
+            method=thermal_method,
+            bound=transmission_bound(ring, e_t, temperature, thermal_tol, params),
+            functionals=bands,
         )
         g_spin, n_e = np.asarray(res.value), res.n_energies
+        thermal["thermal_error_estimate"] = 2.0 * float(np.max(res.errors))
+        if res.extra_errors is not None:
+            he, h2e = np.split(2.0 * res.extra_errors, 2)
+            thermal["thermal_error_he"] = float(np.sqrt(np.mean(he**2)))
+            thermal["thermal_error_h2e"] = float(np.sqrt(np.mean(h2e**2)))
+        else:
+            thermal["thermal_error_he"] = thermal["thermal_error_h2e"] = -1.0
     else:
         g_spin, n_e = np.asarray(sweeper.conductance(values)), 1
     fallbacks = int(getattr(sweeper, "n_fallbacks", getattr(sweeper, "n_fallback", 0)))
     info = {
         "solver": solver,
         "n_energies": int(n_e),
+        **thermal,
+        "thermal_tol": float(thermal_tol),
+        "thermal_method": thermal_method if temperature > 0 else "single energy (T = 0)",
         "temperature_K": temperature,
         "l_phi_m": float("inf") if probes is None else float(l_phi),
         "n_probes": 0 if probes is None else len(np.atleast_1d(probes.sites)),
@@ -142,3 +176,50 @@ def fast_field_conductance(
         "n_fallbacks": fallbacks,
     }
     return FastSweepResult(2.0 * g_spin, info)
+
+
+def transmission_bound(ring, e_t: float, temperature: float, tol: float, params) -> float:
+    """Upper bound of the per-spin transmission over the thermal window: the largest number of
+    propagating lead modes at the window's centre and edges (at least 1)."""
+    kt = K_B * temperature / ring.hopping
+    half = thermal_window(kt, 0.5 * tol, 64.0)
+    best = 1
+    for lead in ring.fsyst.leads:
+        for e in (e_t - half, e_t, e_t + half):
+            try:
+                prop, _ = lead.modes(energy=e, params=params)
+            except Exception:  # outside the lead band: no open mode
+                continue
+            best = max(best, len(prop.velocities) // 2)
+    return float(best)
+
+
+def _band_projector(ring, values: np.ndarray):
+    """Linear map G(field) -> (h/e band part, h/2e band part) of G over a uniformly spaced
+    field sweep (FFT mask), or None when the sweep is not uniform or too short.
+
+    Bands: flux-tube mode ``|f - m/Phi0| < 1/(2 Phi0)``; uniform field
+    ``m A_inner/Phi0 <= f <= m A_outer/Phi0`` (m = 1: h/e, m = 2: h/2e).
+    """
+    v = np.asarray(values, dtype=float)
+    if v.size < 8 or not np.allclose(np.diff(v), v[1] - v[0], rtol=1e-9, atol=0.0):
+        return None
+    step = v[1] - v[0]
+    if step == 0:
+        return None
+    freq = np.abs(np.fft.rfftfreq(v.size, d=step))
+    masks = []
+    for m in (1, 2):
+        if ring.field_param == "flux":
+            masks.append(np.abs(freq - m / PHI0) < 0.5 / PHI0)
+        else:
+            geo = ring.device.geometry
+            masks.append((freq >= m * geo.area_inner / PHI0) & (freq <= m * geo.area_outer / PHI0))
+
+    def project(rows: np.ndarray) -> np.ndarray:
+        rows = np.asarray(rows, dtype=float).reshape(rows.shape[0], -1)
+        spec = np.fft.rfft(rows - rows.mean(axis=1, keepdims=True), axis=1)
+        parts = [np.fft.irfft(spec * mk, n=v.size, axis=1) for mk in masks]
+        return np.concatenate(parts, axis=1)
+
+    return project

@@ -1,22 +1,22 @@
-"""Finite-temperature conductance: G(T, mu) = integral of G(E) (-df/dE) dE.
+"""Finite-temperature conductance, transport-facing side of :mod:`ringkit.thermal_policy`.
 
-The integral runs on a uniform energy grid centred on mu (trapezoidal rule). Its spacing is
-the smaller of ``k_B T`` and ``correlation_energy / points_per_correlation`` (the scale on
-which G(E) changes: ballistic ``hbar v_F / L``, diffusive Thouless energy ``hbar D / L^2``), and
-its half-width ``k_B T ln(2 / tail_tol)`` leaves out a kernel mass of ``tail_tol``. The
-trapezoidal rule is spectrally accurate here: the kernel ``-df/dE = 1/(4 k_B T cosh^2(x/2))``
-is analytic in a strip of half-width ``pi k_B T``, so the aliasing error of a signal
-``cos(a E)`` is ~``2 pi^2 exp(-pi k_B T (2 pi/h - a))``: ~1e-7 for ``h = k_B T`` (default) and
-~1e-16 for ``h = k_B T/2`` (``points_per_kt=2``), provided ``h <= 1/(4a)`` (tested against the
-exact identity ``integral cos(a E)(-df/dE) dE = x/sinh x``, ``x = pi a k_B T``; physics notes
-5.4). The weights are renormalised to sum to 1. Resolve the longest delay that matters:
-resonant rings need ``correlation_energy ~ hbar v / (total loop length)``.
-The number of energies is reported with every result.
+``G(T, mu) = integral G(E) (-df/dE) dE``. Which energies are used, how many, and the error
+estimate are decided by the one policy of :mod:`ringkit.thermal_policy` (adaptive
+Gauss-Kronrod subdivision of the window until the estimated error of every component is below
+``tol``, default 1e-4; ``method="grid"`` is the dense uniform trapezoidal reference). This module
+converts temperatures in K and energies in lattice units, and drives a sweeper (one sparse
+factorization per energy). See ``docs/thermal.md``.
 
 Public API
 ----------
-ThermalGrid, ThermalResult, thermal_weights, thermal_average, thermal_conductance,
-thouless_energy
+thermal_average(func, mu, temperature, *, energy_unit=1.0, tol=1e-4, method="adaptive", ...)
+    -> EnergyAverage (``value``, ``errors``, ``error``, ``n_energies``, ``energies``, ...)
+thermal_conductance(sweeper, values, temperature, **options) -> EnergyAverage
+thermal_weights(mu, temperature, ...) -> ThermalGrid
+    The former uniform grid (spacing ``min(k_B T, E_c/4)``), kept for comparisons and old
+    scripts; it carries no error estimate and is not used by ringkit itself.
+thouless_energy(length, fermi_velocity=... | diffusion_constant=...)
+fermi_window, ThermalToleranceWarning, EnergyAverage (re-exported)
 """
 
 from __future__ import annotations
@@ -28,11 +28,21 @@ from dataclasses import dataclass
 import numpy as np
 
 from ringkit._validation import ParameterError, check_positive
+from ringkit.thermal_policy import (
+    DEFAULT_TOL,
+    EnergyAverage,
+    ThermalToleranceWarning,
+    energy_average,
+    fermi_window,
+)
 from ringkit.units import HBAR, K_B
 
 __all__ = [
+    "DEFAULT_TOL",
+    "EnergyAverage",
     "ThermalGrid",
     "ThermalResult",
+    "ThermalToleranceWarning",
     "thermal_weights",
     "thermal_average",
     "thermal_conductance",
@@ -40,31 +50,20 @@ __all__ = [
     "fermi_window",
 ]
 
-
-def fermi_window(energy, mu: float, kt: float) -> np.ndarray:
-    """``-df/dE = 1 / (4 kT cosh^2((E - mu) / 2kT))`` (same units as ``energy``)."""
-    x = (np.asarray(energy, dtype=float) - mu) / (2.0 * kt)
-    return 1.0 / (4.0 * kt * np.cosh(np.clip(x, -350, 350)) ** 2)
+ThermalResult = EnergyAverage
+"""Former name of :class:`ringkit.thermal_policy.EnergyAverage`."""
 
 
 @dataclass(frozen=True)
 class ThermalGrid:
-    """Energies and weights of the thermal average.
+    """Energies and weights of the former uniform grid (:func:`thermal_weights`).
 
     Attributes
     ----------
-    energies : ndarray
-        Energy points (units of ``mu``).
-    weights : ndarray
-        Weights, summing to 1.
-    mu : float
-        Chemical potential.
-    temperature : float
-        Temperature in K.
-    kt : float
-        ``k_B T`` in the energy units of ``mu``.
-    spacing : float
-        Grid spacing (0 for a single energy).
+    energies, weights : ndarray
+        Energy points (units of ``mu``) and weights summing to 1.
+    mu, temperature, kt, spacing : float
+        Chemical potential, temperature (K), k_B T (units of ``mu``), grid step.
     """
 
     energies: np.ndarray
@@ -76,20 +75,8 @@ class ThermalGrid:
 
     @property
     def n_energies(self) -> int:
-        """Number of energies (the cost is this many single-energy sweeps)."""
+        """Number of energies."""
         return len(self.energies)
-
-
-@dataclass(frozen=True)
-class ThermalResult:
-    """Thermally averaged quantity together with the grid that produced it."""
-
-    value: np.ndarray
-    grid: ThermalGrid
-
-    @property
-    def n_energies(self) -> int:
-        return self.grid.n_energies
 
 
 def thermal_weights(
@@ -103,30 +90,10 @@ def thermal_weights(
     tail_tol: float = 1e-6,
     max_points: int = 4001,
 ) -> ThermalGrid:
-    """Energy grid and weights for ``integral G(E) (-df/dE) dE``.
+    """The former uniform grid: step ``min(k_B T/points_per_kt, E_c/points_per_correlation)``,
+    half-width ``k_B T ln(2/tail_tol)``, trapezoidal ``-df/dE`` weights normalised to 1.
 
-    Parameters
-    ----------
-    mu : float
-        Chemical potential, in units of ``energy_unit``.
-    temperature : float
-        Temperature in K (0 gives the single energy ``mu``).
-    energy_unit : float
-        One energy unit in J (1.0: energies in J; the hopping t for lattice units).
-    correlation_energy : float, optional
-        Energy scale on which the integrand varies (same units as ``mu``).
-    points_per_correlation : float
-        Grid points per correlation energy (default 4).
-    points_per_kt : float
-        Grid points per k_B T (default 1: kernel error ~1e-8; 2 gives ~1e-16).
-    tail_tol : float
-        Kernel mass left outside the window (default 1e-6).
-    max_points : int
-        Refuse grids larger than this.
-
-    Returns
-    -------
-    ThermalGrid
+    Not converged for resonant rings (no error estimate); use :func:`thermal_average`.
     """
     mu = float(mu)
     temperature = check_positive("temperature", temperature, "K", allow_zero=True)
@@ -140,52 +107,63 @@ def thermal_weights(
     if correlation_energy is not None:
         ec = check_positive("correlation_energy", correlation_energy, "energy units")
         h = min(h, ec / check_positive("points_per_correlation", points_per_correlation))
-    half = kt * math.log(2.0 / tail_tol)
-    m = int(math.ceil(half / h))
-    n = 2 * m + 1
-    if n > max_points:
+    m = int(math.ceil(kt * math.log(2.0 / tail_tol) / h))
+    if 2 * m + 1 > max_points:
         raise ParameterError(
             "temperature",
             temperature,
-            f"needs {n} energies > max_points = {max_points} (raise max_points or the "
-            "correlation energy)",
+            f"needs {2 * m + 1} energies > max_points = {max_points}",
             "K",
         )
     energies = mu + h * np.arange(-m, m + 1)
     w = fermi_window(energies, mu, kt)
-    w /= w.sum()
-    return ThermalGrid(energies, w, mu, temperature, kt, h)
+    return ThermalGrid(energies, w / w.sum(), mu, temperature, kt, h)
 
 
 def thermal_average(
-    func: Callable[[float], np.ndarray | float],
+    func: Callable,
     mu: float,
     temperature: float,
-    **grid_options,
-) -> ThermalResult:
-    """``sum_k w_k func(E_k)`` on the grid of :func:`thermal_weights`.
+    *,
+    energy_unit: float = 1.0,
+    tol: float = DEFAULT_TOL,
+    method: str = "adaptive",
+    spacing: float | None = None,
+    **options,
+) -> EnergyAverage:
+    """``integral func(E)(-df/dE) dE`` by the policy of :mod:`ringkit.thermal_policy`.
 
     Parameters
     ----------
     func : callable
         ``func(energy) -> array`` (e.g. G over a field sweep at that energy).
-    mu, temperature, **grid_options
-        Passed to :func:`thermal_weights`.
+    mu : float
+        Chemical potential in units of ``energy_unit``.
+    temperature : float
+        Temperature in K (0: the single energy ``mu``).
+    energy_unit : float
+        One energy unit in J (the hopping t for lattice units).
+    tol : float
+        Absolute error goal of every component (units of ``func``), in [1e-10, 0.1].
+    method : {"adaptive", "grid"}
+        Adaptive (default) or the dense uniform reference grid.
+    spacing : float, optional
+        Step of ``method="grid"`` in units of ``energy_unit`` (default k_B T/4).
+    **options
+        ``bound``, ``functionals``, ``batched``, ``max_energies`` of
+        :func:`ringkit.thermal_policy.energy_average`.
     """
-    grid = thermal_weights(mu, temperature, **grid_options)
-    acc = None
-    for e, w in zip(grid.energies, grid.weights, strict=True):
-        val = np.asarray(func(float(e)), dtype=float)
-        acc = w * val if acc is None else acc + w * val
-    return ThermalResult(acc, grid)
+    temperature = check_positive("temperature", temperature, "K", allow_zero=True)
+    kt = K_B * temperature / check_positive("energy_unit", energy_unit, "J")
+    return energy_average(func, mu, kt, tol=tol, method=method, spacing=spacing, **options)
 
 
-def thermal_conductance(sweeper, values, temperature: float, **grid_options) -> ThermalResult:
-    """Thermally averaged :meth:`FieldSweeper.conductance` over ``values``.
+def thermal_conductance(sweeper, values, temperature: float, **options) -> EnergyAverage:
+    """Thermally averaged :meth:`conductance` of a sweeper over ``values``.
 
-    The sweeper's energy is the chemical potential. One sweeper per grid energy is made with
-    :meth:`FieldSweeper.at_energy` (lead modes recomputed at every energy; the field model is
-    shared).
+    The sweeper's energy is the chemical potential; one sweeper per energy is made with
+    ``sweeper.at_energy(E)`` (the field model is shared). ``options`` as in
+    :func:`thermal_average`.
     """
     mu = sweeper.energy
 
@@ -193,7 +171,7 @@ def thermal_conductance(sweeper, values, temperature: float, **grid_options) -> 
         sw = sweeper if e == mu else sweeper.at_energy(e)
         return sw.conductance(values)
 
-    return thermal_average(at, mu, temperature, **grid_options)
+    return thermal_average(at, mu, temperature, **options)
 
 
 def thouless_energy(
@@ -204,7 +182,7 @@ def thouless_energy(
     Parameters
     ----------
     length : float
-        Relevant path length in m (e.g. the arm-length difference or the arm length).
+        Relevant path length in m.
     fermi_velocity : float, optional
         m/s (ballistic).
     diffusion_constant : float, optional
