@@ -135,6 +135,12 @@ def load_file(path: Path, tally: Tally, o: dict) -> list[dict]:
     ncol = data.shape[1]
     infos = _column_infos(table.labels, ncol)
     tally.files.append(str(path))
+    where = (
+        f"header line {table.header_line}"
+        if table.header_line is not None
+        else ("comment line before the data" if table.labels else "no header: units from options")
+    )
+    tally.headers.append(f"{path.name}: {', '.join(repr(c.label) for c in infos)} ({where})")
     conflicts: list[tuple[str, str, str]] = []
     # field column
     if o["field"] is not None:

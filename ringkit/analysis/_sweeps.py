@@ -19,6 +19,7 @@ class Tally:
         self.adjusted: dict[str, int] = {}
         self.examples: dict[str, list[str]] = {}
         self.caveats: list[str] = []
+        self.headers: list[str] = []
 
     def add(self, kind: str, reason: str, where: list[str]) -> None:
         if not where:
@@ -40,6 +41,7 @@ class Tally:
             adjusted=dict(self.adjusted),
             examples={k: tuple(v) for k, v in self.examples.items()},
             caveats=tuple(dict.fromkeys(self.caveats)),
+            headers=tuple(self.headers),
         )
 
 

@@ -172,6 +172,16 @@ def _unit_row(tokens: list[str]) -> list[str] | None:
     return units
 
 
+def _names_columns(labels: list[str]) -> bool:
+    """True if some label names a field/R/G/temperature column (``B (T)``, ``R``, ``Rxx``).
+
+    A comment such as ``# no header`` has one word per column by chance; it is not a header.
+    """
+    from ringkit.analysis._columns import parse_label
+
+    return any(parse_label(x).quantity is not None for x in labels)
+
+
 def _is_header(tokens: list[str], number: re.Pattern) -> bool:
     tokens = _strip_trailing(tokens, 0)
     return bool(tokens) and all(
@@ -254,7 +264,7 @@ def read_table(
         before = [body for n, body in comments if n < first_data]
         if before:
             cand = _split_header(before[-1], delimiter, ncol)
-            if len(cand) == ncol and _is_header(cand, number):
+            if len(cand) == ncol and _is_header(cand, number) and _names_columns(cand):
                 labels = cand
     data = np.full((len(split_rows), ncol), np.nan)
     lines = np.empty(len(split_rows), dtype=int)

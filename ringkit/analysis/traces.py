@@ -97,7 +97,8 @@ class LoadReport:
 
     ``n_points == n_used + n_dropped``; ``dropped`` maps each reason to a count,
     ``adjusted`` counts points kept but changed (re-sorted, averaged), ``examples`` gives
-    up to five ``"file:line"`` per reason.
+    up to five ``"file:line"`` per reason, ``headers`` where each file's column labels came
+    from (so a data line mistaken for a header would be visible).
     """
 
     files: tuple[str, ...]
@@ -108,6 +109,7 @@ class LoadReport:
     adjusted: dict
     examples: dict
     caveats: tuple[str, ...]
+    headers: tuple[str, ...] = ()
 
     def summary(self) -> str:
         """Readable multi-line summary."""
@@ -121,6 +123,7 @@ class LoadReport:
         for reason, n in self.adjusted.items():
             ex = ", ".join(self.examples.get(reason, ()))
             lines.append(f"  kept {n}: {reason}" + (f" (e.g. {ex})" if ex else ""))
+        lines.extend(f"  columns: {h}" for h in self.headers)
         lines.extend(f"  caveat: {c}" for c in self.caveats)
         return "\n".join(lines)
 

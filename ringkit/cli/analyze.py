@@ -386,6 +386,7 @@ def run(args: argparse.Namespace) -> int:
             drop_reasons=report.dropped,
             adjusted=report.adjusted,
             caveats=list(report.caveats),
+            columns=list(report.headers),
             warnings=messages,
             figures=figures,
             traces=records,
