@@ -170,12 +170,222 @@ def test_headerless_file_needs_units():
         load_traces(DATA / "headerless.dat")
     with pytest.raises(TraceFormatError, match="signal_unit"):
         load_traces(DATA / "headerless.dat", field_unit="mT")
-    res = load_traces(DATA / "headerless.dat", field_unit="mT", signal_unit="Ohm")
-    (tr,) = res.traces
+    loaded = load_traces(DATA / "headerless.dat", field_unit="mT", signal_unit="Ohm")
+    (tr,) = loaded.traces
     assert tr.metadata["column"] == "column 1"  # the comment "# no header" is not a header
-    assert res.report.headers == (
+    assert loaded.report.headers == (
         "headerless.dat: 'column 0', 'column 1' (no header: units from options)",
     )
+    assert tr.field == pytest.approx(np.linspace(-0.02, 0.02, 401), abs=1e-12)
+    res = extract_oscillations(tr.field, tr.conductance)
+    assert res.period_he == pytest.approx(4e-3, rel=0.01)  # generated with a 4 mT period
+    assert res.amplitude_he_rms == pytest.approx(0.1 / np.sqrt(2), rel=0.02)
+
+
+def test_malformed_file_one_line_error_with_file_and_line():
+    with pytest.raises(TraceFormatError) as info:
+        load_traces(DATA / "malformed.csv")
+    msg = str(info.value)
+    assert "malformed.csv" in msg and "line 6" in msg and "'12O4'" in msg
+    assert "\n" not in msg
+
+
+def test_malformed_variants(tmp_path):
+    p = tmp_path / "cols.csv"
+    p.write_text("B (T),R (Ohm)\n0,1\n0.1,2\n0.2,3,4\n")
+    with pytest.raises(TraceFormatError, match=r"cols.csv, line 4: expected 2 columns, found 3"):
+        load_traces(p)
+    p = tmp_path / "empty.txt"
+    p.write_text("# only comments\n\n")
+    with pytest.raises(TraceFormatError, match="no data lines"):
+        load_traces(p)
+    p = tmp_path / "bin.dat"
+    p.write_bytes(b"\x00\x01\x02binary")
+    with pytest.raises(TraceFormatError, match="binary"):
+        load_traces(p)
+    p = tmp_path / "v.csv"
+    p.write_text("B (T),U (V)\n" + "".join(f"{i},{i}\n" for i in range(10)))
+    with pytest.raises(TraceFormatError, match="signal"):
+        load_traces(p)
+    with pytest.raises(TraceFormatError, match="no signal column named 'X'"):
+        load_traces(p, signal="X")
+    with pytest.raises(ParameterError, match="signal_unit"):
+        load_traces(p, signal_unit="volt")
+    with pytest.raises(FileNotFoundError):
+        load_traces(tmp_path / "missing.csv")
+
+
+def _write_variants(tmp_path, b, r):
+    rows = list(zip(b, r, strict=True))
+    files = {
+        "comma.csv": "B [mT],R [Ohm]\n" + "".join(f"{x},{y}\n" for x, y in rows),
+        "tab.tsv": "# B [mT]\tR [Ohm]\n" + "".join(f"{x}\t{y}\n" for x, y in rows),
+        "space.dat": "# comment\nB [mT]   R [Ohm]\n" + "".join(f"  {x}   {y}\n" for x, y in rows),
+        "semi.txt": "B [mT];R [Ohm]\n"
+        + "".join(f"{str(x).replace('.', ',')};{str(y).replace('.', ',')}\n" for x, y in rows),
+    }
+    for name, text in files.items():
+        (tmp_path / name).write_text(text)
+    return list(files)
+
+
+def test_delimiters_comment_header_and_decimal_comma(tmp_path):
+    b = np.round(np.linspace(-5, 5, 41), 6)
+    r = np.round(10000 + 10 * np.cos(b), 4)
+    names = _write_variants(tmp_path, b, r)
+    ref = None
+    for name in names:
+        decimal = "," if name == "semi.txt" else "."
+        (tr,) = load_traces(tmp_path / name, decimal=decimal).traces
+        assert tr.field == pytest.approx(b * 1e-3, rel=1e-12)
+        if ref is None:
+            ref = tr.conductance
+        assert tr.conductance == pytest.approx(ref, rel=1e-12)
+    assert ref == pytest.approx(1 / (r * E2H), rel=1e-12)
+
+
+def test_group_by_temperature_column():
+    t = TRUTH["ring_temperatures.csv"]
+    res = load_traces(DATA / "ring_temperatures.csv", group_by="T")
+    assert [tr.temperature for tr in res] == pytest.approx(list(t["temperatures"]))
+    for tr in res:
+        assert len(tr) == t["n_per_trace"]
+        assert tr.field[0] == pytest.approx(t["field_range"][0], abs=1e-9)  # from gauss
+        assert tr.field[-1] == pytest.approx(t["field_range"][1], abs=1e-9)
+        assert "T=" in tr.label
+    assert res.report.n_dropped == 0
+
+
+def test_folder_files_and_temperature_from_names(tmp_path):
+    b = np.linspace(0, 0.01, 30)
+    for name, temp in (("ring_300mK.csv", 0.3), ("ring_1.5K.csv", 1.5)):
+        g = 2 + 0.1 * np.cos(2 * np.pi * 500 * b) + temp
+        (tmp_path / name).write_text(
+            "B (T),G (e^2/h)\n" + "".join(f"{x},{y}\n" for x, y in zip(b, g, strict=True))
+        )
+    (tmp_path / "notes.md").write_text("not data")
+    res = load_traces(tmp_path)
+    assert len(res.report.files) == 2
+    temps = sorted(tr.temperature for tr in res)
+    assert temps == pytest.approx([0.3, 1.5])
+    for tr in res:
+        assert tr.conductance.mean() == pytest.approx(2 + tr.temperature, abs=0.01)
+    with pytest.raises(TraceFormatError, match="no data files"):
+        load_traces(tmp_path, pattern="*.xyz")
+
+
+def test_out_of_order_duplicates_modes_and_short_segments(tmp_path):
+    b = [0.0, 0.1, 0.2, 0.18, 0.3, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0, 0.5, 0.4]
+    g = [1.0, 2.0, 3.0, 4.0, 5.0, 7.0, 8.0, 9.0, 10.0, 11.0, 12.0, 13.0, 14.0, 15.0, 16.0]
+    p = tmp_path / "d.csv"
+    p.write_text("B (T),G (S)\n" + "".join(f"{x},{y}\n" for x, y in zip(b, g, strict=True)))
+    res = load_traces(p, signal_unit="e^2/h", override_units=True)
+    (tr,) = res.traces  # the short down segment (2 rows) is dropped and reported
+    assert res.report.dropped == {"sweep segment shorter than 8 points": 2}
+    assert res.report.adjusted == {
+        "field out of order within a sweep (re-sorted)": 1,
+        "duplicate field value (signal averaged)": 1,
+    }
+    assert tr.field[:4] == pytest.approx([0.0, 0.1, 0.18, 0.2])
+    assert tr.conductance[4] == pytest.approx(6.0)  # mean of 5 and 7 at B = 0.3
+    res2 = load_traces(
+        p, signal_unit="e^2/h", out_of_order="drop", duplicates="drop", override_units=True
+    )
+    assert res2.report.dropped == {
+        "field out of order within a sweep": 1,
+        "duplicate field value": 1,
+        "sweep segment shorter than 8 points": 2,
+    }
+    assert res2.report.n_used + res2.report.n_dropped == res2.report.n_points == 15
+    res3 = load_traces(p, signal_unit="e^2/h", split_sweeps=False, override_units=True)
+    assert len(res3.traces) == 1 and res3.traces[0].direction == "merged"
+    assert any("merged" in c for c in res3.report.caveats)
+
+
+def test_several_signal_columns_and_index_selection(tmp_path):
+    b = np.linspace(0, 1, 20)
+    p = tmp_path / "multi.csv"
+    p.write_text("B (T),R1 (Ohm),R2 (kOhm)\n" + "".join(f"{x},{1000 + x},{2 + x}\n" for x in b))
+    res = load_traces(p)
+    assert [tr.metadata["column"] for tr in res] == ["R1 (Ohm)", "R2 (kOhm)"]
+    assert res.traces[1].conductance == pytest.approx(1 / ((2 + b) * 1e3 * E2H), rel=1e-12)
+    (only,) = load_traces(p, field=0, signal=2).traces
+    assert only.metadata["column"] == "R2 (kOhm)"
+    assert res.report.n_points == 40
+
+
+def test_no_kwant_import_anywhere_in_analysis_sources():
+    root = Path(__file__).parents[1] / "ringkit" / "analysis"
+    for src in root.glob("*.py"):
+        text = src.read_text()
+        assert "import kwant" not in text and "from kwant" not in text, src.name
+    code = "import sys, ringkit.analysis.traces; print('kwant' in sys.modules)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
+
+
+# --- issue 16: no silent wrong answers on the loader (docs/measured-data.md) -------------
+
+
+def _rows(b, v, fmt="{},{}\n"):
+    return "".join(fmt.format(x, y) for x, y in zip(b, v, strict=True))
+
+
+B10 = [round(0.01 * i, 2) for i in range(10)]
+R10 = [1000.0 + i for i in range(10)]
+
+
+@pytest.mark.parametrize(
+    ("text", "kelvin"),
+    [
+        ("0,3 K", 0.3),  # decimal comma (read as 3 K before)
+        ("3.00e-01 K", 0.3),  # scientific notation (1 K before)
+        ("1.50e+00 K", 1.5),  # (0 K before)
+        ("1e-3 K", 0.001),  # (3 K before)
+        ("300 mK", 0.3),
+        ("0.3 K (mixing chamber)", 0.3),
+    ],
+)
+def test_header_temperatures_read_exactly(tmp_path, text, kelvin):
+    p = tmp_path / "run.csv"
+    p.write_text(f"# T = {text}\nB (T),R (Ohm)\n" + _rows(B10, R10))
+    (tr,) = load_traces(p).traces
+    assert tr.temperature == kelvin  # exact: float of the written digits
+    assert f"T={kelvin:g} K" in tr.label
+
+
+def test_negative_header_temperature_refused(tmp_path):
+    p = tmp_path / "run.csv"
+    p.write_text("# T = -5 K\nB (T),R (Ohm)\n" + _rows(B10, R10))
+    with pytest.raises(TraceFormatError, match=r"run.csv, line 1: .*-5 K.*not positive"):
+        load_traces(p)
+    (tr,) = load_traces(p, temperature=0.05).traces  # the option overrides the header
+    assert tr.temperature == 0.05
+
+
+def test_temperature_in_file_name_with_decimal_comma(tmp_path):
+    p = tmp_path / "ring_0,3K.csv"
+    p.write_text("B (T),R (Ohm)\n" + _rows(B10, R10))
+    assert load_traces(p).traces[0].temperature == 0.3  # was 3 K
+
+
+def test_malformed_first_row_of_headerless_file_is_not_a_header(tmp_path):
+    p = tmp_path / "nohead.csv"
+    p.write_text("0.001,abc\n" + _rows(B10, R10))
+    with pytest.raises(TraceFormatError, match=r"nohead.csv, line 1: cannot read 'abc'"):
+        load_traces(p, field_unit="T", signal_unit="Ohm")
+
+
+@pytest.mark.parametrize("empty", ["\t", "\t\t", ",", " , "])
+def test_empty_rows_counted_whatever_the_delimiter(tmp_path, empty):
+    d = "\t" if "\t" in empty else ","
+    p = tmp_path / "gap.txt"
+    body = _rows(B10[:5], R10[:5], "{}" + d + "{}\n") + empty + "\n"
+    body += _rows(B10[5:], R10[5:], "{}" + d + "{}\n")
+    p.write_text(f"B (T){d}R (Ohm)\n" + body)
+    res = load_traces(p)
+    assert res.report.dropped == {"empty row (no values)": 1}
+    assert res.report.examples["empty row (no values)"] == ("gap.txt:7",)
     assert res.report.n_points == 11 and res.report.n_used == 10
 
 
