@@ -39,6 +39,7 @@ from ringkit.transport.probes import (
     effective_conductance,
     local_dos,
     lphi_from_coupling,
+    policy_probe_conductance,
     ring_probe_sites,
     thermal_probe_conductance,
 )
@@ -484,3 +485,30 @@ def test_calibrate_ring_probes_in_si_for_a_uniform_field_ring():
     assert 0 < pr.info["l_phi_realised_err"] < 0.5 * l_phi
     assert len(set(pr.sites.tolist())) == 24
     assert np.all(np.isin(ring.arm_of_site[pr.sites], ["upper", "lower"]))  # on the arms
+
+
+def test_probe_types_through_the_thermal_policy():
+    # ringkit.thermal_policy (adaptive Gauss-Kronrod) against an independent dense reference:
+    # trapezoid rule with spacing kT/4 on |E - mu| <= 12 kT (kernel mass outside 1.2e-5,
+    # closed form 2/(1 + e^12)) of the same conductance matrices; the policy's error estimate
+    # (plus the reference's tail) must cover the actual error, for both probe types.
+    fsyst = square_ring(10, 7, 3, disorder=1.0, seed=3, field_param="flux")
+    sites = ring_probe_sites(fsyst, 4)
+    model = FluxTubeModel(fsyst, flux_period=1.0).with_probes(DephasingProbes(sites, 0.3))
+    flux, mu, kt = np.array([0.13, 0.4]), 0.9, 0.01
+    cache: dict = {}
+
+    def cmat(e):
+        if e not in cache:
+            cache[e] = FluxTubeSweeper(model, energy=e).conductance_matrix(flux)
+        return cache[e]
+
+    e = mu + kt / 4 * np.arange(-48, 49)
+    w = 1.0 / (4 * kt * np.cosh((e - mu) / (2 * kt)) ** 2)
+    w /= w.sum()
+    for probe_type in ("dephasing", "voltage"):
+        res = policy_probe_conductance(cmat, mu, kt, probe_type=probe_type, tol=1e-3)
+        ref = thermal_probe_conductance(cmat, e, w, probe_type=probe_type)
+        err = np.abs(np.asarray(res.value) - ref)
+        assert res.converged and np.all(np.asarray(res.errors) <= 2e-3), probe_type
+        assert np.all(err <= np.asarray(res.errors) + 2e-5), (probe_type, err, res.errors)

@@ -46,21 +46,25 @@ Public API
 ----------
 DephasingProbes, ring_probe_sites, attach_probes, coupling_from_lphi, lphi_from_coupling,
 lead_velocity, local_dos, effective_conductance, conductance_matrix_from_transmission,
-thermal_probe_conductance, PROBE_TYPES, ANALYTIC_LATTICE_FACTOR
+thermal_probe_conductance, policy_probe_conductance, PROBE_TYPES, ANALYTIC_LATTICE_FACTOR
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import kwant
 import numpy as np
 import scipy.sparse as sp
 
-from ringkit._validation import ParameterError, check_choice, check_positive
+from ringkit._validation import ParameterError, check_positive
 from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
 from ringkit.transport.fastsweep import kron_reduce
+from ringkit.transport.probe_types import (  # the probe types, re-exported here
+    PROBE_TYPES,
+    policy_probe_conductance,
+    thermal_probe_conductance,
+)
 
 __all__ = [
     "ANALYTIC_LATTICE_FACTOR",
@@ -76,6 +80,7 @@ __all__ = [
     "conductance_matrix_from_transmission",
     "effective_conductance",
     "thermal_probe_conductance",
+    "policy_probe_conductance",
 ]
 
 CALIBRATION = 1.0
@@ -85,10 +90,6 @@ ANALYTIC_LATTICE_FACTOR = 0.66
 """Start factor of the analytic estimate on square lattices (mean over narrow test rings of the
 old fit; per device the realised L_phi still varies 0.7-2.1x): a first guess for
 :func:`ringkit.transport.probe_calibration.calibrate_probes`, not a calibration."""
-
-PROBE_TYPES = ("dephasing", "voltage")
-"""Energy-conserving dephasing probes (reduce at each energy, then average) and voltage probes
-(average the conductance matrix, then reduce); module docstring."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -524,59 +525,3 @@ def effective_conductance(t_matrix: np.ndarray, source: int = 0, drain: int = 1)
         1761 (1986); docs/probes.md "Kron reduction"), in e^2/h per spin.
     """
     return kron_reduce(conductance_matrix_from_transmission(t_matrix), source, drain)
-
-
-def thermal_probe_conductance(
-    conductance_matrix_at: Callable[[float], np.ndarray],
-    energies,
-    weights=None,
-    *,
-    probe_type: str = "dephasing",
-    source: int = 0,
-    drain: int = 1,
-    average: Callable[[np.ndarray], np.ndarray] | None = None,
-) -> np.ndarray:
-    """Finite-temperature two-terminal conductance with floating probes of either type.
-
-    Parameters
-    ----------
-    conductance_matrix_at : callable
-        ``energy -> C`` (…, n, n), the Büttiker conductance matrix at one energy (e.g.
-        ``lambda e: sweeper.at_energy(e).conductance_matrix(fluxes)``), e^2/h per spin.
-    energies : array_like or grid object
-        Energy points; an object with ``.energies`` and ``.weights`` (e.g.
-        :class:`ringkit.transport.thermal.ThermalGrid` or the energy policy's grid) may be
-        passed instead of ``energies, weights``.
-    weights : array_like, optional
-        Weights of ``-df/dE`` on the grid (summing to 1).
-    probe_type : {"dephasing", "voltage"}
-        ``"dephasing"``: Kron-reduce at every energy, then average ``G_eff`` (energy-conserving
-        dephasing probes). ``"voltage"``: average the conductance MATRIX, then Kron-reduce
-        (zero total current).
-    average : callable, optional
-        Energy-average policy: maps an array with the energy on axis 0 to its average (default:
-        ``tensordot(weights, values, 1)``). Use it to plug in another quadrature.
-
-    Returns
-    -------
-    ndarray
-        ``G_eff`` (…) in e^2/h per spin.
-    """
-    check_choice("probe_type", probe_type, PROBE_TYPES)
-    if hasattr(energies, "energies") and hasattr(energies, "weights"):
-        energies, weights = energies.energies, energies.weights
-    e = np.atleast_1d(np.asarray(energies, dtype=float))
-    if average is None:
-        if weights is None:
-            raise ParameterError("weights", None, "give weights, a grid object or average=")
-        w = np.atleast_1d(np.asarray(weights, dtype=float))
-        if w.shape != e.shape:
-            raise ParameterError("weights", w.shape, f"must match energies {e.shape}")
-
-        def average(values: np.ndarray) -> np.ndarray:
-            return np.tensordot(w, values, axes=1)
-
-    cm = np.stack([np.asarray(conductance_matrix_at(float(x)), dtype=float) for x in e])
-    if probe_type == "voltage":
-        return kron_reduce(average(cm), source, drain)
-    return average(kron_reduce(cm, source, drain))
