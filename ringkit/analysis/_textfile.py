@@ -35,6 +35,9 @@ _NUMBER = {
     ".": re.compile(r"^[+-]?(?:[0-9]+(?:\.[0-9]*)?|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$"),
     ",": re.compile(r"^[+-]?(?:[0-9]+(?:,[0-9]*)?|,[0-9]+)(?:[eE][+-]?[0-9]+)?$"),
 }
+_COLUMN = {  # a whole column of numbers, joined with newlines (fast path of read_table)
+    d: re.compile(rf"(?:{p.pattern[1:-1]}\n)*{p.pattern[1:-1]}") for d, p in _NUMBER.items()
+}
 _NUM_TEXT = r"[0-9]+(?:[.,][0-9]+)?(?:[eE][-+]?[0-9]+)?"
 _TEMP_IN_NAME = re.compile(r"(?<![A-Za-z0-9.,])(" + _NUM_TEXT + r")\s*(mK|K)(?![A-Za-z])")
 _TEMP_VALUE = re.compile(
@@ -85,7 +88,9 @@ def header_temperature(value: str) -> tuple[float | None, str | None]:
 
 def _split(line: str, delimiter: str | None) -> list[str]:
     parts = line.split() if delimiter is None else line.split(delimiter)
-    return [p.strip().strip("'\"").strip() for p in parts]
+    if '"' in line or "'" in line:
+        return [p.strip().strip("'\"").strip() for p in parts]
+    return [p.strip() for p in parts]
 
 
 _LABEL = re.compile(r"[^\s\(\[]+(?:\s*[\(\[][^\)\]]*[\)\]])?|[\(\[][^\)\]]*[\)\]]")
@@ -269,17 +274,25 @@ def read_table(
     data = np.full((len(split_rows), ncol), np.nan)
     lines = np.empty(len(split_rows), dtype=int)
     row_reason: list[str | None] = [None] * len(split_rows)
+    cols: list[list[str]] = [[] for _ in range(ncol)]
     for i, (lineno, tokens) in enumerate(split_rows):
         lines[i] = lineno
         if not any(tokens):
             row_reason[i] = EMPTY_ROW
-            continue
+            tokens = [""] * ncol
         tokens = _strip_trailing(tokens, ncol)
         if len(tokens) != ncol:
             raise TraceFormatError(
                 f"{path}, line {lineno}: expected {ncol} columns, found {len(tokens)}"
             )
-        for j, t in enumerate(tokens):
+        for j in range(ncol):
+            cols[j].append(tokens[j])
+    errors: list[tuple[int, str]] = []
+    for j, col in enumerate(cols):
+        if _COLUMN[decimal].fullmatch("\n".join(col)):  # fast path: numbers only
+            data[:, j] = np.array([_to_float(t) for t in col] if decimal == "," else col, float)
+            continue
+        for i, t in enumerate(col):
             low = t.lower()
             if low in _NAN_TOKENS:
                 continue
@@ -287,10 +300,16 @@ def read_table(
                 data[i, j] = np.inf
                 continue
             if not number.match(t):
-                col = f"column {labels[j]!r}" if labels else f"column {j}"
+                name = f"column {labels[j]!r}" if labels else f"column {j}"
                 hint = " (decimal comma? give decimal=',')" if "," in t and decimal == "." else ""
-                raise TraceFormatError(
-                    f"{path}, line {lineno}: cannot read {t!r} as a number ({col}){hint}"
+                errors.append(
+                    (
+                        int(lines[i]),
+                        f"{path}, line {lines[i]}: cannot read {t!r} as a number ({name}){hint}",
+                    )
                 )
+                break
             data[i, j] = _to_float(t)
+    if errors:
+        raise TraceFormatError(min(errors)[1])  # the first bad line of the file
     return Table(labels, data, lines, meta, meta_lines, row_reason, header_line)
