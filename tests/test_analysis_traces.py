@@ -190,6 +190,13 @@ def test_malformed_file_one_line_error_with_file_and_line():
     assert "\n" not in msg
 
 
+def test_first_bad_line_is_named_whatever_its_column(tmp_path):
+    p = tmp_path / "two.csv"
+    p.write_text("B (T),R (Ohm)\n0.0,1000\n0.1,x1\ny2,1002\n0.3,1003\n")
+    with pytest.raises(TraceFormatError, match=r"two.csv, line 3: cannot read 'x1'"):
+        load_traces(p, min_points=2)
+
+
 def test_malformed_variants(tmp_path):
     p = tmp_path / "cols.csv"
     p.write_text("B (T),R (Ohm)\n0,1\n0.1,2\n0.2,3,4\n")
