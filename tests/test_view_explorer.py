@@ -98,9 +98,12 @@ def test_first_frame_labelled_then_lattice_swapped_in():
     assert "single-channel" in ex.banner_text()
     ex.controls["radius"].value = 130.0  # new lattice: the single-channel frame comes first
     assert ex.live is None and ex.live_pending and "computing" in ex.banner_text()
-    assert "preview" in ex.artists and "live" not in ex.artists
+    assert "preview" in ex.artists
+    if ex.live_stale is not None:  # the previous lattice line stays, faint and dashed
+        assert ex.artists["live"].get_linestyle() == "--" and "previous" in ex.banner_text()
     assert ex.wait_live(120)
     assert ex.live is not None and ex.live_params == ex.params and "live" in ex.artists
+    assert ex.artists["live"].get_linestyle() == "-" and ex.live_stale is None
     assert ex.live_latency >= ex.latency > 0
     assert ex.artists["preview"].get_label().startswith("single-channel")
 

@@ -152,6 +152,7 @@ class LatestOnly:
         self._pending: list = []
         self._serial = 0
         self._thread: threading.Thread | None = None
+        self._running = False
         self._idle = threading.Event()
         self._idle.set()
 
@@ -161,7 +162,8 @@ class LatestOnly:
             self._serial += 1
             self._pending[:] = [(self._serial, arg)]
             self._idle.clear()
-            if self._thread is None or not self._thread.is_alive():
+            if not self._running:  # (a finishing worker may still be alive: not "running")
+                self._running = True
                 self._thread = threading.Thread(target=self._run, daemon=True,
                                                 name="ringkit-live")  # fmt: skip
                 self._thread.start()
@@ -175,15 +177,28 @@ class LatestOnly:
         while True:
             with self._lock:
                 if not self._pending:
+                    self._running = False
                     self._idle.set()
                     return
                 serial, arg = self._pending.pop()
             try:
                 result = self._func(arg)
             except BaseException as exc:  # shown by the panel, never lost
-                self._on_error(serial, arg, exc)
+                self._report(self._on_error, serial, arg, exc)
             else:
-                self._on_done(serial, arg, result)
+                try:
+                    self._on_done(serial, arg, result)
+                except BaseException as exc:  # e.g. a drawing error: shown, worker goes on
+                    self._report(self._on_error, serial, arg, exc)
+
+    @staticmethod
+    def _report(callback, *args) -> None:
+        try:
+            callback(*args)
+        except BaseException:  # pragma: no cover - the worker must survive its callbacks
+            import traceback
+
+            traceback.print_exc()
 
     def wait(self, timeout: float | None = None) -> bool:
         """Block until nothing is queued or running; True if idle."""

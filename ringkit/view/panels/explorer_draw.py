@@ -57,16 +57,32 @@ class ExplorerDrawing:
             None if full is None else id(full),
             stale,
             unit,
-            self.live is not None,
+            self._live_line() is not None,
         )
         if pv is not None and self.show_preview.value and key == self._layout_key:
             self._update_preview_artists(pv, unit)  # fast path: same layout, new preview data
         else:
             self._build_axes(pv, full, stale)
             self._layout_key = key
+        self._style_live_line()
         self._banner.set_text(self.banner_text())
         self.pane.refresh()
         self._update_summary(stale)
+
+    def _live_line(self):
+        """Lattice result to draw: the current one, else (while the new one is computed) the
+        previous one, drawn faint and dashed so that the axes need not be rebuilt."""
+        if self.live is not None:
+            return self.live
+        return self.live_stale if self.live_pending else None
+
+    def _style_live_line(self) -> None:
+        stale = self.live is None and self._live_line() is not None
+        for key in ("live", "live_spectrum"):
+            line = self.artists.get(key)
+            if line is not None:
+                line.set_alpha(0.35 if stale else 1.0)
+                line.set_linestyle("--" if stale else "-")
 
     def banner_text(self) -> str:
         """What the figure shows (single-channel model, lattice with N modes, or why not)."""
@@ -78,7 +94,8 @@ class ExplorerDrawing:
         if live is not None:
             parts.append(f"exact lattice, {self._modes_text()} per arm, {live.n_sites:,} sites")
         elif self.live_lattice.value and self.live_pending:
-            parts.append(f"exact lattice ({self._modes_text()} per arm): computing…")
+            old = " (dashed: previous settings)" if self._live_line() is not None else ""
+            parts.append(f"exact lattice ({self._modes_text()} per arm): computing…{old}")
         elif self.live_note:
             parts.append(f"lattice {self.live_note}")
         if self.full is not None and self.show_full.value:
@@ -106,7 +123,7 @@ class ExplorerDrawing:
             self.artists["preview"] = ax_g.get_lines()[0]
         with style_context():
             ax_g.set_ylabel(CONDUCTANCE_LABEL + f" {PREVIEW}", color=COLORS["model"])
-        live = self.live
+        live = self._live_line()
         ref = pv if pv is not None else (live if live is not None else full)
         unit = field_unit_for(ref.field) if ref is not None else "auto"
         self._twin = None
@@ -185,7 +202,7 @@ class ExplorerDrawing:
                 plots.update_period_mark(self.ax_g, self._marks[label], per, field_unit=unit,
                                          label=label)  # fmt: skip
         self.artists["preview_spectrum"].set_data(pv.spectrum.frequency, pv.spectrum.amplitude)
-        live = self.live
+        live = self._live_line()
         if live is not None and "live" in self.artists:
             self.artists["live"].set_data(live.field * field_scale(unit), live.conductance)
             self.artists["live_spectrum"].set_data(live.spectrum.frequency, live.spectrum.amplitude)

@@ -86,6 +86,8 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         unavailable; ``live_note`` then says why).
     live_pending : bool
         A lattice result for the current settings is being computed.
+    live_stale : LiveResult or None
+        While it is, the previous lattice result (drawn faint and dashed).
     live_lattice : ipywidgets.Checkbox
         Turns the live lattice view on and off.
     live_view : LiveLattice
@@ -114,6 +116,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         self.live_params: ExplorerParams | None = None
         self.live_note: str | None = None
         self.live_pending = False
+        self.live_stale: LiveResult | None = None
         self.background = in_kernel() if background is None else bool(background)
         self._worker = LatestOnly(self._live_compute, self._live_done, self._live_failed)
         self._submitted: dict[int, float] = {}
@@ -282,7 +285,10 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
             self.params, self.preview, self.derived = params, result, derived
             keep = self.live_lattice.value and note is None and self.live_params == params
             if not keep:
+                self.live_stale = self.live if self.live is not None else self.live_stale
                 self.live, self.live_params = None, None
+            if not self.live_lattice.value or note is not None:
+                self.live_stale = None
             self.live_note = note
             self.live_pending = bool(self.live_lattice.value and note is None and not keep)
             self._draw()
@@ -314,6 +320,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
             if params != self.params or not self.live_lattice.value:
                 return  # settings moved on: a newer computation follows
             self.live, self.live_params, self.live_pending = result, params, False
+            self.live_stale = None
             self._draw()
             self.live_latency = time.perf_counter() - self._submitted.pop(serial, math.nan)
 
