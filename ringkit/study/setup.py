@@ -13,6 +13,7 @@ check_setup(plan) -> StudySetup
 make_device(physics, fermi_energy, gate_potential) -> RingDevice
 correlation_energy(device) -> float
 thermal_grid(device, temperature, thermal) -> ThermalGrid
+thermal_average(ring, temperature, thermal, g_at) -> EnergyAverage
 """
 
 from __future__ import annotations
@@ -36,7 +37,14 @@ from ringkit.study.plan import StudyPlan
 from ringkit.study.quantities import format_quantity
 from ringkit.units import ab_period
 
-__all__ = ["StudySetup", "check_setup", "make_device", "correlation_energy", "thermal_grid"]
+__all__ = [
+    "StudySetup",
+    "check_setup",
+    "make_device",
+    "correlation_energy",
+    "thermal_grid",
+    "thermal_average",
+]
 
 
 @dataclass(frozen=True)
@@ -385,23 +393,72 @@ def correlation_energy(device) -> float:
 
 
 def thermal_grid(device, temperature: float, thermal: dict[str, Any]):
-    """:class:`ringkit.transport.thermal.ThermalGrid` (energies in J) around the device's E_F.
+    """Window of the thermal policy around the device's E_F (J), with a cost estimate.
+
+    :class:`ringkit.transport.thermal.ThermalGrid` of equally spaced energies spanning the
+    widest window ``|E - E_F| <= k_B T ln(20 * 64 / tol)`` that
+    :func:`ringkit.thermal_policy.energy_average` can use (a bound of 32 lead modes; checked
+    against the band and the lead thresholds), as many as the adaptive rule's first pass
+    evaluates (15 per interval of 2 k_B T): a lower bound of its cost. The thermal averages
+    themselves come from :func:`thermal_average`.
 
     Parameters
     ----------
     device : RingDevice
-        Sets the Fermi energy and the correlation energy (:func:`correlation_energy`).
+        Sets the Fermi energy.
     temperature : float
         Temperature in K (0: the single energy E_F).
     thermal : dict
-        The ``[thermal]`` section (``points_per_correlation``, ``tail_tol``).
+        The ``[thermal]`` section (``tol`` in e^2/h, default 1e-4).
     """
-    from ringkit.transport.thermal import thermal_weights
+    from ringkit.thermal_policy import DEFAULT_TOL, budget_grid, thermal_window
+    from ringkit.transport.thermal import ThermalGrid
+    from ringkit.units import K_B
 
-    return thermal_weights(
-        device.material.fermi_energy_J,
-        temperature,
-        correlation_energy=correlation_energy(device),
-        points_per_correlation=thermal["points_per_correlation"],
-        tail_tol=thermal["tail_tol"],
+    mu = device.material.fermi_energy_J
+    kt = K_B * temperature
+    tol = thermal.get("tol", DEFAULT_TOL)
+    n = 1 if kt == 0 else 15 * max(1, round(thermal_window(kt, tol, 64.0) / kt)) + 1
+    energies, weights = budget_grid(mu, kt, n, tol=tol, bound=64.0)
+    step = float(energies[1] - energies[0]) if energies.size > 1 else 0.0
+    return ThermalGrid(energies, weights, mu, temperature, kt, step)
+
+
+def thermal_average(ring, temperature: float, thermal: dict[str, Any], g_at):
+    """G(T) = integral G(E)(-df/dE) dE by the thermal policy (:mod:`ringkit.thermal_policy`).
+
+    Parameters
+    ----------
+    ring : TightBindingRing
+        The unit's lattice (Fermi energy, lead modes for the bound of G).
+    temperature : float
+        K.
+    thermal : dict
+        The ``[thermal]`` section: ``tol`` (e^2/h, default 1e-4), ``method`` ("adaptive").
+    g_at : callable
+        ``g_at(E)`` -> spin-degenerate G (e^2/h) over the field at energy E (J).
+
+    Returns
+    -------
+    EnergyAverage
+        ``value``, ``error``, ``n_energies``, ``energies`` (J).
+    """
+    from ringkit.thermal_policy import DEFAULT_TOL, energy_average
+    from ringkit.transport.sweep import transmission_bound
+    from ringkit.units import K_B
+
+    tol = thermal.get("tol", DEFAULT_TOL)
+    bound = (
+        0.0
+        if temperature == 0
+        else 2.0
+        * transmission_bound(ring, ring.fermi_energy_lattice, temperature, tol, ring.params())
+    )
+    return energy_average(
+        g_at,
+        ring.fermi_energy,
+        K_B * temperature,
+        tol=tol,
+        method=thermal.get("method", "adaptive"),
+        bound=max(bound, 1.0),
     )

@@ -104,15 +104,15 @@ def build_device(params: ExplorerParams):
 
 
 def thermal_grid(ring, temperature: float, max_energies: int) -> tuple[np.ndarray, np.ndarray, str]:
-    """Energy grid (J), -df/dE weights and a note for the thermal average.
+    """Energies (J), -df/dE weights and a note for a thermal average with a fixed budget.
 
-    Single energy when ``k_B T`` is below a tenth of the ballistic correlation energy
-    ``hbar v_F/L`` (L = half circumference); otherwise the engine's grid
-    (:func:`ringkit.transport.thermal.thermal_weights`, 2 % kernel tail) resolving E_c/4, or,
-    if that needs more than ``max_energies`` points, spacing k_B T with the kernel tail cut so
-    that at most ``max_energies`` points are used (noted).
+    For quick views only: a single energy when ``k_B T`` is below a tenth of the ballistic
+    correlation energy ``hbar v_F/L`` (L = half circumference), otherwise the fixed-budget
+    grid of the thermal policy (:func:`ringkit.thermal_policy.budget_grid`, at most
+    ``max_energies`` energies on the policy's window); no error control (the note says so).
+    :func:`explorer_full` uses the converged, error-controlled policy instead.
     """
-    from ringkit.transport.thermal import thermal_weights as engine_weights
+    from ringkit.thermal_policy import budget_grid
     from ringkit.transport.thermal import thouless_energy
 
     fermi = ring.fermi_energy
@@ -122,30 +122,20 @@ def thermal_grid(ring, temperature: float, max_energies: int) -> tuple[np.ndarra
     e_c = thouless_energy(
         math.pi * ring.device.geometry.mean_radius, fermi_velocity=mat.fermi_velocity
     )
-    kt = K_B * temperature
-    if kt < 0.1 * e_c:
-        return np.array([fermi]), np.array([1.0]), "k_B T < E_c/10: single energy"
-    t = ring.hopping
-    try:
-        grid = engine_weights(
-            fermi / t, temperature, energy_unit=t, correlation_energy=e_c / t,
-            tail_tol=0.02, max_points=max_energies,
-        )  # fmt: skip
-        note = f"thermal average over {grid.n_energies} energies"
-    except ValueError:
-        tail = max(0.02, 2.0 * math.exp(-(max_energies - 1) / 2.0))  # <= max_energies points
-        grid = engine_weights(fermi / t, temperature, energy_unit=t, tail_tol=tail)
-        note = (f"thermal average over {grid.n_energies} energies spaced k_B T "
-                f"(coarser than E_c/4 = {e_c / 4 / kt:.2g} k_B T)")  # fmt: skip
-    return grid.energies * t, grid.weights, note
+    if K_B * temperature < 0.1 * e_c:
+        return np.array([fermi]), np.array([1.0]), "k_B T < E_c/10: single energy (preview)"
+    energies, weights = budget_grid(fermi, K_B * temperature, int(max_energies))
+    note = f"thermal average over {energies.size} energies (fixed budget, no error control)"
+    return energies, weights, note
 
 
 def explorer_full(
     params: ExplorerParams,
     *,
     report: Callable[[float, str], None] | None = None,
-    max_energies: int = 9,
+    max_energies: int = 1000,
     n_probes: int = N_PROBES,
+    tol: float = 1e-4,
 ) -> FullResult:
     """Full tight-binding G(B) for the explorer settings.
 
@@ -155,7 +145,10 @@ def explorer_full(
     report : callable, optional
         ``report(fraction, text)`` progress callback (may raise to cancel).
     max_energies : int
-        Energies of the thermal average at T > 0 (one sparse factorization each).
+        Budget of energies of the thermal average at T > 0 (one sparse factorization each).
+    tol : float
+        Error goal of the thermal average in e^2/h (thermal policy,
+        :mod:`ringkit.thermal_policy`); the estimate is reported in the notes.
     n_probes : int
         Dephasing probes spread along both arms when ``phase_coherence_length`` is set
         (:func:`ringkit.transport.probes.attach_probes`, coupling mapped from L_phi at E_F).
@@ -180,7 +173,7 @@ def explorer_full(
     # in a background thread a warning turned into an error would silently kill the job.
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
-        result = _compute(params, say, max_energies, n_probes)
+        result = _compute(params, say, max_energies, n_probes, tol)
     if caught:
         extra = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
         result = replace(result, notes=result.notes + extra)
@@ -188,7 +181,7 @@ def explorer_full(
     return result
 
 
-def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int) -> FullResult:
+def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int, tol: float):
     from ringkit.tightbinding import build_ring
 
     t0 = time.perf_counter()
@@ -198,8 +191,7 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int) -> F
     area = ring.loop_area
     period = PHI0 / area
     field = preview_field_grid(params, period)
-    energies, weights, note = thermal_grid(ring, params.temperature, max_energies)
-    notes = [note]
+    notes: list[str] = []
     probes = None
     if params.phase_coherence_length is not None:
         from ringkit.transport.probes import attach_probes
@@ -212,19 +204,21 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int) -> F
         )  # fmt: skip
         notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
     say(0.1, f"{ring.n_sites} sites; factorizing")
-    total = np.zeros_like(field)
-    n_steps = energies.size * math.ceil(field.size / _CHUNK)
-    step = 0
-    for i_e, (e_j, w) in enumerate(zip(energies, weights, strict=True)):
+    count = [0]
+
+    def sweep_at(e_j: float) -> np.ndarray:
         e_t = ring.to_lattice_energy(e_j)
         sweeper, values = _sweeper(params, ring, e_t, probes, field, area)
+        out = np.empty_like(field)
         for start in range(0, field.size, _CHUNK):
             sl = slice(start, start + _CHUNK)
-            total[sl] += w * _two_terminal(sweeper, values[sl], probes)
-            step += 1
-            done = min(start + _CHUNK, field.size)
-            text = f"field {done}/{field.size}, energy {i_e + 1}/{energies.size}"
-            say(0.1 + 0.88 * step / n_steps, text)
+            out[sl] = _two_terminal(sweeper, values[sl], probes)
+        count[0] += 1
+        say(0.1 + 0.88 * count[0] / (count[0] + 20.0), f"energy {count[0]}")
+        return out
+
+    total, energies, note = _thermal(ring, params.temperature, sweep_at, tol, max_energies)
+    notes.insert(0, note)
     g = 2.0 * total
     spec = oscillation_spectrum(field, g, window="hann", pad=4)
     geo = device.geometry
@@ -252,6 +246,25 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int) -> F
         notes=tuple(notes),
     )
     return result
+
+
+def _thermal(ring, temperature: float, sweep_at, tol: float, max_energies: int):
+    """Thermal average of ``sweep_at`` (spinless G over the field) by the thermal policy."""
+    if temperature == 0.0:
+        e_f = ring.fermi_energy
+        return sweep_at(e_f), np.array([e_f]), "T = 0: single energy"
+    from ringkit.thermal_policy import energy_average
+    from ringkit.transport.sweep import transmission_bound
+
+    e_t = ring.fermi_energy_lattice
+    bound = transmission_bound(ring, e_t, temperature, tol, ring.params())
+    avg = energy_average(
+        sweep_at, ring.fermi_energy, K_B * temperature, tol=0.5 * tol, bound=bound,
+        max_energies=max_energies,
+    )  # fmt: skip
+    note = (f"thermal average over {avg.n_energies} energies, estimated error "
+            f"{2 * avg.error:.2g} e^2/h (tol {tol:g})")  # fmt: skip
+    return avg.value, avg.energies, note
 
 
 def _sweeper(params: ExplorerParams, ring, e_t: float, probes, field: np.ndarray, area: float):
