@@ -511,3 +511,28 @@ def test_probe_types_through_the_thermal_policy():
         err = np.abs(np.asarray(res.value) - ref)
         assert res.converged and np.all(np.asarray(res.errors) <= 2e-3), probe_type
         assert np.all(err <= np.asarray(res.errors) + 1e-4), (probe_type, err, res.errors)
+
+
+def test_field_sweep_results_report_the_realised_lphi():
+    # issue 15.1: a result with dephasing states the L_phi it realises (measured, with an
+    # error) or says that the coupling is the unmeasured analytic estimate; the path-length
+    # convention travels with it (ringkit.conventions)
+    from ringkit.device import Material, RingDevice, RingGeometry
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.sweep import fast_field_conductance
+    from ringkit.units import PHI0
+
+    dev = RingDevice(
+        Material.preset("GaAs", temperature=0.3),
+        RingGeometry.from_mean_radius(0.1e-6, 0.03e-6),
+        field_mode="flux_tube",
+    )
+    ring = build_ring(dev, seed=5)
+    flux = np.linspace(0, 2, 17) * PHI0
+    kw = dict(energy=ring.fermi_energy, l_phi=0.25e-6, n_probes=24)
+    res = fast_field_conductance(ring, flux, calibrate_lphi=True, **kw)
+    assert res.info["l_phi_realised_m"] == pytest.approx(0.25e-6, rel=0.031)
+    assert 0 < res.info["l_phi_realised_err_m"] < 0.5e-6
+    assert res.info["lphi_convention"] == LPHI_CONVENTION
+    plain = fast_field_conductance(ring, flux, **kw)
+    assert np.isnan(plain.info["l_phi_realised_m"]) and "not measured" in plain.info["l_phi_status"]

@@ -85,6 +85,7 @@ def fast_field_conductance(
     n_probes: int = 100,
     thermal_tol: float = DEFAULT_TOL,
     thermal_method: str = "adaptive",
+    calibrate_lphi: bool = False,
 ) -> FastSweepResult:
     """Two-terminal conductance over a field sweep with the fast solvers.
 
@@ -108,6 +109,12 @@ def fast_field_conductance(
         Absolute error goal of the thermal average in e^2/h (default 1e-4), in [1e-10, 0.1].
     thermal_method : {"adaptive", "grid"}
         Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
+    calibrate_lphi : bool
+        Measure and adjust the L_phi the probes realise on this device
+        (:func:`ringkit.transport.probe_calibration.calibrate_ring_probes`, about the cost of
+        one 16-energy dephasing sweep). ``info`` then holds ``l_phi_realised_m`` and
+        ``l_phi_realised_err_m``; otherwise they are NaN and ``l_phi_status`` says that the
+        coupling is the analytic estimate (docs/probes.md).
 
     Returns
     -------
@@ -121,15 +128,20 @@ def fast_field_conductance(
     probes = None
     if l_phi is not None and math.isfinite(l_phi):
         check_positive("l_phi", l_phi, "m")
-        probes = attach_probes(
-            ring.fsyst,
-            l_phi=l_phi,
-            energy=e_t,
-            n_probes=int(n_probes),
-            lattice_spacing=ring.lattice_spacing,
-            params=params,
-            zero_field={name: 0.0},
-        )
+        if calibrate_lphi:
+            from ringkit.transport.probe_calibration import calibrate_ring_probes
+
+            probes = calibrate_ring_probes(ring, l_phi, energy, gate=gate, n_probes=int(n_probes))
+        else:
+            probes = attach_probes(
+                ring.fsyst,
+                l_phi=l_phi,
+                energy=e_t,
+                n_probes=int(n_probes),
+                lattice_spacing=ring.lattice_spacing,
+                params=params,
+                zero_field={name: 0.0},
+            )
     if name == "flux":
         sweeper = FluxTubeSweeper(ring.fsyst, energy=e_t, params=params, probes=probes)
         solver = "low-rank flux-tube update (ringkit.transport.lowrank)"
@@ -174,8 +186,29 @@ def fast_field_conductance(
         "n_probes": 0 if probes is None else len(np.atleast_1d(probes.sites)),
         "probe_eta": 0.0 if probes is None else float(np.mean(probes.eta)),
         "n_fallbacks": fallbacks,
+        **_realised_lphi_info(probes),
     }
     return FastSweepResult(2.0 * g_spin, info)
+
+
+def _realised_lphi_info(probes) -> dict:
+    """The L_phi the probes realise (m, NaN if not measured) and the path-length convention."""
+    from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
+
+    if probes is None:
+        real, err, status = math.inf, 0.0, "no dephasing"
+    elif probes.info.get("l_phi_realised") is None:
+        real, err = math.nan, math.nan
+        status = str(probes.info.get("l_phi_status", "analytic estimate, not measured"))
+    else:
+        real, err = float(probes.info["l_phi_realised"]), float(probes.info["l_phi_realised_err"])
+        status = "measured on this device (h/e damping, docs/probes.md)"
+    return {
+        "l_phi_realised_m": real,
+        "l_phi_realised_err_m": err,
+        "l_phi_status": status,
+        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+    }
 
 
 def transmission_bound(ring, e_t: float, temperature: float, tol: float, params) -> float:
