@@ -26,9 +26,11 @@ transmissions come from the fast engines: :class:`ringkit.transport.fastsweep.Fi
 probes (:func:`ringkit.transport.probes.attach_probes`) are floating terminals; their
 voltages are eliminated at each energy (Kron reduction), which leaves a conductance matrix
 between the real leads that still conserves current. At finite temperature the reduced matrix
-is averaged with the weights of -df/dE (the grid of :func:`ringkit.transport.thermal.
-thermal_weights` with the ring's ballistic correlation energy, as for two terminals);
-resistances follow from the averaged matrix, as measured currents do.
+is averaged over -df/dE with the one thermal policy (:func:`ringkit.thermal_policy.
+energy_average`, adaptive and error-controlled on every matrix element, as ``field_sweep``
+does for two terminals); one set of energies and weights serves all elements, so the average
+still conserves current and obeys reciprocity. Resistances follow from the averaged matrix,
+as measured currents do.
 """
 
 from __future__ import annotations
@@ -42,14 +44,14 @@ import xarray as xr
 
 from ringkit._validation import ParameterError, check_positive
 from ringkit.contacts import Contacts, resistance_from_conductance
+from ringkit.thermal_policy import DEFAULT_TOL, energy_average
 from ringkit.tightbinding.builder import TightBindingRing
 from ringkit.transport.dataset import COORD_META, ring_attrs
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes
-from ringkit.transport.sweep import ring_correlation_energy
-from ringkit.transport.thermal import thermal_weights
-from ringkit.units import E2H
+from ringkit.transport.sweep import transmission_bound
+from ringkit.units import E2H, K_B
 
 __all__ = [
     "conductance_matrices",
@@ -119,6 +121,8 @@ def conductance_matrices(
     temperature: float = 0.0,
     l_phi: float | None = None,
     n_probes: int = 100,
+    thermal_tol: float = DEFAULT_TOL,
+    thermal_method: str = "adaptive",
 ) -> tuple[np.ndarray, dict]:
     """Conductance matrices between the real leads over a field sweep.
 
@@ -138,13 +142,19 @@ def conductance_matrices(
         Phase-coherence length in m (floating dephasing probes along the arms).
     n_probes : int
         Number of probes when ``l_phi`` is finite.
+    thermal_tol : float
+        Absolute error goal of every thermally averaged element in e^2/h (default 1e-4).
+    thermal_method : {"adaptive", "grid"}
+        Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
 
     Returns
     -------
     G : ndarray (n_fields, N, N)
         e^2/h, spin-degenerate; rows and columns sum to zero.
     info : dict
-        ``solver``, ``n_energies``, ``n_probes``, ``probe_eta``, ``temperature_K``, ``l_phi_m``.
+        ``solver``, ``n_energies``, ``thermal_error_estimate`` (e^2/h, largest element),
+        ``thermal_tol``, ``thermal_method``, ``n_probes``, ``probe_eta``, ``temperature_K``,
+        ``l_phi_m``, ``energy_J``.
     """
     ring = _check_ring(ring)
     temperature = check_positive("temperature", temperature, "K", allow_zero=True)
@@ -173,19 +183,29 @@ def conductance_matrices(
         )
     sweeper = _sweeper(ring, e_t, params, probes)
     n_leads = ring.n_leads
-    grid = thermal_weights(
-        e_t,
-        temperature,
-        energy_unit=ring.hopping,
-        correlation_energy=ring_correlation_energy(ring) if temperature > 0 else None,
-    )
-    total = np.zeros((values.size, n_leads, n_leads))
-    for e, w in zip(grid.energies, grid.weights, strict=True):
+    shape = (values.size, n_leads, n_leads)
+
+    def matrices(e: float) -> np.ndarray:
         sw = sweeper if e == e_t else sweeper.at_energy(float(e))
-        total += w * reduce_to_leads(sw.conductance_matrix(values), n_leads)
+        return reduce_to_leads(sw.conductance_matrix(values), n_leads).ravel()
+
+    kt = K_B * temperature / ring.hopping
+    # per spin: G = 2 C, so the tolerance of C is half the tolerance of G
+    res = energy_average(
+        matrices,
+        e_t,
+        kt,
+        tol=0.5 * thermal_tol,
+        method=thermal_method,
+        bound=transmission_bound(ring, e_t, temperature, thermal_tol, params) if kt else 1.0,
+    )
+    total = np.asarray(res.value).reshape(shape)
     info = {
         "solver": type(sweeper).__name__,
-        "n_energies": int(grid.n_energies),
+        "n_energies": int(res.n_energies),
+        "thermal_error_estimate": 2.0 * float(np.max(res.errors, initial=0.0)),
+        "thermal_tol": float(thermal_tol),
+        "thermal_method": thermal_method if kt else "single energy (T = 0)",
         "temperature_K": temperature,
         "l_phi_m": float("inf") if probes is None else float(l_phi),
         "n_probes": 0 if probes is None else int(np.size(probes.sites)),
