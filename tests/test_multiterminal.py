@@ -25,7 +25,7 @@ import kwant
 import numpy as np
 import pytest
 from scipy import constants
-from test_reference_fisher_lee import _cut_phase_sign, _strip_self_energy
+from test_reference_fisher_lee import _ring2d_matrix, _strip_self_energy
 
 from ringkit._validation import ParameterError
 from ringkit.analysis.network_multi import (
@@ -173,23 +173,9 @@ def test_four_lead_gauge_agrees_with_kwant_magnetic_gauge():
 
 # ------------------------------------------------------------------------------- dense FL
 def _dense_h(ring, b_field=0.0, flux=0.0, cut_angle=None):
-    """Dense H (units of t) from site positions only (Landau gauge / cut, as documented)."""
-    xy = np.rint(ring.positions / A).astype(int)
-    index = {tuple(p): k for k, p in enumerate(xy)}
-    n = len(xy)
-    h = np.zeros((n, n), complex)
-    np.fill_diagonal(h, 4.0 + ring.onsite_potential / ring.hopping)
-    for (x, y), j in index.items():
-        for dx, dy in ((1, 0), (0, 1)):
-            i = index.get((x + dx, y + dy))
-            if i is None:
-                continue
-            ri, rj = xy[i].astype(float), xy[j].astype(float)
-            theta = 2 * math.pi * b_field * A**2 * 0.5 * (ri[1] + rj[1]) * (ri[0] - rj[0]) / PHI0
-            if cut_angle is not None:
-                theta += -2 * math.pi * flux / PHI0 * _cut_phase_sign(ri, rj, cut_angle)
-            h[i, j] = -np.exp(1j * theta)
-            h[j, i] = np.conj(h[i, j])
+    """Dense H (units of t) from site positions only (Landau gauge / cut, as documented;
+    tests/test_reference_fisher_lee.py) and the interface runs of every lead."""
+    h, xy = _ring2d_matrix(ring, b_field=b_field, flux=flux, cut_angle=cut_angle)
     # interfaces: contiguous runs of the outermost columns, ordered like the lead list
     runs = []
     for edge in (xy[:, 0].min(), xy[:, 0].max()):

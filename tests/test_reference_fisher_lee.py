@@ -169,6 +169,19 @@ def _cut_phase_sign(ri, rj, cut_angle):
 
 def _ring2d_hamiltonian(ring, b_field=0.0, flux=0.0, cut_angle=None, gate_t=0.0):
     """Dense H (units of t) and the two lead-interface columns, from positions only."""
+    h, xy = _ring2d_matrix(ring, b_field, flux, cut_angle, gate_t)
+    cols = []
+    for edge in (xy[:, 0].min(), xy[:, 0].max()):
+        col = np.nonzero(xy[:, 0] == edge)[0]
+        col = col[np.argsort(xy[col, 1])]
+        assert np.all(np.diff(xy[col, 1]) == 1)  # one contiguous interface column
+        cols.append(col)
+    return h, cols
+
+
+def _ring2d_matrix(ring, b_field=0.0, flux=0.0, cut_angle=None, gate_t=0.0):
+    """Dense H (units of t) and the integer site coordinates, from positions only (also used
+    by tests/test_multiterminal.py)."""
     a = ring.lattice_spacing
     xy = np.rint(ring.positions / a).astype(int)
     n = len(xy)
@@ -187,13 +200,7 @@ def _ring2d_hamiltonian(ring, b_field=0.0, flux=0.0, cut_angle=None, gate_t=0.0)
                 theta += -2 * math.pi * flux / PHI0 * _cut_phase_sign(ri, rj, cut_angle)
             h[i, j] = -np.exp(1j * theta)
             h[j, i] = np.conj(h[i, j])
-    cols = []
-    for edge in (xy[:, 0].min(), xy[:, 0].max()):
-        col = np.nonzero(xy[:, 0] == edge)[0]
-        col = col[np.argsort(xy[col, 1])]
-        assert np.all(np.diff(xy[col, 1]) == 1)  # one contiguous interface column
-        cols.append(col)
-    return h, cols
+    return h, xy
 
 
 def _fisher_lee(h, cols, energy_t):
