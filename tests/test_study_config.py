@@ -505,3 +505,54 @@ def test_lattice_modes_equal_kwant_lead_channels(n_across, energy):
     lead[lat.neighbors()] = -1.0
     prop, _ = lead.finalized().modes(energy=energy)
     assert lattice_modes(energy, n_across) == len(prop.velocities) // 2
+
+
+@pytest.mark.parametrize(
+    ("active", "alternative"),
+    [
+        (("radius", "width"), ("r_in", "r_out")),
+        (("density",), ("fermi_energy",)),
+        (("mean_free_path",), ("mobility",)),
+        (("mean_free_path",), ("disorder_strength",)),
+        ((), ("lead_width",)),
+        ((), ("spacing",)),
+    ],
+)
+def test_example_alternatives_agree_with_the_active_values(active, alternative):
+    """Uncommenting an alternative of ``ringkit example-config`` (instead of its active
+    partner) gives the same device, to the 4 digits printed (issue 16, point 8)."""
+    import re
+    import warnings
+
+    from ringkit.study.setup import make_device
+
+    text = example_config_text()
+    for name in active:
+        text, n = re.subn(rf"^{name} = ", f"# {name} = ", text, flags=re.M)
+        assert n == 1, name
+    for name in alternative:
+        text, n = re.subn(rf"^# {name} = ", f"{name} = ", text, count=1, flags=re.M)
+        assert n == 1, name
+
+    def device_numbers(c):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            d = make_device(c.physics(), None, 0.0)
+        m = d.material
+        out = [d.geometry.r_in, d.geometry.r_out, float(d.geometry.lead_width), d.spacing]
+        out += [m.fermi_energy_J, m.sheet_density]
+        if "disorder_strength" not in alternative:
+            out.append(m.elastic_mean_free_path)
+        return np.array(out)
+
+    base = parse_config(example_config_text())
+    np.testing.assert_allclose(device_numbers(parse_config(text)), device_numbers(base), rtol=1e-3)
+    if "disorder_strength" in alternative:  # W reproduces the Born mean free path on the lattice
+        from ringkit.tightbinding.disorder import born_mean_free_path
+
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            d = make_device(parse_config(text).physics(), None, 0.0)
+        w_t = d.material.disorder_strength / d.hopping
+        l_born = born_mean_free_path(w_t, d.material.fermi_energy_J / d.hopping) * d.spacing
+        assert l_born == pytest.approx(base["material"]["mean_free_path"], rel=2e-3)

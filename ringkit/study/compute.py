@@ -4,9 +4,9 @@ A unit (one disorder realization, Fermi energy, gate potential and dephasing len
 ring with :func:`ringkit.tightbinding.build_ring` and sweeps the field with the engine's
 :class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
 :class:`~ringkit.transport.lowrank.FluxTubeSweeper`). Temperatures are thermal averages on the
-energy grid of :func:`ringkit.study.setup.thermal_grid`; energies shared by several
-temperatures are computed once. The result of a unit does not depend on which process computes
-it or on what that process computed before (tested bit for bit).
+energies of the thermal policy (:func:`ringkit.study.setup.thermal_average`); energies shared
+by several temperatures are computed once. The result of a unit does not depend on which
+process computes it or on what that process computed before (tested bit for bit).
 
 What is reused (per worker process, :class:`_RingState`, at most two lattices kept):
 
@@ -56,7 +56,7 @@ import numpy as np
 
 from ringkit.study.checkpoint import UnitResult
 from ringkit.study.plan import StudyPlan, WorkUnit
-from ringkit.study.setup import make_device, thermal_grid
+from ringkit.study.setup import make_device, thermal_average
 
 __all__ = [
     "UnitTask",
@@ -276,7 +276,7 @@ def compute_unit(task: UnitTask) -> UnitResult:
     """Compute ``G[temperature, field]`` (e^2/h, spin-degenerate) of one work unit.
 
     Every temperature's thermal average uses the energies of
-    :func:`ringkit.study.setup.thermal_grid`; energies shared between temperatures are
+    :func:`ringkit.study.setup.thermal_average`; energies shared between temperatures are
     computed once. Finite dephasing lengths add floating voltage probes whose voltages are
     eliminated (Kron reduction of the conductance matrix).
     """
@@ -285,27 +285,43 @@ def compute_unit(task: UnitTask) -> UnitResult:
 
 
 def _compute(task: UnitTask) -> UnitResult:
+    import warnings
+
     t0 = time.perf_counter()
     state = state_for(task)
     ring = state.ring
     engine = UnitEngine(state, task)
-    grids = [thermal_grid(ring.device, t, task.physics["thermal"]) for t in task.temperatures]
     cache: dict[float, np.ndarray] = {}
-    for grid in grids:
-        for e_j in grid.energies:
-            if float(e_j) not in cache:
-                cache[float(e_j)] = engine.conductance(ring.to_lattice_energy(float(e_j)))
+
+    def g_at(e_joule: float) -> np.ndarray:
+        key = float(e_joule)
+        if key not in cache:
+            cache[key] = engine.conductance(ring.to_lattice_energy(key))
+        return cache[key]
+
     out = np.empty((len(task.temperatures), engine.field.size))
-    for i, grid in enumerate(grids):
-        out[i] = sum(w * cache[float(e)] for e, w in zip(grid.energies, grid.weights, strict=True))
-    info: dict[str, Any] = {"n_sites": int(ring.n_sites), "n_energies_total": len(cache)}
+    n_energies, errors = [], []
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        for i, temp in enumerate(task.temperatures):
+            avg = thermal_average(ring, temp, task.physics["thermal"], g_at)
+            out[i] = avg.value
+            n_energies.append(int(avg.n_energies))
+            errors.append(float(avg.error))
+    info: dict[str, Any] = {
+        "n_sites": int(ring.n_sites),
+        "n_energies_total": len(cache),
+        "thermal_error_e2h": errors,
+    }
+    if caught:
+        info["warnings"] = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
     if engine.probes is not None:
         info["n_probes"] = int(engine.probes.n)
         info["probe_eta_t"] = float(np.mean(engine.probes.eta))
     return UnitResult(
         uid=task.unit.uid,
         conductance=out,
-        n_energies=tuple(g.n_energies for g in grids),
+        n_energies=tuple(n_energies),
         elapsed=time.perf_counter() - t0,
         info=info,
     )

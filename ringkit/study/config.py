@@ -36,6 +36,7 @@ from types import MappingProxyType
 from typing import Any
 
 from ringkit._validation import ParameterError, check_range
+from ringkit.study._written import override_comment, written_lines, written_overrides
 from ringkit.study.quantities import DIMENSIONS, format_quantity, parse_quantity
 from ringkit.study.schema import PHYSICS_SECTIONS, REQUIRED, SCHEMA, Key
 
@@ -145,12 +146,12 @@ class StudyConfig:
         raw = _raw_from_config(self)
         _apply_overrides(raw, overrides)
         new = _validate(raw, self.source)
-        written = {**self.written, **_written_overrides(overrides)}
+        written = {**self.written, **written_overrides(overrides)}
         return dataclasses.replace(
             new,
             _given=self._given | frozenset(overrides),
             written=written,
-            text=self.text + _override_comment(overrides),
+            text=self.text + override_comment(overrides),
         )
 
 
@@ -230,73 +231,12 @@ def parse_config(
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise ConfigError(f"{source}: invalid TOML: {err}") from None
-    written = _written_lines(text)
+    written = written_lines(text)
     if overrides:
         _apply_overrides(raw, overrides)
-        written.update(_written_overrides(overrides))
+        written.update(written_overrides(overrides))
     cfg = _validate(raw, source)
-    return dataclasses.replace(cfg, written=written, text=text + _override_comment(overrides))
-
-
-def _written_lines(text: str) -> dict[str, str]:
-    """``{"section.key": literal as written}`` for the one-line ``key = value`` entries of ``text``.
-
-    Multi-line values (long strings) are left out; a missing entry only means that the report
-    shows the value in its own units.
-    """
-    out: dict[str, str] = {}
-    section = ""
-    for line in text.splitlines():
-        stripped = line.strip()
-        if stripped.startswith("[") and stripped.endswith("]") and "=" not in stripped:
-            section = stripped.strip("[]").strip()
-            continue
-        name, sep, value = stripped.partition("=")
-        name, value = name.strip(), _strip_comment(value.strip())
-        if not sep or not section or not name or name.startswith("#"):
-            continue
-        try:
-            tomllib.loads(f"v = {value}")
-        except tomllib.TOMLDecodeError:
-            continue
-        out[f"{section}.{name}"] = value
-    return out
-
-
-def _strip_comment(value: str) -> str:
-    """``'"5 nm"  # note'`` -> ``'"5 nm"'`` (a ``#`` outside quotes starts a comment)."""
-    quote = ""
-    for i, ch in enumerate(value):
-        if quote:
-            if ch == quote:
-                quote = ""
-        elif ch in "\"'":
-            quote = ch
-        elif ch == "#":
-            return value[:i].rstrip()
-    return value
-
-
-def _written_overrides(overrides: Mapping[str, Any]) -> dict[str, str]:
-    return {k: _literal(v) for k, v in overrides.items()}
-
-
-def _override_comment(overrides: Mapping[str, Any] | None) -> str:
-    if not overrides:
-        return ""
-    lines = ["", "# overrides given on the command line (--set):"]
-    lines += [f"#   {k} = {_literal(v)}" for k, v in overrides.items()]
-    return "\n".join(lines) + "\n"
-
-
-def _literal(value: Any) -> str:
-    if isinstance(value, str):
-        return json.dumps(value)
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, list | tuple):
-        return "[" + ", ".join(_literal(v) for v in value) + "]"
-    return repr(value)
+    return dataclasses.replace(cfg, written=written, text=text + override_comment(overrides))
 
 
 def load_config(path: str | Path, overrides: Mapping[str, Any] | None = None) -> StudyConfig:
@@ -346,6 +286,8 @@ def _validate(raw: Mapping[str, Any], source: str) -> StudyConfig:
         if not isinstance(content, dict):
             raise ConfigError(f"{source}: '{sec}' must be a section [{sec}], not a value")
         for key in content:
+            if f"{sec}.{key}" in _RETIRED:
+                raise ConfigError(f"{source}: [{sec}] {key}: {_RETIRED[f'{sec}.{key}']}")
             if key not in SCHEMA[sec][1]:
                 hint = _suggest(key, all_keys[sec])
                 if not hint:
@@ -373,6 +315,14 @@ def _validate(raw: Mapping[str, Any], source: str) -> StudyConfig:
     given = frozenset(f"{s}.{k}" for s, c in raw.items() for k in c)
     return StudyConfig(sections=frozen, source=source, _given=given)
 
+
+#: Keys of earlier versions, with what replaced them.
+_RETIRED = {
+    "thermal.points_per_correlation": "no longer used: the thermal average is now "
+    "error-controlled; give its accuracy as [thermal] tol (e^2/h, default 1e-4)",
+    "thermal.tail_tol": "no longer used: the thermal average is now error-controlled; give "
+    "its accuracy as [thermal] tol (e^2/h, default 1e-4)",
+}
 
 _TYPE_WORDS = {"str": "a string", "int": "an integer", "float": "a number", "bool": "true or false"}
 

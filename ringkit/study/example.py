@@ -2,8 +2,12 @@
 
 Generated from the schema (:mod:`ringkit.study.schema`), so every section and key is listed
 with its help text, units and allowed values; the active values are those of the default study
-(``ringkit demo``), keys without a value appear commented out with an example. The text is
-itself a valid study file (tested).
+(``ringkit demo``), written as it writes them. Keys it does not set appear commented out with
+the value the active ones imply for the same device (radius/width for r_in/r_out, the density
+for the Fermi energy, the mobility and Anderson strength for the mean free path, the automatic
+lattice spacing, ...), or with an example where nothing is implied. The text is itself a valid
+study file, and uncommenting an alternative (instead of its active partner) gives the same
+device (tested).
 
 API
 ---
@@ -35,11 +39,14 @@ def example_config_text() -> str:
     with an example value. The text validates with :func:`parse_config` (tested).
     """
     cfg = parse_config(default_study_text(), source="default_study.toml")
+    derived = _alternatives(cfg)
     out = [
         "# ringkit study file -- start from this and run:  ringkit study FILE.toml --out DIR",
         '# Dimensional values: "<number> <unit>" (e.g. "250 nm", "-20 mT", "1.5 K", "10 meV");',
-        "# a bare number is read in SI units (m, T, K, J). Lists may hold one value or several;",
-        "# every combination of the [sweep] lists and every disorder realization is computed.",
+        "# a number without a unit is refused (only 0 and inf need none). Lists may hold one",
+        "# value or several; every combination of the [sweep] lists and every disorder",
+        "# realization is computed. Commented-out keys are alternatives; their values are",
+        "# those that the active values imply for this device.",
         "",
     ]
     for sec, (doc, keys) in SCHEMA.items():
@@ -47,14 +54,68 @@ def example_config_text() -> str:
         out.append(f"[{sec}]")
         for name, key in keys.items():
             out.append(f"# {key.doc}{_range_text(key)}")
+            dotted = f"{sec}.{name}"
             value = cfg.sections[sec][name]
-            given = f"{sec}.{name}" in cfg._given
-            if value is not None and (given or key.default is not None):
+            if dotted in cfg.written:  # as the default study writes it
+                out.append(f"{name} = {_as_written(key, cfg, dotted)}")
+            elif value is not None and key.default is not None and dotted not in derived:
                 out.append(f"{name} = {_pretty_literal(key, value, cfg.sections)}")
             else:
-                out.append(f"# {name} = {key.example}")
+                out.append(f"# {name} = {derived.get(dotted, key.example)}")
         out.append("")
     return "\n".join(out)
+
+
+def _as_written(key: Key, cfg, dotted: str) -> str:
+    text = cfg.written[dotted]
+    if key.kind == "str" and len(text) > 70:
+        sec, name = dotted.split(".")
+        return _multiline_string(cfg.sections[sec][name])
+    return text
+
+
+def _alternatives(cfg) -> dict[str, str]:
+    """Commented-out alternatives that agree with the active values of ``cfg``.
+
+    r_in/r_out <-> radius/width, the lead width (default: the arm width), the automatic
+    lattice spacing, fermi_energy <-> density, mean_free_path <-> mobility, and the Anderson
+    strength W whose Born mean free path on the lattice is the active one.
+    """
+    import warnings
+
+    from ringkit.study.setup import make_device
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        device = make_device(cfg.physics(), None, 0.0)
+    mat, geo = device.material, device.geometry
+    q = _quoted
+    out = {
+        "geometry.r_in": q(geo.r_in, "length"),
+        "geometry.r_out": q(geo.r_out, "length"),
+        "geometry.radius": q(0.5 * (geo.r_in + geo.r_out), "length"),
+        "geometry.width": q(geo.r_out - geo.r_in, "length"),
+        "geometry.lead_width": q(float(geo.lead_width), "length"),
+        "lattice.spacing": q(device.spacing, "length"),
+        "lattice.max_sites": str(device.max_sites),
+        "material.effective_mass": f"{mat.effective_mass:.4g}",
+        "material.fermi_energy": q(mat.fermi_energy_J, "energy"),
+        "material.density": q(mat.sheet_density, "density"),
+        "sweep.fermi_energy": "[" + q(mat.fermi_energy_J, "energy") + "]",
+    }
+    if mat.elastic_mean_free_path is not None:
+        from ringkit.tightbinding.disorder import strength_for_mean_free_path
+
+        l_el = mat.elastic_mean_free_path
+        out["material.mean_free_path"] = q(l_el, "length")
+        out["material.mobility"] = q(float(mat.transport_mobility), "mobility")
+        w = strength_for_mean_free_path(l_el / device.spacing, mat.fermi_energy_J / device.hopping)
+        out["material.disorder_strength"] = q(w * device.hopping, "energy")
+    return out
+
+
+def _quoted(value: float, dim: str) -> str:
+    return json.dumps(format_quantity(value, dim, 4))
 
 
 def _wrap(text: str, width: int = 94) -> list[str]:

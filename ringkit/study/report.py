@@ -104,12 +104,15 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
     n_t, n_b = len(plan.temperatures), len(plan.field)
     g = np.full((n_r, n_e, n_g, n_t, n_d, n_b), np.nan)
     n_energies = np.zeros((n_r, n_e, n_g, n_t, n_d), dtype=np.int64)
+    t_error = np.full((n_r, n_e, n_g, n_t, n_d), np.nan)
     elapsed = np.zeros((n_r, n_e, n_g, n_d))
     for unit in plan.units:
         res = results[unit.uid]
         r, e, gi, d = unit.index
         g[r, e, gi, :, d, :] = res.conductance
         n_energies[r, e, gi, :, d] = res.n_energies
+        if "thermal_error_e2h" in res.info:
+            t_error[r, e, gi, :, d] = res.info["thermal_error_e2h"]
         elapsed[r, e, gi, d] = res.elapsed
     fname = plan.field_name
     energies = [setup.fermi_energy if e is None else e for e in plan.fermi_energies]
@@ -169,6 +172,15 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
                 dims,
                 n_energies,
                 {"long_name": "energies in the thermal average"},
+            ),
+            "thermal_error": (
+                dims,
+                t_error,
+                {
+                    "units": "e^2/h",
+                    "long_name": "estimated error of the thermal average (largest over the "
+                    "field points; 0 at T = 0)",
+                },
             ),
             "compute_seconds": (
                 ("realization", "fermi_energy", "gate_potential", "dephasing_length"),

@@ -333,25 +333,25 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
         ),
     ),
     "thermal": (
-        "Energy grid of the thermal average G(T) = integral G(E) (-df/dE) dE (uniform grid "
-        "around E_F, spacing min(k_B T, E_c / points_per_correlation) with the correlation "
-        "energy E_c of the arms, half-width k_B T ln(2/tail_tol)); see ringkit.transport.thermal.",
+        "Thermal average G(T) = integral G(E) (-df/dE) dE by the error-controlled policy of "
+        "ringkit.thermal_policy: adaptive Gauss-Kronrod refinement of the Fermi window until "
+        "the estimated error of G at every field point is below tol (the number of energies "
+        "and the error estimate are stored with the results).",
         _keys(
             Key(
-                "points_per_correlation",
+                "tol",
                 "float",
-                "Energy points per correlation energy E_c.",
-                default=4.0,
-                low=0.5,
-                high=100.0,
+                "Absolute error goal of every thermal average, in e^2/h.",
+                default=1e-4,
+                low=1e-10,
+                high=0.1,
             ),
             Key(
-                "tail_tol",
-                "float",
-                "Weight of the Fermi window left outside the grid.",
-                default=1e-6,
-                low=1e-12,
-                high=0.1,
+                "method",
+                "choice",
+                'Quadrature: "adaptive" (error-controlled) or "grid" (dense reference).',
+                default="adaptive",
+                choices=("adaptive", "grid"),
             ),
         ),
     ),

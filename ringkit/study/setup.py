@@ -349,7 +349,11 @@ def check_setup(plan: StudyPlan) -> StudySetup:
 
 
 def _check_window(ring, grid, temperature: float) -> None:
-    """The thermal window must lie inside the band and every energy must have open channels."""
+    """The thermal window must lie inside the band, and the leads must conduct at E_F.
+
+    Energies of the window where a lead has no open channel contribute G = 0 (the engine's
+    convention); no open channel at the Fermi energy itself would make G vanish altogether.
+    """
     lo, hi = float(grid.energies.min()), float(grid.energies.max())
     context = f"sweep.temperature = {format_quantity(temperature, 'temperature')}"
     if not (lo > 0 and hi < ring.band_top):
@@ -361,7 +365,7 @@ def _check_window(ring, grid, temperature: float) -> None:
             f"{format_quantity(ring.band_top, 'energy', 4)}): lower the temperature or "
             "raise the Fermi energy",
         )
-    _check_open_channels(ring, lo, context)
+    _check_open_channels(ring, float(grid.mu), context)
 
 
 def _check_open_channels(ring, energy: float, context: str) -> None:
