@@ -14,8 +14,10 @@ at once, then the exact flux-tube lattice G(Phi) and spectrum
 (:class:`ringkit.view.panels.explorer_live.LiveLattice`) are computed and drawn. Every change
 uses a new value (no cache hit from an earlier value). Printed per control kind: the median
 time until the first frame, the median and largest time until the lattice result is drawn
-(what the user waits for), the lattice part alone with its split (build, probes, model,
-factorize, sweep) and how often the lattice was rebuilt.
+(what the user waits for), the median CPU time of the whole update (this process, BLAS limited
+to one thread: about what the update takes on an idle core, whatever else runs on a shared
+machine), the lattice part alone with its split (build, probes, model, factorize, sweep) and
+how often the lattice was rebuilt.
 
 Rings (circular, GaAs preset, automatic spacing a = 0.5/kF = 3.64 nm): ``default``: the
 explorer's default device (mean radius 0.5 um, 100 nm arms, L_phi = 2 um: 40 floating
@@ -92,9 +94,11 @@ def run(size: str, scenario: str, repeats: int) -> list[dict]:
     n_sites = ex.live.n_sites
     rows = []
     for kind in _CONTROL:
-        first, lat, comp, parts, rebuilt = [], [], [], [], 0
+        first, lat, comp, parts, cpu, rebuilt = [], [], [], [], [], 0
         for value in _changes(kind, repeats, params):
+            c0 = time.process_time()
             ex.controls[_CONTROL[kind]].value = value
+            cpu.append(time.process_time() - c0)
             if ex.live is None:
                 raise RuntimeError(ex.message.value or ex.live_note)
             first.append(ex.latency)
@@ -115,6 +119,7 @@ def run(size: str, scenario: str, repeats: int) -> list[dict]:
                 first=statistics.median(first),
                 median=statistics.median(lat),
                 worst=max(lat),
+                cpu=statistics.median(cpu),
                 lattice=statistics.median(comp),
                 split=split,
                 rebuilt=rebuilt,
@@ -176,9 +181,9 @@ def main(argv: list[str] | None = None) -> None:
     out += [
         "",
         "| ring | scenario | control | first frame median, ms | lattice drawn median, ms "
-        "| slowest, ms | lattice part, ms | build / probes / model / factorize / sweep, ms "
-        "| rebuilt |",
-        "|---|---|---|---|---|---|---|---|---|",
+        "| slowest, ms | CPU time median, ms | lattice part, ms "
+        "| build / probes / model / factorize / sweep, ms | rebuilt |",
+        "|---|---|---|---|---|---|---|---|---|---|",
     ]
     for row in rows:
         s = row["split"]
@@ -187,15 +192,21 @@ def main(argv: list[str] | None = None) -> None:
         out.append(
             f"| {row['size']} ({row['sites']} sites) | {scen} | {row['kind']} "
             f"| {1e3 * row['first']:.0f} | {1e3 * row['median']:.0f} | {1e3 * row['worst']:.0f} "
-            f"| {1e3 * row['lattice']:.0f} | {split} | {row['rebuilt']}/{row['n']} |"
+            f"| {1e3 * row['cpu']:.0f} | {1e3 * row['lattice']:.0f} | {split} "
+            f"| {row['rebuilt']}/{row['n']} |"
         )
     for scenario, target in (("T0", 1.0), ("T0.3", 2.0)):
         sel = [r for r in rows if r["scenario"] == scenario]
         if sel:
             worst = max(sel, key=lambda r: r["median"])
             ok = "meets" if worst["median"] <= target else "MISSES"
-            out.append(f"\n{scenario}: largest median {1e3 * worst['median']:.0f} ms "
-                       f"({worst['kind']}), {ok} the {target:g} s target")  # fmt: skip
+            out.append(f"\n{scenario}: largest median {1e3 * worst['median']:.0f} ms wall "
+                       f"({worst['kind']}), {ok} the {target:g} s target at this load")  # fmt: skip
+            wc = max(sel, key=lambda r: r["cpu"])
+            ok = "meets" if wc["cpu"] <= target else "MISSES"
+            out.append(f"{scenario}: largest median CPU time {1e3 * wc['cpu']:.0f} ms "
+                       f"({wc['kind']}; the wall time on an idle core, one BLAS thread), {ok} "
+                       f"the {target:g} s target")  # fmt: skip
     out.append(f"\nload average at the end: {os.getloadavg()}")
     text = "\n".join(out) + "\n"
     print(text)

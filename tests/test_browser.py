@@ -54,13 +54,11 @@ def browser_missing() -> str | None:
     """Why the browser test cannot run here (None if it can)."""
     if not Path(CHROMIUM).exists():
         return f"no Chromium at {CHROMIUM} (apt-get install chromium)"
-    try:
-        import playwright.sync_api  # noqa: F401
-    except ImportError:
+    from importlib.util import find_spec
+
+    if find_spec("playwright") is None:
         return "playwright (Python package) is not installed"
-    try:
-        import voila  # noqa: F401
-    except ImportError:
+    if find_spec("voila") is None:
         return "voila is not installed"
     return None
 
