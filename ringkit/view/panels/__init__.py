@@ -1,10 +1,15 @@
 """Jupyter widget panels: each a plain compute module plus a thin ipywidgets shell.
 
+Figures are interactive ipympl canvases inside a Jupyter kernel, sharp fixed-size PNG images
+otherwise (:class:`ringkit.view.panels._base.FigurePane`). docs/panels.md.
+
 Panels (widget shells)
 ----------------------
 DeviceExplorer
-    Device design: quick exact 1D-network preview on every control change, full tight-binding
-    G(B) on demand (background job, progress, cancel), both drawn together.
+    Device design from the sheet density (or E_F) and mobility, with derived E_F, k_F, modes
+    per arm, mean free path, L_T and Thouless energy: the exact single-channel model at once
+    on every change, the exact lattice G(B) (flux tube) swapped in when ready, the full
+    tight-binding G(B) on demand (background job, progress, cancel); save/load study TOML.
 SizeScalingPanel
     Predicted h/e and h/2e amplitudes versus ring radius with simulated ensemble points.
 MeasuredDataPanel
@@ -14,6 +19,8 @@ MeasuredDataPanel
 Compute functions (no widgets; importable without ipywidgets)
 -------------------------------------------------------------
 explorer: ExplorerParams, explorer_preview; explorer_full: explorer_full, FullResult;
+explorer_live: LiveLattice; explorer_derived: derived_quantities; explorer_study: study_toml,
+params_from_study; measured_series: series_lphi;
 scaling: ScalingParams, scaling_curves, simulate_points, calibrated_prefactors;
 measured: LoadOptions, AnalysisOptions, load_trace_file, load_trace_bytes, analyze_trace,
 demo_trace_text.
