@@ -346,6 +346,12 @@ def test_resistance_errors_name_the_parameter():
     assert Contacts.parse("0,2,1,3").reversed() == Contacts((1, 3), (0, 2))
     with pytest.raises(ParameterError):
         resistance_from_conductance(g, "0,1,2,7")
+    ring4 = build_ring(_four_lead_device("flux_tube"), seed=2)
+    with pytest.raises(ParameterError) as err:  # refused before any computation
+        mt.resistance_field_sweep(ring4, [0.0], ["0,1,2,3", "0,1,1,3"])
+    assert err.value.name == "contacts.voltage"
+    one = mt.resistance_field_sweep(ring4, [0.0, 0.3 * PHI0], "0,2,1,3", energy=1.3 * T_HOP)
+    assert one.R_ohm.dims == ("flux", "config") and one.G.dims == ("flux", "i", "j")
     # a physical case: a one-row lead is closed below E = 2t, its contact floats undefined
     mat = Material(0.067, fermi_energy=0.2 * T_HOP)
     geo = RingGeometry.circular(

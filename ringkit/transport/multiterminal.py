@@ -11,6 +11,8 @@ gate_conductance_sweep(ring, gates, fields, **options) -> xarray.Dataset
     ``G`` (gate x field x i x j): the input of the electric AB effect (arm-gate sweeps).
 resistance_sweep(ds, contacts, *, allow_shared=False) -> xarray.Dataset
     R_mn,kl in h/e^2 (``R``) and in ohm (``R_ohm``) for one or several configurations.
+resistance_field_sweep(ring, fields, contacts, *, allow_shared=False, **options)
+    Both steps in one call: ``R``/``R_ohm`` (field x config) and the matrices ``G``.
 ConductanceMatrixTask, ensemble_conductance_matrices(device, fields, seeds, ...)
     Disorder ensembles on any executor (:func:`ringkit.transport.ensemble.run_ensemble`).
 reduce_to_leads(C, n_leads)
@@ -58,6 +60,7 @@ __all__ = [
     "conductance_matrix_sweep",
     "gate_conductance_sweep",
     "resistance_sweep",
+    "resistance_field_sweep",
     "reduce_to_leads",
     "ConductanceMatrixTask",
     "ensemble_conductance_matrices",
@@ -315,6 +318,29 @@ def resistance_sweep(
         coords=coords,
         attrs=attrs,
     )
+
+
+def resistance_field_sweep(
+    ring: TightBindingRing,
+    fields,
+    contacts: Contacts | str | Sequence,
+    *,
+    allow_shared: bool = False,
+    **options,
+) -> xr.Dataset:
+    """R_mn,kl(B) of one or several configurations over a field sweep, in one call.
+
+    ``options`` as for :func:`conductance_matrices`; the result holds ``R`` [h/e^2],
+    ``R_ohm`` [ohm] on (field, config) and the conductance matrices ``G`` (field, i, j).
+    Contacts are checked before anything is computed.
+    """
+    configs = contacts if isinstance(contacts, (list, tuple)) else [contacts]
+    if isinstance(contacts, tuple) and len(contacts) == 4 and not isinstance(contacts[0], str):
+        configs = [contacts]
+    for c in configs:
+        Contacts.parse(c).check(_check_ring(ring).n_leads, allow_shared=allow_shared)
+    ds = conductance_matrix_sweep(ring, fields, **options)
+    return resistance_sweep(ds, configs, allow_shared=allow_shared).assign(G=ds["G"])
 
 
 @dataclass(frozen=True, eq=False)
