@@ -44,6 +44,7 @@ from pathlib import Path
 from typing import Any
 
 from ringkit.cli import UserError
+from ringkit.cli import _analyze_contacts as four_t
 from ringkit.cli._analyze_text import clean_json, series_lines, summary_lines, trace_record
 
 __all__ = ["register", "run", "parse_length"]
@@ -141,6 +142,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="two-terminal R (Ohm) for the linearised four-terminal conversion",
     )
     g.add_argument("--no-split", action="store_true", help="do not split up/down sweeps")
+    four_t.add_arguments(g)
     a = p.add_argument_group("analysis")
     a.add_argument("--r-in", type=parse_length, help="ring inner radius (e.g. 600nm)")
     a.add_argument("--r-out", type=parse_length, help="ring outer radius (e.g. 660nm)")
@@ -362,6 +364,7 @@ def run(args: argparse.Namespace) -> int:
                 "(--force reports the numbers anyway)"
             )
         lphi_series = _series(args, loaded.traces, records) if series else None
+        four = four_t.four_terminal_record(args, loaded, lambda p: _load(args, p, False))
     messages = list(dict.fromkeys(str(w.message) for w in caught))
     for tr, found in zip(loaded.traces, findings, strict=True):
         for f in found:
@@ -393,6 +396,7 @@ def run(args: argparse.Namespace) -> int:
         )
         if lphi_series is not None:
             top["lphi_series"] = lphi_series
+        four_t.merge_record(top, four)
         json.dump(clean_json(top), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
         return 0
@@ -402,6 +406,8 @@ def run(args: argparse.Namespace) -> int:
         print("\n".join(summary_lines(rec)))
     if lphi_series is not None:
         print("\n".join(series_lines(lphi_series)))
+    for line in four_t.four_terminal_lines(four):
+        print(line)
     for m in messages:
         print(f"warning: {m}")
     for f in figures:
