@@ -346,14 +346,18 @@ def plot_ring_sketch(
     gate_arm: str | None = None,
     probes: int = 0,
     scale_bar: bool = True,
+    leads: Sequence[dict] | None = None,
 ) -> Axes:
-    """Outline of an annular ring (radii in m, drawn in nm) with its two leads.
+    """Outline of an annular ring (radii in m, drawn in nm) with its leads.
 
     The upper arm runs counter-clockwise from the right lead (``lead_angles[1]``) to the left
     lead; a gate on ``gate_arm`` ("upper"/"lower") is drawn as a shaded arc and ``probes``
     dephasing probes as red dots on the mean circle. With ``scale_bar`` (default) the axes
     are hidden and a labelled scale bar (1, 2 or 5 x 10^n nm) is drawn instead of x/y axes
-    in nm.
+    in nm. ``leads`` (``RingGeometry.lead_outlines()``: one dict per lead with a ``polygon``
+    in m) draws every lead of a multi-terminal ring as its horizontal strip, numbered by its
+    terminal index (docs/multiterminal.md "Lead layout"); without it the two leads at
+    ``lead_angles`` are drawn as radial strips.
     """
     from matplotlib.patches import Wedge
 
@@ -370,7 +374,15 @@ def plot_ring_sketch(
             ax.add_patch(
                 Wedge((0, 0), ro, t1, t2, width=ro - ri, color=COLORS["he"], alpha=0.5, lw=0)
             )
-        for ang in (a_l, a_r):
+        for lead in leads or ():
+            poly = np.asarray(lead["polygon"], dtype=float) * 1e9
+            ax.fill(poly[:, 0], poly[:, 1], color=COLORS["lead"], alpha=0.6, lw=0,
+                    gid=f"lead-{lead['index']}")  # fmt: skip
+            x_end = poly[:, 0][np.argmax(np.abs(poly[:, 0]))]
+            ax.text(x_end, poly[:, 1].mean(), str(lead["index"]), fontsize=8, va="center",
+                    ha="right" if x_end < 0 else "left",
+                    gid=f"lead-label-{lead['index']}")  # fmt: skip
+        for ang in () if leads else (a_l, a_r):
             u = np.array([math.cos(ang), math.sin(ang)])
             n = np.array([-u[1], u[0]])
             p0, p1 = u * (ri + ro) / 2, u * ro * 1.6
@@ -382,7 +394,7 @@ def plot_ring_sketch(
             ang = np.linspace(0, 2 * math.pi, probes, endpoint=False) + math.pi / probes
             rm = (ri + ro) / 2
             ax.plot(rm * np.cos(ang), rm * np.sin(ang), "o", color=COLORS["probe"], ms=4)
-        lim = ro * 1.7
+        lim = max([ro * 1.7] + [1.12e9 * np.abs(ld["polygon"]).max() for ld in leads or ()])
         ax.set_xlim(-lim, lim)
         ax.set_ylim(-lim, lim)
         ax.set_aspect("equal")

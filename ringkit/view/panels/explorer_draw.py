@@ -262,7 +262,7 @@ class ExplorerDrawing:
             geo = p.geometry()
             plots.plot_ring_sketch(
                 geo.r_in, geo.r_out, ax, lead_angles=geo.lead_angles, lead_width=geo.lead_width,
-                gate_arm=key[2], probes=key[3],
+                gate_arm=key[2], probes=key[3], leads=geo.lead_outlines(),
             )  # fmt: skip
             self._caption(ax, "device outline" + (" + dephasing probes" if key[3] else ""))
         self._ring_key = key

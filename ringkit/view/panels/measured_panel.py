@@ -6,13 +6,15 @@ simulated ring of the extracted area, the spectrum with the h/e and h/2e bands, 
 extracted numbers. Loader errors (unreadable uploads) and invalid settings are shown in the
 message area; the last good plots stay.
 
-Per-file options (columns, units, series resistance, terminals, grouping, radii) return to their
-defaults whenever a *different* file is loaded (a setting made for one file, e.g. the demo's
-1200 Ohm series resistance, never silently applies to the next); changing an option reloads
-the same file. A temperature series (grouped by a temperature column, or one file per
+Per-file options (columns, units, series resistance, terminals, grouping, contacts, radii)
+return to their defaults whenever a *different* file is loaded (a setting made for one file,
+e.g. the demo's 1200 Ohm series resistance, never silently applies to the next); changing an
+option reloads the same file. A temperature series (grouped by a temperature column, or one file per
 temperature) gets an L_phi(T) fit (:mod:`ringkit.view.panels.measured_series`). The
 cross-checks of :mod:`ringkit.analysis.checks` (bands overlapping, no peak above the noise
-floor, implausible amplitude or G) are shown in the message area. docs/panels.md.
+floor, implausible amplitude or G) are shown in the message area. A contact configuration
+(field "contacts", or a ``# contacts:`` header) adds the four-terminal R_mn,kl analysis
+(:mod:`ringkit.view.panels.measured_fourterminal`; docs/multiterminal.md). docs/panels.md.
 """
 
 from __future__ import annotations
@@ -37,6 +39,7 @@ from ringkit.view.panels.measured import (
     load_trace_bytes,
     load_trace_file,
 )
+from ringkit.view.panels.measured_fourterminal import four_terminal_view
 from ringkit.view.panels.measured_series import series_lphi, trace_caption
 from ringkit.view.style import DELTA_G_LABEL, field_scale, field_unit_for, new_figure
 
@@ -108,6 +111,8 @@ class MeasuredDataPanel(PanelBase):
                                           style=style, layout=lay),
             "group_by": widgets.Text(description="group by column", style=style, layout=lay,
                                      placeholder="auto (temperature column); none"),
+            "contacts": widgets.Text(description="contacts (4-terminal)", style=style, layout=lay,
+                                     placeholder="e.g. I 0→2, V 1–3 (or '# contacts:' header)"),
         }  # fmt: skip
         self.file_defaults = {k: w.value for k, w in self.load_controls.items()}
         self.trace_select = widgets.Dropdown(options=[], description="trace", style=style,
@@ -129,11 +134,16 @@ class MeasuredDataPanel(PanelBase):
             "material": widgets.Dropdown(options=["GaAs", "InAs", "Au"],
                                          description="simulation material", style=style,
                                          layout=lay),
+            "symmetrize": widgets.Dropdown(options=["none", "even", "odd"],
+                                           description="4-terminal: analyse", style=style,
+                                           layout=lay),
             "lphi": widgets.FloatLogSlider(value=2.0, base=10, min=-1.5, max=2, step=0.05,
                                            description="sim. L_phi (µm)", readout_format=".3g",
                                            **kw),
         }  # fmt: skip
         self.file_defaults.update(r_in=0.0, r_out=0.0)
+        self.four_terminal = None  # FourTerminalResult of the shown trace (contacts given)
+        self.four_summary = widgets.HTML(value="")
         self.series_button = widgets.Button(description="Fit L_phi(T) over all traces",
                                             icon="line-chart", layout=auto)  # fmt: skip
         self.series_summary = widgets.HTML(value="")
@@ -168,8 +178,9 @@ class MeasuredDataPanel(PanelBase):
         tabs.set_title(0, "load")
         tabs.set_title(1, "analysis")
         self.widget = widgets.VBox(
-            [tabs, self.trace_select, self.message, self.pane.widget, self.summary]
-        )
+            [tabs, self.trace_select, self.message, self.pane.widget, self.summary,
+             self.four_summary]
+        )  # fmt: skip
         self.widget.add_class("ringkit-measured")
         self._pending: tuple[str, Any] | None = None
 
@@ -341,10 +352,23 @@ class MeasuredDataPanel(PanelBase):
 
         ok = self.guarded(work)
         if ok and self.analysis is not None:
-            notes = list(self.analysis.notes) + self._cross_checks()
+            notes = self._four_terminal() + list(self.analysis.notes) + self._cross_checks()
             if notes:
                 self.show_message("\n".join(dict.fromkeys(notes)), level="warning")
         return ok
+
+    def _four_terminal(self) -> list[str]:
+        """R_mn,kl analysis of the shown trace (contacts field or header); its message line."""
+        c = self.controls
+        opts = self.analysis_options()
+        view = four_terminal_view(
+            self.traces[self.trace_select.value or 0], self.load_controls["contacts"].value,
+            symmetrize=c["symmetrize"].value, field_min=opts.field_min,
+            field_max=opts.field_max, r_in=opts.r_in, r_out=opts.r_out,
+        )  # fmt: skip
+        self.four_terminal = view.result
+        self.four_summary.value = view.html
+        return [view.message] if view.message else []
 
     def _cross_checks(self) -> list[str]:
         """Messages of :func:`ringkit.analysis.checks.check_result` for the shown analysis."""
