@@ -104,3 +104,15 @@ def test_four_terminal_without_configuration_says_what_to_add():
     text = panel.message.value
     assert "without a contact configuration" in text and "# contacts: m,n,k,l" in text
     assert sum("contact configuration" in ln for ln in text.split("\n")) == 1
+
+
+def test_outline_of_a_chain_ring_draws_lines():
+    geo = RingGeometry.chain(300e-9, n_sites=60, leads=[3 * math.pi / 4, 0.3, 4.0])
+    ax = plots.plot_ring_sketch(geo.r_in, geo.r_out, leads=geo.lead_outlines())
+    lines = {ln.get_gid(): ln for ln in ax.get_lines() if str(ln.get_gid()).startswith("lead-")}
+    assert sorted(lines) == ["lead-0", "lead-1", "lead-2"]
+    for lead in geo.lead_outlines():
+        line = lines[f"lead-{lead['index']}"]
+        np.testing.assert_allclose(line.get_xdata(), lead["polygon"][:2, 0] * 1e9, rtol=1e-12)
+    (ring,) = [p for p in ax.patches if p.get_gid() is None]
+    assert ring.get_radius() == pytest.approx(300.0)  # the chain's circle, in nm

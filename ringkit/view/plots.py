@@ -359,14 +359,17 @@ def plot_ring_sketch(
     terminal index (docs/multiterminal.md "Lead layout"); without it the two leads at
     ``lead_angles`` are drawn as radial strips.
     """
-    from matplotlib.patches import Wedge
+    from matplotlib.patches import Circle, Wedge
 
     ax = _axes(ax, size=(4.0, 4.0))
     ri, ro = r_in * 1e9, r_out * 1e9
     a_l, a_r = lead_angles
     w_lead = (lead_width if lead_width else (r_out - r_in)) * 1e9
     with style_context():
-        ax.add_patch(Wedge((0, 0), ro, 0, 360, width=ro - ri, color="#c9d6ea", lw=0))
+        if ro - ri > 1e-6 * ro:
+            ax.add_patch(Wedge((0, 0), ro, 0, 360, width=ro - ri, color="#c9d6ea", lw=0))
+        else:  # a chain (single-channel ring): its circle
+            ax.add_patch(Circle((0, 0), ro, fill=False, color="#7f9cc8", lw=2.5))
         if gate_arm in ("upper", "lower"):
             t1, t2 = np.degrees(a_r), np.degrees(a_l)
             if gate_arm == "lower":
@@ -376,10 +379,15 @@ def plot_ring_sketch(
             )
         for lead in leads or ():
             poly = np.asarray(lead["polygon"], dtype=float) * 1e9
-            ax.fill(poly[:, 0], poly[:, 1], color=COLORS["lead"], alpha=0.6, lw=0,
-                    gid=f"lead-{lead['index']}")  # fmt: skip
+            if lead["width"] > 0:
+                ax.fill(poly[:, 0], poly[:, 1], color=COLORS["lead"], alpha=0.6, lw=0,
+                        gid=f"lead-{lead['index']}")  # fmt: skip
+            else:  # chain lead: a line
+                ax.plot(poly[:2, 0], poly[:2, 1], color=COLORS["lead"], lw=2.5,
+                        gid=f"lead-{lead['index']}")  # fmt: skip
             x_end = poly[:, 0][np.argmax(np.abs(poly[:, 0]))]
-            ax.text(x_end, poly[:, 1].mean(), str(lead["index"]), fontsize=8, va="center",
+            ax.text(x_end + math.copysign(0.05 * ro, x_end), poly[:, 1].mean(),
+                    str(lead["index"]), fontsize=8, va="center",
                     ha="right" if x_end < 0 else "left",
                     gid=f"lead-label-{lead['index']}")  # fmt: skip
         for ang in () if leads else (a_l, a_r):
