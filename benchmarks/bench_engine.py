@@ -11,7 +11,7 @@ Options: ``--sizes 1k 3.3k 30k`` (default all), ``--quick`` (fewer points), ``--
 
 Systems: square-lattice rings of about 1 000, 3 300 and 30 000 sites (tests/engine_systems.py:
 outer/inner radius 50/38 scaled by sqrt(N/3316), field-free leads along +-x, Landau-gauge
-Peierls phases in the value functions, Anderson disorder t, E = 0.5t; engine notes 0).
+Peierls phases in the value functions, Anderson disorder t, E = 0.5t; docs/engine.md §0).
 
 Methods, per field point:
 (i)   straightforward kwant script: ``kwant.smatrix(fsyst, E, params={"phi": v})`` with the

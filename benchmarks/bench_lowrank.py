@@ -11,12 +11,12 @@ at 3.3k; 30k uses ``max(3, repeats // 2)``), ``--output PATH`` (default
 Systems (tests/lowrank_systems.py, plain kwant, independent of ringkit's builder): square-lattice
 rings, outer/inner radius 50/38 (3 374 sites) and 150/114 (30 010 sites), Anderson disorder t
 (hashed per site), leads 10 and 30 sites wide along -x/+x, branch cut above the hole, every
-hopping a kwant value function of ``flux``; E = 0.5t (the rings of the engine notes).
+hopping a kwant value function of ``flux``; E = 0.5t (the rings of docs/engine.md).
 
 Quantities (medians over interleaved rounds; CPU = process time, the machine is shared):
 
 * ``F``: one sparse factorization of ``A = E - H - Sigma`` - MUMPS symbolic analysis + numeric
-  LU with AMD ordering (the cheapest ordering here, engine notes 2.2), the unit of cost;
+  LU with AMD ordering (the cheapest ordering here, docs/engine.md §2.2), the unit of cost;
 * ``setup``: ``FluxTubeSweeper(model, energy=E)`` for a new energy with a fresh analysis (lead
   self-energies, assembly, factorization, Green's-function block of the cut and lead orbitals);
 * ``sweep``: ``sweeper.transmission(fluxes)`` for the 400 fluxes (vectorised small solves);

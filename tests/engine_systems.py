@@ -4,13 +4,13 @@ Written in plain kwant (value functions with Peierls phases), deliberately indep
 ringkit builder, so that the engine is checked against kwant's own ``smatrix`` on systems it
 did not construct.
 
-Conventions (project physics notes, sections 4.1-4.2): the hopping from site j to site i is
+Conventions (docs/physics.md §4.1-4.2): the hopping from site j to site i is
 ``H_ij = -t exp(i theta_ij)`` with ``theta_ij = +2 pi phi ybar dx`` in the Landau gauge
 A = (-B y, 0) for electrons, ``phi = B a^2 / (h/e)`` the flux per plaquette in units of h/e and
 positions in units of the lattice spacing a. The leads run along +-x and are field-free
-(engine notes section 1.2: exact for a step profile B(x) in this gauge). Disorder is a uniform
+(docs/engine.md §1.2: exact for a step profile B(x) in this gauge). Disorder is a uniform
 Anderson potential ``disorder * (u - 1/2)`` with ``u`` a counter-based hash (splitmix64) of the
-integer site tag and the seed, so a realization does not depend on the site order (engine notes
+integer site tag and the seed, so a realization does not depend on the site order (docs/engine.md
 section 5).
 """
 
@@ -67,7 +67,7 @@ def _landau_hopping(field_param: str, lattice_spacing: float | None, t: float = 
     to_phi = _phase_per_plaquette(field_param, lattice_spacing)
 
     def hopping(site_i, site_j, **kw):
-        # H_ij = -t exp(+2 pi i phi ybar dx) (physics notes 4.2, Landau gauge, electrons)
+        # H_ij = -t exp(+2 pi i phi ybar dx) (docs/physics.md §4.2, Landau gauge, electrons)
         xi, yi = site_i.pos
         xj, yj = site_j.pos
         phi = to_phi(kw[field_param])
@@ -101,7 +101,7 @@ def square_ring(
 
     ``field_param`` is ``"phi"`` (uniform field, flux per plaquette in h/e), ``"B"`` (uniform
     field in tesla; needs ``lattice_spacing`` in m) or ``"flux"`` (flux tube through the hole
-    only, in units of h/e, on the bonds crossing the cut x = 1/2, y > 0; physics notes 4.5).
+    only, in units of h/e, on the bonds crossing the cut x = 1/2, y > 0; docs/physics.md §4.5).
     ``upper_shift`` moves the outer edge of the upper half up by that many sites (unequal arms).
     On-site energy 4t + disorder (u - 1/2), t = 1.
     """
@@ -176,7 +176,7 @@ def chain_loop(
     (length ``width + 2 h_upper``), the lower arm down ``h_lower`` (length ``width + 2 h_lower``).
     Two semi-infinite chains along +-x. The field parameter ``flux`` is the flux through the
     loop in units of h/e; it enters as exp(-2 pi i flux) on the bond crossing a cut on the
-    upper arm (physics notes 4.5, counter-clockwise loop phase exp(-2 pi i Phi/Phi0)).
+    upper arm (docs/physics.md §4.5, counter-clockwise loop phase exp(-2 pi i Phi/Phi0)).
     """
     lat = kwant.lattice.square(1.0, norbs=1, name="c")
     syst = kwant.Builder()
@@ -219,7 +219,7 @@ def disordered_wire(
     """Disordered strip with the field also in the (clean) leads, Landau gauge along x.
 
     Keeping the field in the leads avoids the interface reflection of a field that stops at the
-    lead (physics notes 10.3).
+    lead (docs/physics.md §10.3).
     """
     lat = kwant.lattice.square(1.0, norbs=1)
     syst = kwant.Builder()
@@ -238,7 +238,7 @@ def disordered_wire(
 
 
 def ring_builder(size: str) -> dict:
-    """Ring parameters for about 1 000, 3 300 and 30 000 sites (engine notes 0: R 50/38, W 10,
+    """Ring parameters for about 1 000, 3 300 and 30 000 sites (docs/engine.md §0: R 50/38, W 10,
     scaled by sqrt(N/3316))."""
     scale = {"1k": math.sqrt(1000 / 3316), "3.3k": 1.0, "30k": math.sqrt(30000 / 3316)}[size]
     return {

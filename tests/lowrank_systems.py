@@ -1,7 +1,7 @@
 """Small, independent flux-tube ring builder used by the low-rank tests and benchmark.
 
 This is deliberately *not* ringkit's own ring builder: it is a plain kwant square-lattice ring
-written from the physics notes (section 4.5, branch cut), so the low-rank solver is checked on a
+written from docs/physics.md (section 4.5, branch cut), so the low-rank solver is checked on a
 system that shares no code with the rest of ringkit.
 
 Model (lattice units, a = 1, hopping t):
@@ -15,7 +15,7 @@ Model (lattice units, a = 1, hopping t):
   ``x = cut_x`` going up (``cut="top"``) or down (``cut="bottom"``) from the hole centre. A hop
   across it in the counter-clockwise sense picks up ``exp(-2 pi i flux/(h/e))``, the reverse hop
   the complex conjugate, so the product of the hopping phases around the hole, counter-clockwise,
-  is ``exp(-2 pi i flux/(h/e))`` (electrons, physics notes section 4.1);
+  is ``exp(-2 pi i flux/(h/e))`` (electrons, docs/physics.md §4.1);
 * two field-free leads along -x (lead 0) and +x (lead 1), ``lead_width`` sites wide, centred on
   y = 0, plus optionally a third lead along -y under the lower arm;
 * ``norbs=2`` makes every site a spin-1/2 pair with a Zeeman term ``zeeman * sigma_z`` (a check of

@@ -73,7 +73,8 @@ def test_arm_labels_follow_widths_and_lead_angles():
 
 
 def test_leads_are_clean_strips_with_the_expected_open_modes():
-    """Lead of M rows: N(E) = #{n : 2t(1 - cos(n pi/(M+1))) < E} (physics notes 3)."""
+    """Lead of M rows: N(E) = #{n : 2t(1 - cos(n pi/(M+1))) < E} (hard-wall transverse levels,
+    closed form; docs/physics.md §3)."""
     geo = RingGeometry.circular(60e-9, 110e-9, lead_width=48e-9)
     ring = build_ring(_device(geo))
     fs = ring.fsyst

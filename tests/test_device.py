@@ -26,7 +26,7 @@ MEV = 1e-3 * constants.electron_volt
 # ----------------------------------------------------------------------------- materials
 def test_gaas_preset_and_derived_fermi_quantities():
     """Yu & Cardona m* = 0.067; n = 3e11 cm^-2 -> E_F = 10.719 meV, kF = 1.373e8 1/m,
-    v_F = 2.372e5 m/s (physics notes 11, computed there; rtol 1e-4 since m_e enters)."""
+    v_F = 2.372e5 m/s (docs/physics.md §11, computed there; rtol 1e-4 since m_e enters)."""
     gaas = Material.preset("GaAs")
     assert gaas.effective_mass == 0.067
     assert gaas.density == 3e15
@@ -46,7 +46,8 @@ def test_gaas_preset_and_derived_fermi_quantities():
 def test_inas_and_au_presets():
     inas = Material.preset("InAs", density=3e15)  # override drops the preset density
     assert inas.effective_mass == 0.026  # Yu & Cardona
-    assert inas.fermi_energy_J / MEV == pytest.approx(27.622, rel=1e-4)  # physics notes 11
+    # E_F = pi hbar^2 n/m* (free 2DEG); docs/physics.md §3, §11
+    assert inas.fermi_energy_J / MEV == pytest.approx(27.622, rel=1e-4)
     assert Material.preset("InAs", effective_mass=0.023, density=3e15).fermi_energy_J / MEV == (
         pytest.approx(31.225, rel=1e-4)
     )
@@ -64,7 +65,7 @@ def test_inas_and_au_presets():
 
 def test_transport_lengths_from_mobility():
     """n = 3e11 cm^-2: mu = 1e4 / 1e5 / 1e6 cm^2/Vs -> tau = 0.381 / 3.809 / 38.09 ps,
-    l = 0.090 / 0.904 / 9.04 um, D = 0.0107 / 0.107 / 1.07 m^2/s (physics notes 8.3)."""
+    l = 0.090 / 0.904 / 9.04 um, D = 0.0107 / 0.107 / 1.07 m^2/s (docs/physics.md §8.3)."""
     for mu_cm2, tau_ps, l_um, d in ((1e4, 0.381, 0.090, 0.0107), (1e5, 3.809, 0.904, 0.107)):
         m = Material.preset("GaAs", mobility=mu_cm2 * 1e-4)
         assert m.scattering_time == pytest.approx(tau_ps * 1e-12, rel=2e-3)
@@ -110,7 +111,7 @@ def test_unknown_preset_lists_the_choices():
 
 # ----------------------------------------------------------------------------- geometry
 def test_circular_geometry_areas_and_bands():
-    geo = RingGeometry.circular(392e-9, 433e-9)  # Webb et al. ring (physics notes 2.1)
+    geo = RingGeometry.circular(392e-9, 433e-9)  # Webb et al. ring (docs/physics.md §2.1)
     assert geo.mean_radius == pytest.approx(412.5e-9)
     assert geo.area_mean == pytest.approx(0.53456e-12, rel=1e-4)
     assert geo.area_inner == pytest.approx(math.pi * 392e-9**2, rel=1e-12)
@@ -180,12 +181,14 @@ def test_arm_gate_validation():
 
 # ----------------------------------------------------------------------------- discretisation
 def test_hopping_check_value():
-    """t for GaAs at a = 5 nm: 22.746 meV (physics notes 3, computed there)."""
+    """t for GaAs at a = 5 nm: 22.746 meV (t = hbar^2/(2 m* a^2) from scipy.constants;
+    docs/physics.md §3)."""
     assert hopping_energy(0.067, 5e-9) / MEV == pytest.approx(22.746, rel=1e-4)
 
 
 def test_dispersion_error_check_value():
-    """Relative lattice error along an axis at ka = 0.5: 2.066 % (physics notes 3)."""
+    """Relative lattice error along an axis at ka = 0.5: 2.066 % (closed form 1 - 2(1 - cos
+    ka)/(ka)^2; docs/physics.md §3)."""
     assert dispersion_error(0.5) == pytest.approx(0.02066, rel=1e-3)
     assert dispersion_error(0.2) == pytest.approx(0.2**2 / 12, rel=0.01)
 

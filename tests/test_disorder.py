@@ -48,7 +48,8 @@ def test_distribution_is_uniform_and_uncorrelated():
     w = 2.0
     v = anderson_potential(keys, w, seed=3)
     assert v.min() >= -w / 2 and v.max() < w / 2
-    # moments of U(-W/2, W/2): mean 0, variance W^2/12 (physics notes 8.1); 5 sigma bounds
+    # moments of U(-W/2, W/2): mean 0, variance W^2/12 (moments of the uniform distribution;
+    # docs/physics.md §8.1); 5 sigma bounds
     assert abs(v.mean()) < 5 * w / math.sqrt(12 * n)
     sd_var = w**2 * math.sqrt(1 / 80 - 1 / 144) / math.sqrt(n)  # sd of the sample variance
     assert abs(v.var() - w**2 / 12) < 5 * sd_var
@@ -92,7 +93,8 @@ def test_realisation_survives_geometry_changes_on_shared_sites():
 
 # ----------------------------------------------------------------------------- Born values
 def test_lattice_dos_and_fermi_speed_against_k_space_sampling():
-    """Check values of the project physics notes (section 3, 13, computed there) and an
+    """Check values of docs/physics.md §3 and §14 (elliptic-integral DOS of the square lattice,
+    computed) and an
     independent count of states on a 2000 x 2000 k-grid (both spins excluded: per spin)."""
     assert lattice_dos(0.5) == pytest.approx(0.0849772, rel=1e-6)
     assert lattice_dos(1e-9) == pytest.approx(1 / (4 * math.pi), rel=1e-6)  # band bottom
@@ -105,7 +107,8 @@ def test_lattice_dos_and_fermi_speed_against_k_space_sampling():
         win = np.abs(eps - e0) < 0.02
         assert win.mean() / 0.04 == pytest.approx(lattice_dos(e0), rel=0.01)
         assert speed[win].mean() == pytest.approx(mean_fermi_speed(e0), rel=0.005)
-    assert mean_fermi_speed(0.5) == pytest.approx(1.3462, rel=1e-4)  # physics notes 8.2
+    # docs/physics.md §8.2 (Fermi-contour average, computed)
+    assert mean_fermi_speed(0.5) == pytest.approx(1.3462, rel=1e-4)
 
 
 def test_born_mean_free_path_check_values():
@@ -143,7 +146,7 @@ def test_chain_born_length_against_lyapunov_exponent():
 
 
 def test_mobility_gives_the_born_strength_used_by_the_builder():
-    """GaAs n = 3e11 cm^-2, mu = 1e5 cm^2/Vs -> l = hbar kF mu/e = 0.904 um (physics notes 8.3);
+    """GaAs n = 3e11 cm^-2, mu = 1e5 cm^2/Vs -> l = hbar kF mu/e = 0.904 um (docs/physics.md §8.3);
     the builder's Anderson W reproduces that l through the Born formula."""
     gaas = Material.preset("GaAs", mobility=10.0)
     assert mean_free_path_from_mobility(10.0, gaas.fermi_wavevector) == pytest.approx(
@@ -211,14 +214,14 @@ def test_rgf_helper_agrees_with_kwant():
 
 def test_mean_transmission_of_disordered_strip_follows_born_mean_free_path():
     """<T>/N = l'/(L + l'), l' = (pi/2) l_Born in 2D (Beenakker & van Houten, Solid State
-    Physics 44, 1 (1991) [from memory]; physics notes 8.3 and 10.3).
+    Physics 44, 1 (1991) [from memory]; docs/physics.md §8.3 and 10.3).
 
     Strip M = 30 sites, E = t (N = 10 open modes), W = 1.5t: l_Born = 16.73 a (lattice formula),
     l' = 26.3 a, localisation length ~ (N + 1) l' = 290 a >> L. 200 realisations per length.
     Tolerance, derived rather than tuned: the data must lie within 3 standard errors above the
     formula (Born corrections are higher order in W) and below it by at most 3 standard errors
     plus the weak-localisation reduction of <g> = <T> (time-reversal symmetric, beta = 1),
-    bounded by its asymptotic value 1/3 (physics notes 10.1, quasi-1D wire). Deviations found:
+    bounded by its asymptotic value 1/3 (docs/physics.md §10.1, quasi-1D wire). Deviations found:
     -1.7 %, -2.3 %, -4.6 % at L = 25, 50, 75. Using l instead of l' (+26 % to +36 %) or the
     continuum Born value (-12 % to -20 %) fails this test.
     """

@@ -4,7 +4,7 @@ A clean straight square-lattice wire of M sites across (hard walls), hopping t =
 has transverse energies eps_n = 2t(1 - cos(n*pi/(M+1))), n = 1..M, so its conductance in units of
 e^2/h per spin equals the number of open modes N(E) = #{n : eps_n < E} (common textbook result,
 e.g. Datta, Electronic Transport in Mesoscopic Systems, CUP 1995, ch. 3; check value M = 60,
-E = 0.5t -> 14 from the project's physics notes section 3, confirmed there with kwant).
+E = 0.5t -> 14 from the project's docs/physics.md §3, confirmed there with kwant).
 """
 
 from __future__ import annotations
@@ -61,7 +61,7 @@ def test_clean_wire_conductance_equals_open_modes(width):
 
 
 def test_reference_value_m60():
-    """M = 60, E = 0.5t -> 14 open modes (physics notes section 3, check value)."""
+    """M = 60, E = 0.5t -> 14 open modes (docs/physics.md §3, check value)."""
     assert _open_modes(60, 0.5) == 14
     smat = kwant.smatrix(_wire(60, length=2), 0.5)
     assert abs(smat.transmission(1, 0) - 14) < 1e-9

@@ -76,7 +76,8 @@ def test_agrees_with_kwant_smatrix(case, method):
 
 def test_lead_padding_sites_are_reproduced():
     # ring edge narrower than the lead: attach_lead adds padding sites whose hoppings take the
-    # field-free lead value inside the system (engine notes 1.2 gotcha)
+    # field-free lead value inside the system (kwant's attach_lead padding sites; docs/engine.md
+    # §1.2)
     fsyst = square_ring(12, 8, 13, disorder=1.0, seed=1)
     assert sum(len(p) for p in fsyst.lead_paddings) > 0
     values = np.linspace(0, 0.02, 4)
@@ -147,7 +148,7 @@ def test_clean_wire_transmission_equals_open_modes():
 
 
 def test_two_terminal_onsager_symmetry():
-    # G(B) = G(-B) for two terminals (Buttiker 1986; physics notes 5.3)
+    # G(B) = G(-B) for two terminals (Buttiker 1986; docs/physics.md §5.3)
     fsyst = square_ring(14, 9, 5, disorder=2.0, seed=11)
     sw = FieldSweeper(fsyst, field_param="phi", energy=0.6)
     v = np.array([0.0013, 0.004, 0.011])
@@ -200,7 +201,7 @@ def test_rejects_field_that_is_not_a_peierls_phase():
 
 
 def test_kron_reduce_one_probe_closed_form():
-    # physics notes 7.1: G = T21 + T23 T31 / (T31 + T32)
+    # docs/physics.md §7.1: G = T21 + T23 T31 / (T31 + T32)
     rng = np.random.default_rng(1)
     t = rng.uniform(0.1, 1.0, (3, 3))
     c = -t.copy()

@@ -1,6 +1,6 @@
 """Magnetic field in ringkit's tight-binding rings: Peierls phases, gauges, AB periods.
 
-Conventions under test (project physics notes 4.1): H_ij is the amplitude to hop from j to i,
+Conventions under test (docs/physics.md §4.1): H_ij is the amplitude to hop from j to i,
 carriers are electrons, B along +z, and the product of hopping factors around a loop traversed
 counter-clockwise is exp(-2 pi i Phi/(h/e)). h/e comes from scipy.constants (CODATA; exact in
 the 2019 SI) in every expected value below.
@@ -79,7 +79,8 @@ def test_plaquette_loop_phase_is_minus_two_pi_flux_per_plaquette(b_field):
     loops = _plaquettes(ring)
     assert len(loops) > 100  # every plaquette of the scattering region, stubs included
     prod = _loop_products(h, loops)
-    expected = -2 * math.pi * b_field * A_SMALL**2 / PHI0  # physics notes 4.1 (electrons)
+    # Stokes, charge -e (docs/physics.md §4.1)
+    expected = -2 * math.pi * b_field * A_SMALL**2 / PHI0
     assert abs(expected) > 1e-3  # a non-trivial phase
     np.testing.assert_allclose(np.abs(prod), 1.0, atol=1e-12)  # |t|^4 with t = 1
     np.testing.assert_allclose(np.angle(prod * np.exp(-1j * expected)), 0.0, atol=1e-12)
@@ -144,7 +145,8 @@ def test_flux_tube_conductance_has_period_h_over_e():
 
 
 def test_flux_tube_conductance_does_not_depend_on_the_cut():
-    """Moving the branch cut is a gauge transformation (physics notes 4.5)."""
+    """Moving the branch cut is a gauge transformation (theta_ij -> theta_ij + chi_i - chi_j;
+    docs/physics.md §4.5)."""
     e = 1.3 * T_SMALL
     fluxes = np.array([0.0, 0.13, 0.5, 0.71]) * PHI0
     results = []
@@ -165,8 +167,9 @@ def test_branch_cut_through_a_lead_is_refused():
 
 # ----------------------------------------------------------------------------- uniform field
 def test_uniform_field_fourier_peak_lies_in_the_h_over_e_band():
-    """Dominant Fourier component of G(B) inside [pi r_in^2, pi r_out^2]/(h/e) (physics notes
-    1.3, 12.4); the next strongest component lies in the h/2e band (twice the area)."""
+    """Dominant Fourier component of G(B) inside [pi r_in^2, pi r_out^2]/(h/e) (docs/physics.md
+    §1.3, §12.4: line at A/(h/e)); the next strongest component lies in the h/2e band (twice the
+    area)."""
     mat = Material(0.067, density=1e15)  # clean GaAs-like 2DEG, kF = 7.93e7 1/m
     a = 0.5 / mat.fermi_wavevector
     geo = RingGeometry.circular(26 * a, 34 * a)
@@ -198,7 +201,7 @@ def test_gauge_agrees_with_kwant_magnetic_gauge_for_the_same_field():
     listed counter-clockwise (kwant/physics/gauge.py and its test_phases); such a product is
     the amplitude of the clockwise hop sequence, so the counter-clockwise one is
     exp(-i pi B_k S): B_k = 2 B a^2/(h/e) reproduces ringkit's exp(-2 pi i B S/(h/e)). ringkit's
-    field fills the scattering region and stops at the lead interface (engine notes 1.2-1.3),
+    field fills the scattering region and stops at the lead interface (docs/engine.md §1.2-1.3),
     so the kwant field is a function that is zero between the outermost columns and the leads.
     Compared: the mode-resolved |t_mn|^2, which is not even in B, so a wrong sign is caught.
     """
@@ -247,7 +250,7 @@ def test_gauge_agrees_with_kwant_magnetic_gauge_for_the_same_field():
 
 
 def test_two_terminal_conductance_is_even_in_field():
-    """Onsager-Buttiker: G(B) = G(-B) for two terminals (physics notes 5.3), also with Zeeman."""
+    """Onsager-Buttiker: G(B) = G(-B) for two terminals (docs/physics.md §5.3), also with Zeeman."""
     ring = build_ring(_small_device("uniform", g_factor=-0.44), seed=9)
     for e in (0.7, 1.6):
         for b in (0.05, 0.31, 0.97):
@@ -287,7 +290,7 @@ def test_chain_ring_period_is_h_over_e_area():
 def test_published_ring_periods():
     """Webb et al., PRL 54, 2696 (1985), Au ring; Pedersen et al., MSE B 74, 234 (2000), GaAs.
 
-    Numbers from the project physics notes 2.1 and 2.3: Webb inside diameter 784 nm, width
+    Numbers from docs/physics.md §2.1 and 2.3: Webb inside diameter 784 nm, width
     41 nm, observed period 7.6 mT (all from memory); mean-radius prediction 7.7366 mT
     (computed). Tolerance 3 % between observed and predicted (notes 13, allowing for the
     recalled geometry). Pedersen: observed 3.3 mT (abstract, verified) -> r_eff = 0.6316 um.
@@ -311,7 +314,8 @@ def test_published_ring_periods():
 
 # ----------------------------------------------------------------------------- warnings
 def test_magnetic_length_check_value():
-    assert magnetic_length(1.0) == pytest.approx(25.656e-9, rel=1e-4)  # physics notes 1.1
+    # sqrt(hbar/e) from scipy.constants; docs/physics.md §4.3
+    assert magnetic_length(1.0) == pytest.approx(25.656e-9, rel=1e-4)
 
 
 def test_field_regime_warnings():

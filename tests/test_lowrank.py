@@ -8,8 +8,10 @@ Every check compares against something computed without the code under test:
   ``E - H - Sigma`` with the Fisher-Lee formula (D. S. Fisher, P. A. Lee, Phys. Rev. B 23, 6851
   (1981)), for dephasing probes;
 * exact symmetries: period h/e of a pure Aharonov-Bohm flux and independence of the cut position
-  (physics notes 4.5), two-terminal reciprocity G(flux) = G(-flux) (Büttiker, Phys. Rev. Lett. 57,
-  1761 (1986); physics notes 5.3), current conservation of the conductance matrix (physics notes
+  (docs/physics.md §4.5), two-terminal reciprocity G(flux) = G(-flux) (Büttiker, Phys. Rev. Lett.
+  57,
+  1761 (1986); docs/physics.md §5.3), current conservation of the conductance matrix
+  (docs/physics.md
   5.2);
 * CODATA h/e from scipy.constants for the detected phase per unit flux.
 
@@ -66,7 +68,7 @@ def test_detects_exactly_the_cut_bonds_with_the_codata_phase_rate():
     assert model.cut.n_entries == 2 * len(crossing)
     cut_tags = {tuple(fsyst.sites[i].tag) for i in model.cut.sites}
     assert cut_tags == {(x, y) for y in crossing for x in (0, 1)}
-    # phase 2 pi flux/(h/e) per crossing (physics notes 4.5), sign by direction of the hop
+    # phase 2 pi flux/(h/e) per crossing (docs/physics.md §4.5), sign by direction of the hop
     np.testing.assert_allclose(np.abs(model.cut.rates), 2 * np.pi / H_OVER_E, rtol=1e-12)
     assert np.sum(model.cut.rates > 0) == len(crossing)
 
@@ -112,7 +114,7 @@ def test_transmission_equals_kwant_smatrix(name):
         np.testing.assert_allclose(got, ref, rtol=0, atol=TOL)
         assert sweeper.n_fallback == 0
         # open modes of a clean strip of W sites: #{n : 2t(1 - cos(n pi/(W+1))) < E}
-        # (hard-wall transverse levels; physics notes 3 / engine smoke test)
+        # (hard-wall transverse levels, closed form; docs/physics.md §3)
         w = kwargs["lead_width"]
         n_open = int(np.sum(2 * (1 - np.cos(np.arange(1, w + 1) * np.pi / (w + 1))) < energy))
         assert sweeper.n_channels == (n_open, n_open)
@@ -180,7 +182,7 @@ def test_result_does_not_depend_on_where_the_cut_is_drawn():
 
 # ------------------------------------------------------------------------ dephasing probes
 class _WideBandTerminal:
-    """Self-energy-only kwant lead -i eta/2 on every orbital of one site (engine notes 3 (B))."""
+    """Self-energy-only kwant lead -i eta/2 on every orbital of one site (docs/engine.md §3 (B))."""
 
     parameters = frozenset()
 
@@ -317,7 +319,7 @@ def test_probes_keep_onsager_and_period():
 
 
 def test_one_floating_probe_matches_the_closed_form():
-    # G_eff = T21 + T23 T31 / (T31 + T32) for one floating probe 3 (physics notes 7.1),
+    # G_eff = T21 + T23 T31 / (T31 + T32) for one floating probe 3 (docs/physics.md §7.1),
     # with the transmissions from kwant.greens_function (terminals 0, 1 = leads, 2 = probe)
     fsyst = flux_tube_ring(12.0, 7.0, lead_width=4, hole_offset=(0.0, 1.0), disorder=1.0, seed=12)
     site = ring_sites_near(fsyst, [np.pi / 2 + 0.4], 9.5)
@@ -339,7 +341,8 @@ def test_thermal_sweep_equals_weighted_kwant_sum():
     fsyst = flux_tube_ring(12.0, 7.0, lead_width=5, disorder=1.0, seed=10)
     mu, kt = 1.0, 0.02
     energies = mu + kt * np.linspace(-5.0, 5.0, 7)
-    # -df/dE = 1/(4 kT cosh^2((E - mu)/2kT)) (physics notes 5.4), trapezoid-free point weights
+    # -df/dE = 1/(4 kT cosh^2((E - mu)/2kT)) (derivative of the Fermi function; docs/physics.md
+    # §5.4), trapezoid-free point weights
     w = 1.0 / (4 * kt * np.cosh((energies - mu) / (2 * kt)) ** 2) * (energies[1] - energies[0])
     fluxes = FLUXES[2:5]
     got = thermal_flux_sweep(fsyst, fluxes, energies, w)

@@ -1,7 +1,7 @@
 """Exact single-channel ring (ringkit.analysis.network1d) against closed forms and an
 independent network solver written here.
 
-Check values: physics notes §6 (shared/notes/physics.md), derived there symbolically and
+Check values: docs/physics.md §6, derived there symbolically and
 verified numerically [C]; the junction matrix is that of Büttiker, Imry, Azbel,
 Phys. Rev. A 30, 1982 (1984) (citation from memory).
 """
@@ -31,7 +31,7 @@ H_OVER_E = constants.h / constants.e  # CODATA via scipy.constants (exact in SI 
 
 
 def closed_form_T(th1, th2, phi, eps):
-    """Gefen-Imry-Azbel type closed form, physics notes §6.2 [C]."""
+    """Gefen-Imry-Azbel type closed form, docs/physics.md §6.2 [C]."""
     a = (np.sqrt(1 - 2 * eps) - 1) / 2
     b = (np.sqrt(1 - 2 * eps) + 1) / 2
     num = eps**2 * (
@@ -43,7 +43,7 @@ def closed_form_T(th1, th2, phi, eps):
 
 
 def closed_form_t(th1, th2, phi, eps):
-    """Complex amplitude, physics notes §6.2 [C] (AB factor on arm 1, junction 1 -> 2)."""
+    """Complex amplitude, docs/physics.md §6.2 [C] (AB factor on arm 1, junction 1 -> 2)."""
     a = (np.sqrt(1 - 2 * eps) - 1) / 2
     b = (np.sqrt(1 - 2 * eps) + 1) / 2
     s = th1 + th2
@@ -135,10 +135,10 @@ def reference_markov_T(eps, refl):
 @pytest.mark.parametrize("eps", [0.0, 0.1, 0.25, 4 / 9, 0.5])
 def test_junction_unitary_real_symmetric(eps):
     s = junction_smatrix(eps)
-    assert np.allclose(s @ s.conj().T, np.eye(3), atol=1e-14)  # physics notes §13: 1e-14
+    assert np.allclose(s @ s.conj().T, np.eye(3), atol=1e-14)  # docs/physics.md §14: 1e-14
     assert np.array_equal(s, s.T) and np.isrealobj(s)
     a, b = s[1, 1], s[1, 2]
-    # unitarity identities, physics notes §6.1 [C]
+    # unitarity identities, docs/physics.md §6.1 [C]
     assert (a + b) ** 2 + 2 * eps == pytest.approx(1, abs=1e-14)
     assert a * a + b * b + eps == pytest.approx(1, abs=1e-14)
     assert 2 * a * b + eps == pytest.approx(0, abs=1e-14)
@@ -146,7 +146,8 @@ def test_junction_unitary_real_symmetric(eps):
 
 
 def test_griffith_junction():
-    # eps = 4/9: -1/3 on the diagonal, 2/3 off it (physics notes §6.1 [C])
+    # eps = 4/9: -1/3 on the diagonal, 2/3 off it (unitarity of the junction S-matrix;
+    # docs/physics.md §6.1, computed)
     s = junction_smatrix(4 / 9)
     assert np.allclose(np.diag(s), -1 / 3, atol=1e-14)
     assert np.allclose(s[~np.eye(3, dtype=bool)], 2 / 3, atol=1e-14)
@@ -186,7 +187,7 @@ def test_broadcasting_grid():
 @pytest.mark.parametrize(
     ("eps", "phi", "expected"),
     [
-        (4 / 9, 0.0, 0.64),  # T = 16/25, physics notes §6.3 [C]
+        (4 / 9, 0.0, 0.64),  # T = 16/25, docs/physics.md §6.3 [C]
         (4 / 9, np.pi / 2, 8 / 9),  # §6.3 [C]
         (0.5, np.pi / 2, 8 / 9),  # §6.3 [C]
         (0.25, 0.0, 1 / 9),  # §6.3 [C]
@@ -198,14 +199,15 @@ def test_exact_values_quarter_wave(eps, phi, expected):
 
 
 def test_half_flux_quantum_blocks_symmetric_ring():
-    # theta1 = theta2, phi = pi: T = 0 exactly for any eps, k (physics notes §6.3 [C])
+    # theta1 = theta2, phi = pi: T = 0 exactly for any eps, k (closed form of docs/physics.md
+    # §6.2-6.3, computed)
     th = RNG.uniform(0, 30, 500)
     eps = RNG.uniform(0.01, 0.5, 500)
     assert np.max(ring_transmission(th, th, np.pi, eps)) < 1e-12
 
 
 def test_perfect_coupling_symmetric_zero_flux_transmits():
-    # eps = 1/2, theta1 = theta2, phi = 0: T = 1 (physics notes §6.3 [C])
+    # eps = 1/2, theta1 = theta2, phi = 0: T = 1 (closed form of docs/physics.md §6.2-6.3, computed)
     th = RNG.uniform(0.05, 30, 500)
     np.testing.assert_allclose(ring_transmission(th, th, 0.0, 0.5), 1.0, atol=1e-12)
 
@@ -258,7 +260,8 @@ def test_classical_with_scatterers_matches_markov_chain():
 
 
 def test_energy_average_leaves_h2e_with_aas_sign():
-    # physics notes §6.5 [C, qualitative]: L2/L1 = 1.3, eps = 1/2, average over a k window of
+    # docs/physics.md §6.5 [computed, qualitative; AAS sign: Al'tshuler, Aronov, Spivak 1981]: L2/L1
+    # = 1.3, eps = 1/2, average over a k window of
     # 320/L1: the h/2e cosine coefficient ~ -0.127 survives, h/e decays (|h/2e| > 5 |h/e|).
     k = np.linspace(50.0, 370.0, 6401)[:, None]  # units of 1/L1
     phi = np.linspace(0, 2 * np.pi, 64, endpoint=False)[None, :]
@@ -273,7 +276,7 @@ def test_energy_average_leaves_h2e_with_aas_sign():
 # --------------------------------------------------------------------------------- physical ring
 
 
-GAAS = {"effective_mass": 0.067, "fermi_energy": 10.72e-3 * EV}  # physics notes §8.3 GaAs E_F
+GAAS = {"effective_mass": 0.067, "fermi_energy": 10.72e-3 * EV}  # docs/physics.md §8.3 GaAs E_F
 
 
 def test_thermal_weights_kernel_identity():

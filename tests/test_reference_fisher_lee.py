@@ -14,7 +14,7 @@ Sigma_R)^-1, Gamma = i(Sigma - Sigma^dagger) (D. S. Fisher, P. A. Lee, Phys. Rev
 
 The Hamiltonians are built here from the site positions and the documented conventions only:
 hopping -t, Peierls factor exp(i theta_ij) with theta_ij = 2 pi B a^2 ybar (x_i - x_j)/(h/e)
-(electrons, Landau gauge A = (-By, 0), project physics notes 4.2), h/e from scipy.constants;
+(electrons, Landau gauge A = (-By, 0), docs/physics.md §4.2), h/e from scipy.constants;
 flux tube: a phase 2 pi Phi/(h/e) on the bonds crossing a cut drawn by this test. Agreement
 required: 1e-9 (absolute, T is O(1)).
 """
@@ -124,7 +124,7 @@ def test_chain_ring_with_arm_gate_matches_fisher_lee():
 
 def test_symmetric_chain_ring_blocks_at_half_flux_quantum():
     """Symmetric arms, Phi = h/2e: the two arm paths interfere destructively, T = 0 exactly
-    (project physics notes 6.3, any coupling and any k)."""
+    (closed form, docs/physics.md §6.2-6.3, any coupling and any k)."""
     dev, t = _chain_device(32)
     ring = build_ring(dev)
     for e in (0.3, 1.1, 2.2, 3.7):

@@ -21,7 +21,8 @@ def test_flux_quanta_are_codata():
 
 
 def test_period_of_one_square_micron():
-    # physics notes section 1.2 (computed from exact h, e): 1 um^2 <-> 4.135668 mT <-> 241.7989 1/T
+    # docs/physics.md §1.2 (computed from the exact h, e of scipy.constants): 1 um^2 <-> 4.135668 mT
+    # <-> 241.7989 1/T
     assert units.ab_period(1e-12) == pytest.approx(4.135668e-3, rel=1e-6)
     assert units.ab_frequency(1e-12) == pytest.approx(241.7989, rel=1e-6)
     assert units.ab_period(1e-12, order=2) == pytest.approx(4.135668e-3 / 2, rel=1e-6)
@@ -30,12 +31,13 @@ def test_period_of_one_square_micron():
 
 def test_effective_radius_of_gaas_ring():
     # Pedersen et al., Mater. Sci. Eng. B 74, 234 (2000): period 3.3 mT -> r_eff = 0.6316 um
-    # (radius computed in the physics notes from the published period)
+    # (radius computed from the published period, Pedersen et al. 2000; docs/physics.md §2.3)
     assert units.radius_from_period(3.3e-3) == pytest.approx(0.6316e-6, rel=1e-3)
 
 
 def test_hopping_energy_gaas():
-    # t = hbar^2/(2 m* a^2) for m* = 0.067 m_e, a = 5 nm: 22.746 meV (physics notes table, sec. 3)
+    # t = hbar^2/(2 m* a^2) for m* = 0.067 m_e, a = 5 nm: 22.746 meV (closed form with
+    # scipy.constants; docs/physics.md §3)
     t = units.hopping_energy(0.067, 5e-9)
     assert t / constants.e == pytest.approx(22.746e-3, rel=1e-4)
 
@@ -47,7 +49,7 @@ def test_conductance_conversion_roundtrip():
 
 
 def test_magnetic_length():
-    # l_B = 25.656 nm / sqrt(B[T]) (physics notes sec. 1.1, from hbar and e)
+    # l_B = 25.656 nm / sqrt(B[T]) (docs/physics.md §4.3, from hbar and e of scipy.constants)
     assert units.magnetic_length(1.0) == pytest.approx(25.656e-9, rel=1e-4)
     assert units.magnetic_length(0.0) == float("inf")
 

@@ -7,7 +7,7 @@ plotted lattice line is compared with references outside the live-view code:
   sweepers, probes from ``attach_probes``) at every plotted flux, to 1e-10;
 * plain ``kwant.smatrix`` (coherent) or ``kwant.greens_function`` with wide-band self-energy
   terminals plus the floating-probe Kron reduction written here (Büttiker, Phys. Rev. Lett. 57,
-  1761 (1986); engine notes §3 (B)) on a ring assembled by a kwant ``Builder`` site by site (the
+  1761 (1986); docs/engine.md §3 (B)) on a ring assembled by a kwant ``Builder`` site by site (the
   reference path of the builder, not the bulk path the live view uses), at a few fluxes;
 * Onsager-Büttiker reciprocity of a two-terminal conductance, G(Phi) = G(-Phi) (Büttiker, IBM
   J. Res. Dev. 32, 317 (1988)), on the symmetric plotted grid, which the live view does not
@@ -67,7 +67,7 @@ def _reference_fsyst(ex):
 
 
 class _WideBandTerminal:
-    """Self-energy-only kwant lead -i eta/2 on one site (engine notes §3 (B))."""
+    """Self-energy-only kwant lead -i eta/2 on one site (docs/engine.md §3 (B))."""
 
     parameters = frozenset()
 

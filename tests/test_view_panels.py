@@ -2,7 +2,7 @@
 
 Each test sets control ``.value``s like a user and checks the recomputed plotted data or the
 numbers shown against references outside the panel code: the closed-form single-channel ring
-(physics notes §6.2 [C]), Landauer sums computed here, the mean free path l = hbar kF mu/e
+(docs/physics.md §6.2 [C]), Landauer sums computed here, the mean free path l = hbar kF mu/e
 (§8.3 [C]), exp(-L/L_phi) and N^-1/2 scaling (§9.2-9.4), sinusoid rms = A/sqrt(2) (§12.5).
 Invalid settings must show the validation message and keep the last good plot.
 """
@@ -26,7 +26,7 @@ M_GAAS = 0.067  # GaAs effective mass (Yu & Cardona table, as in the Material pr
 
 
 def closed_T(th1, th2, phi, eps):
-    """Two-lead ring transmission, physics notes §6.2 [C] (independent of the network solver)."""
+    """Two-lead ring transmission, docs/physics.md §6.2 [C] (independent of the network solver)."""
     a = (np.sqrt(1 - 2 * eps) - 1) / 2
     b = (np.sqrt(1 - 2 * eps) + 1) / 2
     num = eps**2 * (
@@ -194,7 +194,7 @@ def test_explorer_full_tight_binding_with_preview():
     np.testing.assert_allclose(line.get_ydata(), full.conductance)
     np.testing.assert_allclose(np.asarray(line.get_xdata()) / 1e3, full.field)
     assert "preview" in ex.artists  # both results drawn together
-    # Onsager, two terminals: G(B) = G(-B) (physics notes §5.3)
+    # Onsager, two terminals: G(B) = G(-B) (docs/physics.md §5.3)
     np.testing.assert_allclose(full.conductance, full.conductance[::-1], atol=1e-8)
     # the zero-field point agrees with the core's kwant-based conductance of the same ring
     ring = build_ring(build_device(ex.params), seed=0)

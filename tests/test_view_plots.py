@@ -2,7 +2,7 @@
 
 Checks: data are drawn in the stated display units (B in mT/T, radius in µm, sites in nm),
 axis labels carry units, period marks are exactly one period long, the h/e and h/2e bands
-sit where given, the area axis converts with h/e (1 µm^2 <-> 241.7989 1/T, physics notes §1.2
+sit where given, the area axis converts with h/e (1 µm^2 <-> 241.7989 1/T, docs/physics.md §1.2
 [C]), figures are pyplot-free and render to PNG, and computation modules stay free of
 matplotlib/ipywidgets.
 """
@@ -78,7 +78,7 @@ def test_spectrum_bands_and_area_axis():
     (sec,) = ax.child_axes
     ax.figure.canvas.draw()
     lo, hi = sec.get_xlim()
-    # area = f h/e: 1 µm^2 <-> 241.7989 1/T (physics notes §1.2 [C])
+    # area = f h/e: 1 µm^2 <-> 241.7989 1/T (computed from h/e; docs/physics.md §1.2)
     assert hi == pytest.approx(1.3 * 560.0 * H_OVER_E * 1e12, rel=1e-9)
     assert 241.7989 * H_OVER_E * 1e12 == pytest.approx(1.0, rel=1e-6)
     assert "µm" in sec.get_xlabel()

@@ -15,7 +15,7 @@ Discretisation
 The square lattice (spacing a, hopping ``t = hbar^2/(2 m* a^2)``, band [0, 8t]; chain: [0, 4t])
 reproduces the parabolic band with relative error ``1 - 2(1 - cos ka)/(ka)^2 ~ (ka)^2/12``
 along the axes (half that along diagonals); at the default bound ``kF a <= 0.5`` this is
-2.07 % (see the project physics notes, section 3). With ``lattice_spacing=None`` the spacing is
+2.07 % (see docs/physics.md §3). With ``lattice_spacing=None`` the spacing is
 ``a = min(max_kfa/kF, narrowest arm/3, r_in/3)`` (so that arms are at least 3 sites wide); a
 user spacing with ``kF a > max_kfa`` triggers a :class:`DiscretisationWarning` stating the error.
 """
@@ -45,7 +45,7 @@ __all__ = [
 
 FIELD_MODES: tuple[str, ...] = ("uniform", "flux_tube")
 
-# Memory model (engine notes section 2.2, 30 010-site ring: Builder ~12 MiB + finalized ~5 MiB,
+# Memory model (docs/engine.md §2.2, 30 010-site ring: Builder ~12 MiB + finalized ~5 MiB,
 # i.e. ~590 B per site; MUMPS LU with AMD ordering 27 MB for nnz(LU) = 1.06e6, ~26 B per entry;
 # nnz(LU) ~ 0.2 N^1.5 for these quasi-1D rings). An estimate, good to a factor ~2.
 _BYTES_PER_SITE = 590.0

@@ -9,7 +9,7 @@ published_ring(name)
 PUBLISHED_RINGS
     Names available.
 
-Tags follow the project physics notes: "V" = seen in the published abstract, "M" = from memory
+Tags follow docs/physics.md: "V" = seen in the published abstract, "M" = from memory
 (use with a loose tolerance), "C" = computed here from the other numbers.
 """
 

@@ -23,10 +23,10 @@ Reproducibility
 ---------------
 The value on a site depends only on (its integer lattice coordinates, seed, stream): a
 realisation is identical on the sites two geometries share, and independent of site order,
-platform and kwant version (engine notes section 5). Energies here are in units of the hopping
+platform and kwant version (docs/engine.md §5). Energies here are in units of the hopping
 t, lengths in lattice spacings a, unless stated.
 
-Born approximation (physics notes 8.2)
+Born approximation (docs/physics.md §8.2)
 --------------------------------------
 For uncorrelated on-site disorder with ``<V^2> = W^2/12`` the golden-rule rate is
 
@@ -42,7 +42,8 @@ Thouless' localisation length ``96 (t/W)^2 sin^2 ka = 4l``).
 Sources: golden rule for the Anderson model as in T. Ando, Phys. Rev. B 44, 8017 (1991) [M];
 quasi-1D mean transmission ``<T>/N = l'/(L + l')`` with ``l' = (pi/2) l`` in 2D:
 C. W. J. Beenakker, H. van Houten, Solid State Physics 44, 1 (1991) [M]. Check values (project
-physics notes, computed): W = t, E = 0.5t gives nu = 0.0849772/t, l = 30.26 a (continuum 33.941 a).
+docs/physics.md, computed): W = t, E = 0.5t gives nu = 0.0849772/t, l = 30.26 a (continuum 33.941
+a).
 """
 
 from __future__ import annotations
@@ -218,7 +219,7 @@ def strength_for_mean_free_path(mean_free_path: float, energy: float, *, dim: in
 def mean_free_path_from_mobility(mobility: float, fermi_wavevector: float) -> float:
     """Elastic mean free path ``l = hbar kF mu/e`` in m (mu in m^2/(V s), kF in 1/m).
 
-    From ``mu = e tau/m*`` and ``l = v_F tau = hbar kF tau/m*`` (physics notes 8.3).
+    From ``mu = e tau/m*`` and ``l = v_F tau = hbar kF tau/m*`` (docs/physics.md §8.3).
     """
     mu = check_positive("mobility", mobility, "m^2/(V s)")
     kf = check_positive("fermi_wavevector", fermi_wavevector, "1/m")

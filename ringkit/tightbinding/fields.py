@@ -17,7 +17,7 @@ flux_per_plaquette(B, lattice_spacing)
 check_field_regime(B, lattice_spacing, fermi_wavevector, arm_width)
     Warn (:class:`FieldRegimeWarning`) about lattice artefacts or cyclotron orbits.
 
-Convention (project physics notes, section 4.1)
+Convention (docs/physics.md §4.1)
 -----------------------------------------------
 ``H_ij`` is the amplitude to hop from site j to site i; carriers are electrons (charge -e);
 B is along +z. The Peierls factor of ``H_ij = -t exp(i theta_ij)`` is
@@ -31,7 +31,7 @@ Hence the product of hopping factors around any loop traversed counter-clockwise
 * Uniform field: Landau gauge ``A = (-B y, 0)``; for a straight bond the midpoint rule is exact:
   ``theta_ij = +(2 pi B/Phi0) * ybar * (x_i - x_j)``. A is invariant along x, so the same gauge
   serves leads along +-x; ringkit keeps the leads field-free (hoppings -t). Switching A_x off
-  at the system/lead boundary creates no spurious field because A_y = 0 (engine notes 1.2):
+  at the system/lead boundary creates no spurious field because A_y = 0 (docs/engine.md §1.2):
   the field is B on every plaquette of the scattering region and 0 from the lead interface out.
 * Flux tube: B = 0 on every bond, flux Phi through the hole only. A ray from the ring centre at
   angle ``cut_angle`` is the branch cut; a hop j -> i crossing it counter-clockwise carries
@@ -62,7 +62,7 @@ __all__ = [
 ]
 
 MAX_FLUX_PER_PLAQUETTE = 0.01
-"""Warn above this flux per plaquette (l_B < 4a; physics notes 4.3, common practice)."""
+"""Warn above this flux per plaquette (l_B < 4a; docs/physics.md §4.3, common practice)."""
 
 _TWO_PI = 2.0 * math.pi
 
@@ -179,7 +179,7 @@ def check_field_regime(
     """Warn when the field leaves the regime of the lattice ring model; return the messages.
 
     * Lattice artefacts: flux per plaquette above :data:`MAX_FLUX_PER_PLAQUETTE`, i.e. the
-      magnetic length ``l_B = sqrt(hbar/(e|B|))`` below ~4 lattice spacings (physics notes 4.3).
+      magnetic length ``l_B = sqrt(hbar/(e|B|))`` below ~4 lattice spacings (docs/physics.md §4.3).
     * Cyclotron radius ``r_c = hbar kF/(e|B|)`` smaller than the widest arm: skipping/edge
       orbits, the AB contrast is suppressed (Timp et al., Surf. Sci. 196, 68 (1988)).
     """

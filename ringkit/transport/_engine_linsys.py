@@ -226,7 +226,7 @@ class MumpsKernel:
     method : {"schur", "lu"}
     ordering : str
         MUMPS fill-reducing ordering; AMD gives half the LU fill of SCOTCH on quasi-1D rings
-        (engine notes 2.2).
+        (docs/engine.md §2.2).
     schur_vars : ndarray, optional
         Variables of the Schur complement (``method="schur"``).
     """

@@ -2,7 +2,7 @@
 
 kwant is asked for its own sparse Hamiltonian at a few values of the field parameter; every
 nonzero must then satisfy ``H(v)_k = H(0)_k * exp(i v c_k)`` with a real coefficient ``c_k``
-(engine notes section 2.1). The coefficients are found numerically, so any builder whose hoppings
+(docs/engine.md §2.1). The coefficients are found numerically, so any builder whose hoppings
 carry Peierls phases linear in one scalar parameter works unchanged (field in tesla, flux in Wb,
 flux per plaquette, ...). The model is verified against kwant at an independent value with
 phases beyond pi before it is used.

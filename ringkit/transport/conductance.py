@@ -15,7 +15,7 @@ gate_sweep(ring, potentials, *, B=0.0, flux=0.0, energy=None, spin_resolved=Fals
 Physics
 -------
 Landauer formula ``G = (e^2/h) sum_sigma T_sigma`` (R. Landauer, Phil. Mag. 21, 863 (1970));
-T from kwant's scattering matrix (MUMPS with AMD ordering, engine notes 2.2), at zero
+T from kwant's scattering matrix (MUMPS with AMD ordering, docs/engine.md §2.2), at zero
 temperature (thermal averaging: :mod:`ringkit.transport.thermal`). Without spin-orbit coupling
 the spins are independent and, by default, degenerate: ``G = 2T``. With ``zeeman=True`` the
 Zeeman energy ``-sigma g mu_B B/2`` (uniform mode, g from the material) shifts each spin's band

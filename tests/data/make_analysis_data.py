@@ -65,7 +65,7 @@ def _uneven_grid(rng: np.random.Generator, lo: float, hi: float, n: int) -> np.n
 
 
 def thermal_factor(temperature: float, energy: float) -> float:
-    """x/sinh(x) with x = pi k_B T / E_c (physics notes §5.4)."""
+    """x/sinh(x) with x = pi k_B T / E_c (docs/physics.md §5.4)."""
     x = np.pi * K_B * temperature / energy
     return float(x / np.sinh(x))
 
