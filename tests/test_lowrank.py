@@ -9,10 +9,8 @@ Every check compares against something computed without the code under test:
   (1981)), for dephasing probes;
 * exact symmetries: period h/e of a pure Aharonov-Bohm flux and independence of the cut position
   (docs/physics.md §4.5), two-terminal reciprocity G(flux) = G(-flux) (Büttiker, Phys. Rev. Lett.
-  57,
-  1761 (1986); docs/physics.md §5.3), current conservation of the conductance matrix
-  (docs/physics.md
-  5.2);
+  57, 1761 (1986); docs/physics.md §5.3), current conservation of the conductance matrix
+  (docs/physics.md §5.2);
 * CODATA h/e from scipy.constants for the detected phase per unit flux.
 
 The test systems come from tests/lowrank_systems.py (plain kwant, no ringkit code).
