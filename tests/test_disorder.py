@@ -94,8 +94,8 @@ def test_realisation_survives_geometry_changes_on_shared_sites():
 # ----------------------------------------------------------------------------- Born values
 def test_lattice_dos_and_fermi_speed_against_k_space_sampling():
     """Check values of docs/physics.md §3 and §14 (elliptic-integral DOS of the square lattice,
-    computed) and an
-    independent count of states on a 2000 x 2000 k-grid (both spins excluded: per spin)."""
+    computed) and an independent count of states on a 2000 x 2000 k-grid (both spins excluded:
+    per spin)."""
     assert lattice_dos(0.5) == pytest.approx(0.0849772, rel=1e-6)
     assert lattice_dos(1e-9) == pytest.approx(1 / (4 * math.pi), rel=1e-6)  # band bottom
     assert lattice_dos(8 - 0.5) == pytest.approx(lattice_dos(0.5), rel=1e-12)

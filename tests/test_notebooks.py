@@ -1,10 +1,9 @@
 """Execute the notebooks in notebooks/ with the venv's own kernel (nbclient, kernel "python3").
 
 The kernel is started from this interpreter's environment with MPLBACKEND removed (a
-pre-set MPLBACKEND=Agg silently suppresses figure output in kernels; see DEVELOPERS.md, "Notebooks
-and panels"
-§2). Each notebook must run without errors, produce its PNG figures and its widgets, and
-the committed file must be stored without outputs.
+pre-set MPLBACKEND=Agg silently suppresses figure output in kernels; see DEVELOPERS.md,
+"Notebooks and panels"). Each notebook must run without errors, produce its PNG figures and its
+widgets, and the committed file must be stored without outputs.
 """
 
 from __future__ import annotations

@@ -41,9 +41,9 @@ band [0, 4t], ``E = 2t(1 - cos ka)``): ``nu = 1/(2 pi t sin ka)``, ``v = 2 t a s
 Thouless' localisation length ``96 (t/W)^2 sin^2 ka = 4l``).
 Sources: golden rule for the Anderson model as in T. Ando, Phys. Rev. B 44, 8017 (1991) [M];
 quasi-1D mean transmission ``<T>/N = l'/(L + l')`` with ``l' = (pi/2) l`` in 2D:
-C. W. J. Beenakker, H. van Houten, Solid State Physics 44, 1 (1991) [M]. Check values (project
-docs/physics.md, computed): W = t, E = 0.5t gives nu = 0.0849772/t, l = 30.26 a (continuum 33.941
-a).
+C. W. J. Beenakker, H. van Houten, Solid State Physics 44, 1 (1991) [M]. Check values
+(docs/physics.md §8.2, computed): W = t, E = 0.5t gives nu = 0.0849772/t, l = 30.26 a (continuum
+33.941 a).
 """
 
 from __future__ import annotations
