@@ -29,7 +29,7 @@ from ringkit.study import default_study_text, load_config, parse_config
 
 RINGKIT = [sys.executable, "-m", "ringkit"]
 
-# A ring of ~300 sites: r_out/r_in = 1.4 keeps the h/e and h/2e bands apart (physics notes 1.3);
+# A ring of ~300 sites: r_out/r_in = 1.4 keeps the h/e and h/2e bands apart (docs/physics.md §1.3);
 # 7 nm lattice (a coarse-lattice note is expected and harmless here).
 TINY = """
 [study]
