@@ -280,7 +280,8 @@ GAAS = {"effective_mass": 0.067, "fermi_energy": 10.72e-3 * EV}  # docs/physics.
 
 
 def test_thermal_weights_kernel_identity():
-    # int cos(a E) (-df/dE) dE = x/sinh(x), x = pi a kT; a kT = 1 -> 0.272029 (notes §5.4 [C])
+    # int cos(a E) (-df/dE) dE = x/sinh(x), x = pi a kT; a kT = 1 -> 0.272029
+    # (closed form, docs/physics.md §5.4, computed)
     kt = K_B * 1.0
     e = np.linspace(-40 * kt, 40 * kt, 4001)
     w = thermal_weights(e, 0.0, 1.0)
