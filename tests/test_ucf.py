@@ -21,6 +21,7 @@ import numpy as np
 import pytest
 from engine_systems import UcfTask
 
+from ringkit.analysis.ensemble_stats import variance_with_error
 from ringkit.transport.ensemble import run_ensemble
 
 
@@ -31,7 +32,11 @@ def test_ucf_variance_orthogonal_and_unitary():
     g = res.values.reshape(-1, 2)  # (realizations * energies, [beta=1, beta=2])
     n = len(g)
     assert n == 208
-    var = g.var(axis=0, ddof=1)
+    # through the ensemble-statistics API (docs/amplitude-statistics.md): the variance with its
+    # bootstrap error, which must agree with the Gaussian value sqrt(2/(n-1)) var within 30 %
+    var, var_err = variance_with_error(g, seed=0)
+    assert np.allclose(var, g.var(axis=0, ddof=1), rtol=1e-12)
+    assert var_err / var == pytest.approx(np.sqrt(2.0 / (n - 1)), rel=0.3)
     tol = 2.5 * np.sqrt(2.0 / (n - 1)) + 0.05
     assert var[0] / (2 / 15) == pytest.approx(1.0, abs=tol)  # beta = 1: 2/15
     assert var[1] / (1 / 15) == pytest.approx(1.0, abs=tol)  # beta = 2: 1/15
