@@ -51,7 +51,7 @@ points = 96
 temperature = ["0 K", "1 K"]
 dephasing_length = ["inf", "300 nm"]
 [thermal]
-tol = 1e-2
+tol = 0.1
 [dephasing]
 probes = 8
 [ensemble]
@@ -177,23 +177,27 @@ def test_study_matches_plain_kwant(reference, tiny_file):
         i = int(np.argmin(np.abs(ds["B"].values - b)))
         assert got0[i] == pytest.approx(g_kwant(mu, b), abs=1e-8)
     # 1 K: adaptive quadrature (scipy.integrate.quad) of the exact kwant G(E) against
-    # -df/dE = 1/(4 kT cosh^2((E - mu)/2kT)) (standard result), on |E - mu| <= 20 kT (kernel
-    # mass outside: 2/(1 + e^20) = 4e-9); the study's error goal is tol = 1e-2 e^2/h (TINY)
+    # -df/dE = 1/(4 kT cosh^2((E - mu)/2kT)) (standard result), on |E - mu| <= 12 kT (kernel
+    # mass outside: 2/(1 + e^12) = 1.2e-5, G <= 2 e^2/h here). TINY's error goal is loose
+    # (tol = 0.1 e^2/h, the policy's cheapest); the check is that the error *estimate* stored
+    # with the result holds
     from scipy.integrate import quad
 
     kt = sc.k * 1.0
     got1 = ds["G"].sel(temperature=1.0).isel(realization=1, dephasing_length=0).values.ravel()
     err1 = ds["thermal_error"].sel(temperature=1.0).isel(realization=1, dephasing_length=0)
-    assert 0 < float(err1.values.max()) <= 1e-2
-    for b in fields[:2]:
-        i = int(np.argmin(np.abs(ds["B"].values - b)))
+    est = float(err1.values.max())
+    assert 0 < est <= 0.1
+    b = fields[1]
+    i = int(np.argmin(np.abs(ds["B"].values - b)))
 
-        def integrand(x: float, b=b) -> float:  # x = (E - mu)/kT
-            return g_kwant(mu + x * kt, b) / (4 * np.cosh(x / 2) ** 2)
+    def integrand(x: float) -> float:  # x = (E - mu)/kT
+        return g_kwant(mu + x * kt, b) / (4 * np.cosh(x / 2) ** 2)
 
-        expected, qerr = quad(integrand, -20, 20, epsabs=1e-5, limit=400)
-        assert qerr < 1e-4
-        assert got1[i] == pytest.approx(expected, abs=1e-2 + qerr)
+    expected, qerr = quad(integrand, -12, 12, epsabs=1e-3, limit=100)
+    qerr += 2.0 * 1.2e-5 * 2  # window tails
+    assert qerr < 1e-2
+    assert got1[i] == pytest.approx(expected, abs=est + qerr)
 
 
 def test_energy_and_gate_axes_match_plain_kwant(tmp_path):
@@ -507,7 +511,7 @@ def test_cost_estimate_is_printed_and_long_studies_need_yes(tiny_file, tmp_path)
     rc, _, err = run_cli(
         "study", str(tiny_file), "--out", str(tmp_path / "small"), "--confirm-above", "0",
         "--yes", "--set", "ensemble.realizations=1", "--set", 'sweep.dephasing_length="inf"',
-        "--set", 'executor.kind="serial"',
+        "--set", 'sweep.temperature="0 K"', "--set", 'executor.kind="serial"',
     )  # fmt: skip
     assert rc == 0, err
     assert "cost: at least " in err and " energy sweeps" in err
