@@ -25,6 +25,7 @@ from ringkit.analysis.ensemble_stats import (
 from ringkit.device import Material, RingDevice, RingGeometry
 from ringkit.transport.amplitude_stats import (
     amplitude_statistics,
+    amplitude_vs_radius,
     ensemble_statistics,
 )
 from ringkit.transport.ensemble import SerialExecutor, default_executor
@@ -204,3 +205,42 @@ def test_ensemble_average_h_over_e_falls_as_inverse_sqrt_n():
     )
     assert out["slope_err"] < 0.2  # the check can tell -1/2 from 0 and from -1
     assert abs(out["slope"] + 0.5) < 2.5 * out["slope_err"]
+
+
+def test_amplitude_versus_radius_bands_and_fitted_prefactors():
+    from ringkit.analysis.scaling import predict_amplitudes
+
+    radii = (150e-9, 200e-9)
+    mat = Material.preset("GaAs", mean_free_path=3e-7)
+    model = dict(
+        lphi=math.inf,
+        temperature=0.0,
+        mean_free_path=3e-7,
+        fermi_velocity=mat.fermi_velocity,
+        n_modes=2,
+    )
+    out = amplitude_vs_radius(
+        _device,
+        radii,
+        lambda dev: FLUX * PHI0,
+        rule=StoppingRule.fixed(8),
+        executor=SerialExecutor(),
+        fit_kwargs=model,
+    )
+    s0 = out["statistics"][0]
+    assert out["he_median"][0] == s0.quantile("amplitude_he_rms", 0.5)[0]
+    assert np.all(out["he_q16"] <= out["he_median"]) and np.all(out["he_median"] <= out["he_q84"])
+    assert list(out["n_realizations"]) == [8, 8] and out["stop_reason"] == ["fixed_size"] * 2
+    fit = out["fit"]
+    assert fit is not None and fit["coherent_amplitude"] is not None
+    assert fit["coherent_amplitude_err"] > 0  # no prefactor without its uncertainty
+    # the fitted law passes through the medians within their scatter (weighted fit, 2 points)
+    pred = predict_amplitudes(
+        np.array(radii),
+        **model,
+        conductance=out["mean_g_median"],
+        coherent_amplitude=fit["coherent_amplitude"],
+        aas_amplitude=fit["aas_amplitude"] or 1.0,
+    )
+    resid = (pred["amplitude_he_rms"].values - out["he_median"]) / out["he_median_err"]
+    assert np.all(np.abs(resid) < 4)
