@@ -253,3 +253,29 @@ def test_bad_tol_budget_warning_and_thouless_energy():
     assert thouless_energy(1e-6, fermi_velocity=2e5) == pytest.approx(HBAR * 2e5 / 1e-6)
     with pytest.raises(ParameterError, match="exactly one"):
         thouless_energy(1e-6)
+
+
+def test_explorer_full_computation_uses_the_same_policy():
+    from ringkit.view.panels.explorer import ExplorerParams
+    from ringkit.view.panels.explorer_full import build_device, explorer_full
+
+    params = ExplorerParams(
+        radius=0.1e-6,
+        width=0.04e-6,
+        temperature=2.0,
+        phase_coherence_length=None,
+        field_mode="flux_tube",
+        lattice_spacing=8e-9,
+        field_min=-0.2,
+        field_max=0.2,
+        mobility=None,
+    )
+    full = explorer_full(params, tol=1e-2)
+    assert any("estimated error" in n for n in full.notes)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # coarse lattice (kF a = 1.1): not the subject here
+        ring = build_ring(build_device(params), seed=params.seed)
+    ds = field_sweep(ring, full.field * ring.loop_area, temperature=2.0, thermal_tol=1e-2)
+    # same device, same policy: the same energies and the same G (values exact to 1e-10)
+    assert ds.attrs["n_energies"] == full.energies.size
+    np.testing.assert_allclose(ds["G"].values, full.conductance, rtol=0, atol=1e-9)
