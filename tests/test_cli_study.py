@@ -389,7 +389,7 @@ def test_flux_tube_study_has_period_h_over_e(tmp_path):
 def test_demo_reduced(tmp_path):
     out = tmp_path / "demo"
     rc, stdout, _ = run_cli(
-        "demo", "--out", str(out), "--quiet",
+        "demo", "--out", str(out), "--quiet", "--confirm-above", "0",  # the demo never asks
         "--set", "ensemble.realizations=1", "--set", "field.points=64",
         "--set", 'sweep.temperature="0 K"', "--set", 'sweep.dephasing_length="inf"',
         "--set", 'executor.kind="serial"', "--set", 'output.report="html"',

@@ -1,4 +1,4 @@
-"""``ringkit demo --out DIR``: run the embedded default study (a few minutes on 2 cores)."""
+"""``ringkit demo --out DIR``: run the embedded default study (see docs/studies.md for its cost)."""
 
 from __future__ import annotations
 
@@ -19,9 +19,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "demo",
         help="run the built-in demonstration study",
         description=(
-            "Run ringkit's default study: an invented GaAs ring with a disorder ensemble at "
-            "two temperatures and two phase-coherence lengths (print it with "
-            "`ringkit example-config`). Resumable like `ringkit study`."
+            "Run ringkit's default study: an invented multi-mode GaAs ring (mean radius "
+            "400 nm) in a uniform field, with a disorder ensemble at two temperatures and "
+            "dephasing probes (print it with `ringkit example-config`). The cost estimate is "
+            "printed but not asked for (--yes is implied). Resumable like `ringkit study`."
         ),
     )
     add_run_options(p, out_default=DEFAULT_OUT)
@@ -38,4 +39,5 @@ def run(args: argparse.Namespace) -> int:
         )
     except ValueError as err:
         raise UserError(str(err)) from err
+    args.yes = True  # the demo was asked for by name: print the estimate, do not ask again
     return run_and_report(config, args)
