@@ -260,17 +260,15 @@ class RingDevice:
         geo = self.geometry
         stub = self.lead_stub
         if geo.shape == "chain":
-            n = self.n_chain_sites + 2 * stub
+            n = self.n_chain_sites + geo.n_leads * stub
         else:
-            ring = (geo.area_outer - geo.area_inner) / a**2
-            lw = float(geo.lead_width)
+            n = (geo.area_outer - geo.area_inner) / a**2
             xo = geo.outer_extent
-            stub_len = 0.0
-            for side in (0, 1):
-                yc = abs(geo.lead_center(side))
+            for idx in range(geo.n_leads):  # every lead's stub (docs/multiterminal.md)
+                lw = float(geo.lead_width_of(idx))
+                yc = abs(geo.lead_center(idx))
                 inner_x = math.sqrt(max(xo**2 - (yc + lw / 2) ** 2, 0.0))
-                stub_len += stub * a + (xo - inner_x)
-            n = ring + (lw / a + 1) * stub_len / a
+                n += (lw / a + 1) * (stub * a + (xo - inner_x)) / a
         n = int(math.ceil(n))
         mem = (
             _BASE_PROCESS_BYTES

@@ -68,6 +68,7 @@ __all__ = [
     "plot_background",
     "plot_amplitude_scaling",
     "plot_twin",
+    "plot_resistance_configs",
 ]
 
 _ORDER_NAMES = {1: "h/e", 2: "h/2e"}
@@ -420,6 +421,31 @@ def plot_ring_sketch(
         else:
             ax.set_xlabel("x (nm)")
             ax.set_ylabel("y (nm)")
+    return ax
+
+
+def plot_resistance_configs(ds, ax: Axes | None = None) -> Axes:
+    """R_mn,kl(B) in ohm of every configuration of a ``resistance_field_sweep`` dataset.
+
+    One line per configuration (label ``R_mn,kl``), field in the unit that suits the sweep
+    (flux sweeps in h/e). docs/multiterminal.md.
+    """
+    from ringkit.contacts import Contacts
+
+    ax = _axes(ax, size=(6.0, 3.6))
+    with style_context():
+        if "B" in ds.coords:
+            x = np.asarray(ds["B"].values, dtype=float)
+            unit = field_unit_for(x)
+            xs, xlabel = x * field_scale(unit), f"B ({unit})"
+        else:
+            xs, xlabel = np.asarray(ds["flux"].values, dtype=float) / PHI0, "Φ (h/e)"
+        for cfg in ds["config"].values:
+            ax.plot(xs, ds["R_ohm"].sel(config=cfg).values, lw=1.0,
+                    label=Contacts.parse(str(cfg)).label)  # fmt: skip
+        ax.set_xlabel(xlabel)
+        ax.set_ylabel("R (Ω)")
+        ax.legend(fontsize=8)
     return ax
 
 
