@@ -30,7 +30,8 @@ import numpy as np
 
 from ringkit.analysis.ensemble_stats import StoppingRule
 from ringkit.device import Material, RingDevice, RingGeometry
-from ringkit.transport.amplitude_stats import amplitude_statistics, amplitude_vs_radius
+from ringkit.transport.amplitude_size import amplitude_vs_radius
+from ringkit.transport.amplitude_stats import amplitude_statistics
 from ringkit.transport.ensemble import default_executor
 from ringkit.units import PHI0
 

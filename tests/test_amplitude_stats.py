@@ -23,9 +23,9 @@ from ringkit.analysis.ensemble_stats import (
     trace_amplitudes,
 )
 from ringkit.device import Material, RingDevice, RingGeometry
+from ringkit.transport.amplitude_size import amplitude_vs_radius
 from ringkit.transport.amplitude_stats import (
     amplitude_statistics,
-    amplitude_vs_radius,
     ensemble_statistics,
 )
 from ringkit.transport.ensemble import SerialExecutor, default_executor

@@ -10,19 +10,20 @@ stops when every requested quantile's bootstrap error meets the :class:`Stopping
 result depends only on the seeds, so it is identical for every executor and worker count.
 
 :func:`amplitude_statistics` is the device-level entry point (device, T, L_phi, field window);
-:func:`amplitude_vs_radius` repeats it over radii and fits the semi-analytic law
-(:func:`ringkit.analysis.scaling_fit.fit_amplitude_prefactors`) through the medians.
+:func:`ringkit.transport.amplitude_size.amplitude_vs_radius` repeats it over radii and fits
+the semi-analytic law (:func:`ringkit.analysis.scaling_fit.fit_amplitude_prefactors`) through
+the medians.
 docs/amplitude-statistics.md describes conventions and measured costs.
 
 Public API
 ----------
-RingAmplitudeTask, ensemble_statistics, amplitude_statistics, AmplitudeStatistics,
-amplitude_vs_radius
+RingAmplitudeTask, ensemble_statistics, amplitude_statistics, AmplitudeStatistics
 """
 
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import math
 import time
 import warnings
@@ -48,7 +49,6 @@ __all__ = [
     "AmplitudeStatistics",
     "ensemble_statistics",
     "amplitude_statistics",
-    "amplitude_vs_radius",
 ]
 
 #: Trailing columns of a RingAmplitudeTask row after G(B).
@@ -111,6 +111,7 @@ class RingAmplitudeTask:
             "task": "ringkit.transport.amplitude_stats.RingAmplitudeTask",
             "device": repr(self.device),
             "fields": [repr(float(vals[0])), repr(float(vals[-1])), len(vals)],
+            "fields_sha256": hashlib.sha256(vals.tobytes()).hexdigest(),
             "temperature_K": repr(float(self.temperature)),
             "l_phi_m": repr(self.l_phi),
             "energy_J": repr(self.fermi_energy),
@@ -390,65 +391,4 @@ def amplitude_statistics(
         {"field_mode": device.field_mode, "r_in_m": r_in, "r_mean_m": r_mean, "r_out_m": r_out}
     )
     out.info.update({"temperature_K": float(temperature), "l_phi_m": repr(l_phi)})
-    return out
-
-
-def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **kwargs) -> dict:
-    """Amplitude quantile bands versus ring radius and the semi-analytic law fitted through them.
-
-    Parameters
-    ----------
-    make_device : callable
-        ``make_device(radius) -> RingDevice`` (same material, width, field mode).
-    radii : sequence of float
-        Mean radii in m.
-    make_fields : callable
-        ``make_fields(device) -> fields`` (T or Wb).
-    fit_kwargs : dict, optional
-        Model keywords for :func:`fit_amplitude_prefactors` (``lphi``, ``temperature``,
-        ``mean_free_path``, ``fermi_velocity``, ``n_modes``, ...); the simulated median mean G
-        per radius is passed as ``conductance`` unless given.
-    **kwargs
-        Of :func:`amplitude_statistics` (temperature, l_phi, rule, executor, ...).
-
-    Returns
-    -------
-    dict
-        ``radius`` (m); for ``he`` and ``h2e``: ``{name}_q16``, ``{name}_median``,
-        ``{name}_q84`` with ``*_err``; ``mean_g_median``; ``n_realizations``, ``stop_reason``
-        per radius; ``fit`` (prefactors with errors, chi2, unconstrained; None if the fit
-        could not run); ``statistics`` (the AmplitudeStatistics per radius).
-    """
-    from ringkit.analysis.scaling_fit import fit_amplitude_prefactors
-
-    r = np.asarray(radii, dtype=float)
-    q = kwargs.setdefault("quantiles", DEFAULT_QUANTILES)
-    if not (np.any(np.isclose(q, 0.5)) and len(q) == 3):
-        raise ParameterError("quantiles", q, "must be three probabilities including 0.5")
-    stats = []
-    for radius in r:
-        dev = make_device(float(radius))
-        stats.append(amplitude_statistics(dev, make_fields(dev), **kwargs))
-    out: dict = {"radius": r, "statistics": stats}
-    for j, name in ((0, "he"), (1, "h2e")):
-        for k, lab in enumerate(("q16", "median", "q84")):
-            out[f"{name}_{lab}"] = np.array([s.quantiles[j, k] for s in stats])
-            out[f"{name}_{lab}_err"] = np.array([s.quantile_errors[j, k] for s in stats])
-    out["mean_g_median"] = np.array([s.quantiles[2, 1] for s in stats])
-    out["n_realizations"] = np.array([s.n_realizations for s in stats])
-    out["stop_reason"] = [s.stop_reason for s in stats]
-    fk = dict(fit_kwargs or {})
-    fk.setdefault("conductance", out["mean_g_median"])
-    try:
-        out["fit"] = fit_amplitude_prefactors(
-            r,
-            amplitude_he=out["he_median"],
-            amplitude_he_err=out["he_median_err"],
-            amplitude_h2e=out["h2e_median"],
-            amplitude_h2e_err=out["h2e_median_err"],
-            **fk,
-        )
-    except ParameterError as err:  # reported, not hidden
-        out["fit"] = None
-        out["fit_error"] = str(err)
     return out
