@@ -341,7 +341,7 @@ def test_dask_executor_gives_identical_numbers(reference, tiny_file, tmp_path):
     distributed = pytest.importorskip("distributed")
     out = tmp_path / "dask"
     with distributed.LocalCluster(
-        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None
+        n_workers=1, threads_per_worker=1, processes=False, dashboard_address=":0"
     ) as cluster:
         rc, _, err = run_cli(
             "study", str(tiny_file), "--out", str(out), "--quiet",

@@ -171,7 +171,7 @@ def _dask_executor(address: str | None, n_workers: int) -> Iterator[Executor]:
                 n_workers=n_workers,
                 threads_per_worker=1,
                 processes=True,
-                dashboard_address=None,
+                dashboard_address=":0",  # a free port: never clashes with another run
                 host="127.0.0.1",
             ) as cluster,
             Client(cluster) as client,
