@@ -34,7 +34,7 @@ import kwant.solvers.mumps
 import numpy as np
 import xarray as xr
 
-from ringkit._validation import ParameterError, check_choice
+from ringkit._validation import ParameterError, check_choice, check_range
 from ringkit.tightbinding.builder import TightBindingRing
 from ringkit.transport.dataset import make_dataset
 
@@ -161,6 +161,8 @@ def conductance(
     float or ndarray of shape (2,)
     """
     ring = _check_ring(ring)
+    B = check_range("B", B, unit="T")
+    flux = check_range("flux", flux, unit="Wb")
     if check_field:
         ring.check_field(B, stacklevel=2)
     e = _energy_or_default(ring, energy)
@@ -237,8 +239,11 @@ def field_sweep(
         )
     if uniform:
         ring.check_field(float(np.max(np.abs(fields))), stacklevel=2)
+    from ringkit.transport.sweep import check_lphi
+
+    l_phi = check_lphi(l_phi, ring.lattice_spacing)
     special = bool(zeeman or spin_resolved)
-    extended = bool(temperature) or (l_phi is not None and np.isfinite(l_phi))
+    extended = bool(temperature) or l_phi is not None
     if method == "auto":
         method = "kwant" if special else "fast"
     if special and method == "fast":

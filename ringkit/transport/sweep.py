@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ringkit._validation import check_positive
+from ringkit._validation import ParameterError, check_positive
 from ringkit.thermal_policy import DEFAULT_TOL, thermal_window
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
@@ -72,6 +72,31 @@ def ring_correlation_energy(ring) -> float:
     geo = ring.device.geometry
     v_f = ring.device.material.fermi_velocity
     return HBAR * v_f / (2 * math.pi * geo.mean_radius) / ring.hopping
+
+
+def check_lphi(l_phi, lattice_spacing: float) -> float | None:
+    """Validate a phase-coherence length in m: None or +inf mean fully coherent (None returned).
+
+    NaN, -inf, zero, negative values and lengths shorter than the lattice spacing (no probe
+    lattice can realise them) raise :class:`ParameterError` naming ``l_phi``.
+    """
+    if l_phi is None:
+        return None
+    try:
+        v = float(l_phi)
+    except (TypeError, ValueError):
+        raise ParameterError("l_phi", l_phi, "must be a length in m, or None/inf") from None
+    if v == math.inf:
+        return None
+    if not math.isfinite(v) or v < lattice_spacing:
+        raise ParameterError(
+            "l_phi",
+            l_phi,
+            f"must be >= the lattice spacing {lattice_spacing:.3g} m and finite "
+            "(None or inf: fully coherent)",
+            "m",
+        )
+    return v
 
 
 def fast_field_conductance(
@@ -126,8 +151,8 @@ def fast_field_conductance(
     name = ring.field_param
     params = ring.params(gate=gate)
     probes = None
-    if l_phi is not None and math.isfinite(l_phi):
-        check_positive("l_phi", l_phi, "m")
+    l_phi = check_lphi(l_phi, ring.lattice_spacing)
+    if l_phi is not None:
         if calibrate_lphi:
             from ringkit.transport.probe_calibration import calibrate_ring_probes
 
