@@ -203,3 +203,115 @@ def test_explorer_app_in_a_browser(app_url, tmp_path):
             assert not outside, f"requests outside 127.0.0.1: {outside}"
         finally:
             ctx.close()
+
+
+def _all_descriptions(widget) -> set[str]:
+    """Every non-empty ``description`` in a widget tree (Python side)."""
+    out, stack = set(), [widget]
+    while stack:
+        w = stack.pop()
+        text = getattr(w, "description", "")
+        if isinstance(text, str) and text.strip():
+            out.add(text.strip())
+        stack.extend(getattr(w, "children", ()))
+    return out
+
+
+def _voila(notebook: Path, port: int, tmp_path: Path):
+    """Serve one notebook with Voila and the ringkit template (no outside requests)."""
+    import subprocess
+
+    env = {k: v for k, v in os.environ.items() if k != "MPLBACKEND"}
+    env["JUPYTER_PATH"] = str(Path(__file__).resolve().parents[1] / "share" / "jupyter")
+    for var, sub in (("JUPYTER_CONFIG_DIR", "config"), ("JUPYTER_RUNTIME_DIR", "runtime")):
+        env[var] = str(tmp_path / sub)
+    env["OPENBLAS_NUM_THREADS"] = "1"
+    voila = Path(sys.executable).with_name("voila")
+    root = ["--ServerApp.allow_root=True"] if os.geteuid() == 0 else []
+    log = open(tmp_path / f"voila-{port}.log", "wb")  # closed by stop()
+    proc = subprocess.Popen(
+        [str(voila), str(notebook), f"--port={port}", "--no-browser", "--Voila.ip=127.0.0.1",
+         "--template=ringkit", *root],
+        env=env, stdout=log, stderr=subprocess.STDOUT, start_new_session=True,
+    )  # fmt: skip
+    proc.log, proc.logfile = log, tmp_path / f"voila-{port}.log"  # type: ignore[attr-defined]
+    return proc
+
+
+@pytest.mark.parametrize(
+    ("notebook", "css", "panel"),
+    [
+        ("02_amplitude_vs_size.ipynb", "ringkit-scaling", "SizeScalingPanel"),
+        ("03_measured_vs_model.ipynb", "ringkit-measured", "MeasuredDataPanel"),
+    ],
+)
+def test_other_panels_show_full_labels_and_stay_local(notebook, css, panel, tmp_path):
+    """Issue 14 pt 5 / issue 16 pt 8 for the size-scaling and measured-data panels: every
+    control label is rendered in full at the default width, and no request leaves 127.0.0.1."""
+    import socket
+    import time
+
+    reason = browser_missing()
+    if reason:
+        pytest.skip(reason)
+    from playwright.sync_api import sync_playwright
+
+    import ringkit.view.panels as panels
+
+    want = _all_descriptions(getattr(panels, panel)().widget)
+    port = free_port()
+    nb = Path(__file__).resolve().parents[1] / "notebooks" / notebook
+    proc = _voila(nb, port, tmp_path)
+    outside: list[str] = []
+
+    def route(r):
+        if urlparse(r.request.url).hostname in LOCAL or r.request.url.startswith("data:"):
+            r.continue_()
+        else:
+            outside.append(r.request.url)
+            r.abort()
+
+    try:
+        deadline = time.monotonic() + 90
+        while True:
+            try:
+                socket.create_connection(("127.0.0.1", port), timeout=1).close()
+                break
+            except OSError:
+                assert proc.poll() is None, proc.logfile.read_text()[-3000:]
+                assert time.monotonic() < deadline, "voila did not start within 90 s"
+                time.sleep(0.3)
+        js = (
+            "() => Array.from(document.querySelectorAll("
+            f"'.{css} .widget-label, .{css} .widget-button, .{css} .widget-checkbox label'))"
+            ".filter(e => e.offsetParent !== null && e.textContent.trim())"
+            ".map(e => [e.textContent.trim(), e.scrollWidth, e.clientWidth])"
+        )
+        with sync_playwright() as p:
+            ctx = p.chromium.launch_persistent_context(
+                str(tmp_path / "chromium-profile"), executable_path=CHROMIUM, headless=True,
+                args=CHROMIUM_ARGS, viewport={"width": 1280, "height": 1000},
+            )  # fmt: skip
+            try:
+                ctx.route("**/*", route)
+                page = ctx.new_page()
+                page.goto(f"http://127.0.0.1:{port}/", timeout=180_000)
+                page.locator(f".{css}").first.wait_for(timeout=180_000)
+                page.wait_for_timeout(500)
+                seen: dict[str, tuple[int, int]] = {}
+                tabs = page.locator(f".{css} .lm-TabBar-tab").all() or [None]
+                for tab in tabs:
+                    if tab is not None:
+                        tab.click()
+                        page.wait_for_timeout(200)
+                    for label, scroll, client in page.evaluate(js):
+                        seen[label] = (scroll, client)
+                shown = want & set(seen)
+                assert len(shown) >= max(3, len(want) // 2), (sorted(want), sorted(seen))
+                cut = {k: v for k, v in seen.items() if k in want and v[0] > v[1] + 1}
+                assert not cut, f"labels cut off (scrollWidth, clientWidth): {cut}"
+                assert not outside, f"requests outside 127.0.0.1: {outside}"
+            finally:
+                ctx.close()
+    finally:
+        stop(proc)
