@@ -6,15 +6,19 @@ simulated ring of the extracted area, the spectrum with the h/e and h/2e bands, 
 extracted numbers. Loader errors (unreadable uploads) and invalid settings are shown in the
 message area; the last good plots stay.
 
-Per-file options (columns, units, series resistance, terminals, grouping, contacts, radii)
-return to their defaults whenever a *different* file is loaded (a setting made for one file,
-e.g. the demo's 1200 Ohm series resistance, never silently applies to the next); changing an
-option reloads the same file. A temperature series (grouped by a temperature column, or one file per
-temperature) gets an L_phi(T) fit (:mod:`ringkit.view.panels.measured_series`). The
-cross-checks of :mod:`ringkit.analysis.checks` (bands overlapping, no peak above the noise
-floor, implausible amplitude or G) are shown in the message area. A contact configuration
-(field "contacts", or a ``# contacts:`` header) adds the four-terminal R_mn,kl analysis
-(:mod:`ringkit.view.panels.measured_fourterminal`; docs/multiterminal.md). docs/panels.md.
+Per-file options (columns, units, series resistance, terminals, grouping, contacts, radii,
+current, noise, bandwidth) return to their defaults whenever a *different* file is loaded (a
+setting made for one file, e.g. the demo's 1200 Ohm series resistance, never silently applies
+to the next); changing an option reloads the same file. A temperature series (grouped by a
+temperature column, or one file per temperature) gets an L_phi(T) fit
+(:mod:`ringkit.view.panels.measured_series`). The cross-checks of
+:mod:`ringkit.analysis.checks` (bands overlapping, no peak above the noise floor, implausible
+amplitude or G) are shown in the message area. Resistance inputs also get the h/e and h/2e
+amplitudes as dR (Ohm) and dR/R (%), and with a current, noise density and bandwidth whether
+they exceed the noise floor (:mod:`ringkit.view.panels.measured_lab`; the same numbers as
+``ringkit analyze``). A contact configuration (field "contacts", or a ``# contacts:`` header)
+adds the four-terminal R_mn,kl analysis (:mod:`ringkit.view.panels.measured_fourterminal`;
+docs/multiterminal.md). docs/panels.md.
 """
 
 from __future__ import annotations
@@ -40,6 +44,12 @@ from ringkit.view.panels.measured import (
     load_trace_file,
 )
 from ringkit.view.panels.measured_fourterminal import four_terminal_view
+from ringkit.view.panels.measured_lab import (
+    LAB_UNITS,
+    lab_record,
+    lab_rows,
+    parse_lab_inputs,
+)
 from ringkit.view.panels.measured_series import series_lphi, trace_caption
 from ringkit.view.style import DELTA_G_LABEL, field_scale, field_unit_for, new_figure
 
@@ -140,8 +150,13 @@ class MeasuredDataPanel(PanelBase):
             "lphi": widgets.FloatLogSlider(value=2.0, base=10, min=-1.5, max=2, step=0.05,
                                            description="sim. L_phi (µm)", readout_format=".3g",
                                            **kw),
+            "current": widgets.Text(description="current (nA)", placeholder="e.g. 10", **kw),
+            "noise": widgets.Text(description="noise (nV/√Hz)", placeholder="e.g. 5", **kw),
+            "bandwidth": widgets.Text(description="bandwidth (Hz)", placeholder="e.g. 1", **kw),
         }  # fmt: skip
-        self.file_defaults.update(r_in=0.0, r_out=0.0)
+        self.file_defaults.update(r_in=0.0, r_out=0.0, current="", noise="", bandwidth="")
+        self.lab: dict[str, Any] = {}  # lab_record of the shown analysis (measured_lab)
+        self._notes: list[str] = []  # caveats and cross-checks of the shown analysis
         self.four_terminal = None  # FourTerminalResult of the shown trace (contacts given)
         self.four_summary = widgets.HTML(value="")
         self.series_button = widgets.Button(description="Fit L_phi(T) over all traces",
@@ -156,8 +171,8 @@ class MeasuredDataPanel(PanelBase):
         self.demo_button.on_click(lambda _: self.load_demo())
         self.trace_select.observe(self._on_trace, names="value")
         self._quiet = False
-        for w in self.controls.values():
-            w.observe(self._on_control, names="value")
+        for key, w in self.controls.items():
+            w.observe(self._on_lab if key in LAB_UNITS else self._on_control, names="value")
         for w in self.load_controls.values():
             w.observe(lambda _: self._reload(), names="value")
 
@@ -344,18 +359,58 @@ class MeasuredDataPanel(PanelBase):
         """Re-analyse the selected trace and redraw (keeps the last good plot on errors)."""
         if not self.traces:
             return False
+        lab_inputs = self._lab_inputs()
+        if lab_inputs is False:
+            return False
 
         def work() -> None:
             trace = self.traces[self.trace_select.value or 0]
-            self.analysis = analyze_trace(trace, self.analysis_options())
+            analysis = analyze_trace(trace, self.analysis_options())
+            self.lab = lab_record(trace, analysis.result, *(lab_inputs or ()))
+            self.analysis = analysis
             self._draw(trace)
 
         ok = self.guarded(work)
         if ok and self.analysis is not None:
             notes = self._four_terminal() + list(self.analysis.notes) + self._cross_checks()
-            if notes:
-                self.show_message("\n".join(dict.fromkeys(notes)), level="warning")
+            self._notes = list(dict.fromkeys(notes))
+            self._show_notes()
         return ok
+
+    def _show_notes(self) -> None:
+        """The shown analysis' caveats and cross-checks in the message area (or clear it)."""
+        if self._notes:
+            self.show_message("\n".join(self._notes), level="warning")
+        else:
+            self.clear_message()
+
+    def _lab_inputs(self):
+        """(current A, noise V/sqrt(Hz), bandwidth Hz), None when empty, or False after
+        showing a one-line message for bad input (the last good numbers stay)."""
+        c = self.controls
+        try:
+            return parse_lab_inputs(c["current"].value, c["noise"].value, c["bandwidth"].value)
+        except ValueError as exc:
+            self.show_message(f"{type(exc).__name__}: {exc}")
+            return False
+
+    def update_lab(self) -> bool:
+        """dR, dR/R and detectability of the shown analysis from the current, noise and
+        bandwidth controls, without re-analysing or redrawing."""
+        if self.analysis is None or not self.traces:
+            return False
+        lab_inputs = self._lab_inputs()
+        if lab_inputs is False:
+            return False
+        trace = self.traces[self.trace_select.value or 0]
+        self.lab = lab_record(trace, self.analysis.result, *(lab_inputs or ()))
+        self._summary()
+        self._show_notes()
+        return True
+
+    def _on_lab(self, change: dict) -> None:
+        if not self._quiet:
+            self.update_lab()
 
     def _four_terminal(self) -> list[str]:
         """R_mn,kl analysis of the shown trace (contacts field or header); its message line."""
@@ -470,6 +525,7 @@ class MeasuredDataPanel(PanelBase):
             ("relative h/e amplitude", f"{100 * r.relative_amplitude_he:.3g} %"),
             ("peak significance", f"{r.peak_significance:.3g}"),
             ("bands from", r.band_source),
+            *lab_rows(self.lab),
         ]  # fmt: skip
         body = "".join(
             f"<tr><td>{html.escape(k)}</td>"
