@@ -14,6 +14,7 @@ import warnings
 import numpy as np
 import pytest
 from scipy import constants
+from test_cli_study import run_cli  # the in-process CLI runner of the study tests
 
 from ringkit._validation import ParameterError
 from ringkit.analysis.fourterminal import analyze_four_terminal
@@ -105,3 +106,116 @@ def test_site_estimate_counts_every_lead():
     dev = RingDevice(Material(0.067, fermi_energy=0.008 * constants.e), geo, lattice_spacing=4e-9)
     built = len(build_ring(dev).fsyst.sites)
     assert dev.site_estimate().n_sites == pytest.approx(built, rel=0.04)
+
+
+# ----------------------------------------------------------------------------- studies
+# The ~400-site ring of tests/test_cli_study.py with four leads (two per side) and two reciprocal
+# configurations; serial executor, one realization, 40 field points, T = 0 (a finite temperature
+# costs ~100 energies on this ring; the thermal path is resistance_field_sweep's own).
+FOUR = """
+[study]
+name = "four-terminal ring"
+[material]
+preset = "GaAs"
+fermi_energy = "5.5 meV"
+mean_free_path = "250 nm"
+[geometry]
+r_in = "70 nm"
+r_out = "98 nm"
+leads = [{angle = "135 deg"}, {angle = "45 deg"}, {angle = "225 deg"}, {angle = "-45 deg"}]
+[lattice]
+spacing = "7 nm"
+[field]
+start = "-1.2 T"
+stop = "1.2 T"
+points = 40
+[sweep]
+contacts = ["0,2,1,3", "1,3,0,2"]
+[ensemble]
+seed = 5
+[executor]
+kind = "serial"
+"""
+
+
+@pytest.fixture(scope="module")
+def four_study(tmp_path_factory):
+    path = tmp_path_factory.mktemp("four") / "four.toml"
+    path.write_text(FOUR)
+    out = path.parent / "out"
+    rc, stdout, err = run_cli("study", str(path), "--out", str(out), "--quiet")
+    assert rc == 0, err
+    return path, out
+
+
+def test_four_terminal_study_end_to_end(four_study):
+    """results.nc holds R_ohm per configuration; reciprocity R_mn,kl(B) = R_kl,mn(-B) (M.
+    Büttiker, Phys. Rev. Lett. 57, 1761 (1986)) holds on the study output; the report lists
+    the configurations and embeds the R(B) figure."""
+    import xarray as xr
+
+    path, out = four_study
+    ds = xr.load_dataset(out / "results.nc", engine="h5netcdf")
+    assert ds["R_ohm"].attrs["units"] == "ohm"
+    assert list(ds["config"].values) == ["0,2,1,3", "1,3,0,2"]
+    assert ds["R_ohm"].dims[-2:] == ("config", "B")
+    r = ds["R_ohm"].isel(realization=0, fermi_energy=0, gate_potential=0, dephasing_length=0)
+    assert np.all(np.isfinite(r.values))
+    np.testing.assert_allclose(ds["B"].values, -ds["B"].values[::-1], atol=1e-15)
+    fwd, rev = r.isel(temperature=0).values
+    np.testing.assert_allclose(fwd, rev[::-1], rtol=0, atol=1e-8 * np.abs(fwd).max())
+    assert not np.allclose(fwd, fwd[::-1], rtol=1e-3)  # R_02,13 itself is not even in B
+    assert float(ds["R_thermal_error"].max()) == 0  # T = 0: one energy, no thermal error
+    assert ds.attrs["sweep.contacts"] == '["0,2,1,3", "1,3,0,2"]'
+    text = (out / "report.md").read_text()
+    assert "## Four-terminal resistance" in text
+    assert "| R_02,13 |" in text and "| R_13,02 |" in text
+    assert "](figures/resistance.png)" in text and (out / "figures" / "resistance.png").is_file()
+
+
+def test_four_terminal_study_equals_direct_sweep(four_study):
+    """The study's R is resistance_field_sweep on the same device and seed (to 1e-10), and a
+    resume from the checkpoint gives the same numbers bit for bit."""
+    import xarray as xr
+
+    from ringkit.study import load_config
+    from ringkit.study.setup import make_device
+
+    path, out = four_study
+    ds = xr.load_dataset(out / "results.nc", engine="h5netcdf")
+    cfg = load_config(path)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # coarse-lattice hint, reported by the study
+        ring = build_ring(make_device(cfg.physics(), None, 0.0), seed=int(ds["seed"].values[0]))
+    for t, temp in enumerate(ds["temperature"].values):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # coarse-lattice and field-regime hints
+            direct = resistance_field_sweep(ring, ds["B"].values, ["0,2,1,3", "1,3,0,2"],
+                                            temperature=float(temp))  # fmt: skip
+        study = ds["R_ohm"].isel(realization=0, fermi_energy=0, gate_potential=0,
+                                 dephasing_length=0, temperature=t).values  # fmt: skip
+        np.testing.assert_allclose(study, direct["R_ohm"].transpose("config", "B").values,
+                                   rtol=1e-10)  # fmt: skip
+    rc, _, err = run_cli("study", str(path), "--out", str(out), "--quiet")
+    assert rc == 0, err
+    again = xr.load_dataset(out / "results.nc", engine="h5netcdf")
+    np.testing.assert_array_equal(again["R_ohm"].values, ds["R_ohm"].values)
+
+
+@pytest.mark.parametrize(
+    ("edit", "fragment"),
+    [
+        (("0,2,1,3", "0,2,0,3"), "sweep.contacts[0] = '0,2,0,3' is not allowed: contacts.voltage"),
+        (("1,3,0,2", "1,3,0,4"), "sweep.contacts[1] = '1,3,0,4' is not allowed: contacts.voltage:"
+         " contacts must lie in 0..3"),
+        (("leads =", "# leads ="), "sweep.contacts[0] = '0,2,1,3' is not allowed: "
+         "contacts.current: contacts must lie in 0..1"),
+        (('"135 deg"', '"135"'), "geometry.leads[0].angle"),
+    ],
+)  # fmt: skip
+def test_bad_contacts_are_one_line_errors(tmp_path, edit, fragment):
+    path = tmp_path / "bad.toml"
+    path.write_text(FOUR.replace(*edit))
+    rc, stdout, err = run_cli("study", str(path), "--out", str(tmp_path / "o"))
+    assert rc == 2 and err.count("\n") == 1 and "Traceback" not in err, err
+    assert fragment in err, err

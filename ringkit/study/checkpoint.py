@@ -76,6 +76,8 @@ class UnitResult:
         Wall-clock seconds spent on the unit.
     info : dict
         JSON-able details (number of sites, lattice spacing, number of probes, ...).
+    resistance : numpy.ndarray or None
+        ``R_ohm[temperature, config, field]`` of the study's ``sweep.contacts`` (ohm), or None.
     """
 
     uid: str
@@ -83,6 +85,7 @@ class UnitResult:
     n_energies: tuple[int, ...]
     elapsed: float
     info: dict[str, Any] = field(default_factory=dict)
+    resistance: np.ndarray | None = None
 
 
 class Checkpoint:
@@ -93,6 +96,7 @@ class Checkpoint:
         self.units_dir = directory / "units"
         self.fingerprint = fingerprint
         self.shape = shape  # (temperatures, field points) of a unit's conductance
+        self.n_configs = 0  # contact configurations (sweep.contacts) of a unit's resistance
 
     @classmethod
     def open(cls, out_dir: str | Path, plan: StudyPlan, *, restart: bool = False) -> Checkpoint:
@@ -137,6 +141,7 @@ class Checkpoint:
                     "choose another --out directory or pass --restart to discard it"
                 )
         ckpt = cls(directory, fp, (len(plan.temperatures), len(plan.field)))
+        ckpt.n_configs = len(plan.config["sweep"]["contacts"] or ())
         ckpt.units_dir.mkdir(parents=True, exist_ok=True)
         if not manifest_path.exists():
             manifest = {
@@ -197,11 +202,10 @@ class Checkpoint:
         fd, tmp = tempfile.mkstemp(dir=self.units_dir, prefix=f".{result.uid}.", suffix=".tmp")
         try:
             with os.fdopen(fd, "wb") as fh:
-                np.savez(
-                    fh,
-                    conductance=np.asarray(result.conductance, dtype=np.float64),
-                    meta=np.array(json.dumps(meta)),
-                )
+                arrays = {"conductance": np.asarray(result.conductance, dtype=np.float64)}
+                if result.resistance is not None:
+                    arrays["resistance"] = np.asarray(result.resistance, dtype=np.float64)
+                np.savez(fh, **arrays, meta=np.array(json.dumps(meta)))
                 fh.flush()
                 os.fsync(fh.fileno())
             os.replace(tmp, self.path(result.uid))
@@ -213,11 +217,12 @@ class Checkpoint:
     def load(self, uid: str) -> UnitResult:
         """Read one finished unit, checking everything before trusting it.
 
-        The file must be a zip archive with exactly the two members written by :meth:`save`:
-        ``conductance`` (float64, shape ``(temperatures, field points)`` of this study) and
-        ``meta`` (a JSON text with this study's fingerprint and the unit id). Headers are read
-        and checked before any data, so a crafted header (e.g. a 745 GiB shape) allocates
-        nothing; no pickled object is ever loaded.
+        The file must be a zip archive with exactly the members written by :meth:`save`:
+        ``conductance`` (float64, shape ``(temperatures, field points)`` of this study),
+        ``resistance`` when the study has contacts (float64, ``(temperatures, configurations,
+        field points)``) and ``meta`` (a JSON text with this study's fingerprint and the unit
+        id). Headers are read and checked before any data, so a crafted header (e.g. a 745 GiB
+        shape) allocates nothing; no pickled object is ever loaded.
 
         Raises
         ------
@@ -232,9 +237,16 @@ class Checkpoint:
                 raise BrokenUnit("not a ringkit unit file (not a zip archive)")
             with zipfile.ZipFile(path) as zf:
                 names = set(zf.namelist())
-                if names != {"conductance.npy", "meta.npy"}:
+                expected = {"conductance.npy", "meta.npy"}
+                if self.n_configs:
+                    expected.add("resistance.npy")
+                if names != expected:
                     raise BrokenUnit(f"unexpected members {sorted(names)[:4]}")
                 g = _read_npy(zf, "conductance.npy", "f8", self.shape)
+                r = None
+                if self.n_configs:
+                    n_t, n_b = self.shape
+                    r = _read_npy(zf, "resistance.npy", "f8", (n_t, self.n_configs, n_b))
                 text = str(_read_npy(zf, "meta.npy", "U", ())[()])
             meta = json.loads(text)
         except BrokenUnit:
@@ -262,6 +274,7 @@ class Checkpoint:
             n_energies=tuple(n_e),
             elapsed=float(meta["elapsed"]),
             info=meta.get("info", {}),
+            resistance=r,
         )
 
 

@@ -318,10 +318,45 @@ def _compute(task: UnitTask) -> UnitResult:
     if engine.probes is not None:
         info["n_probes"] = int(engine.probes.n)
         info["probe_eta_t"] = float(np.mean(engine.probes.eta))
+    resistance = None
+    if task.physics["sweep"].get("contacts"):
+        resistance, info["resistance_thermal_error_e2h"] = _resistances(task, ring)
     return UnitResult(
         uid=task.unit.uid,
         conductance=out,
         n_energies=tuple(n_energies),
         elapsed=time.perf_counter() - t0,
         info=info,
+        resistance=resistance,
     )
+
+
+def _resistances(task: UnitTask, ring) -> tuple[np.ndarray, list[float]]:
+    """``R_ohm[temperature, config, field]`` of ``sweep.contacts`` and the thermal errors.
+
+    One :func:`ringkit.transport.multiterminal.resistance_field_sweep` per temperature on the
+    unit's lattice (same realization, Fermi energy, gate, L_phi and probe count, same thermal
+    tolerance and rule); the errors are the largest estimated error of the averaged
+    conductance matrix elements (e^2/h).
+    """
+    import warnings
+
+    from ringkit.transport.multiterminal import resistance_field_sweep
+
+    u, sweep = task.unit, task.physics["sweep"]
+    thermal = task.physics["thermal"]
+    out = np.empty((len(task.temperatures), len(sweep["contacts"]), np.size(task.field)))
+    errors = []
+    for i, temp in enumerate(task.temperatures):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # field-range hints are reported with G
+            ds = resistance_field_sweep(
+                ring, np.asarray(task.field, float), list(sweep["contacts"]),
+                gate=u.gate_potential if "gate" in ring.params() else None, temperature=temp,
+                l_phi=None if math.isinf(u.dephasing_length) else u.dephasing_length,
+                n_probes=int(task.physics["dephasing"]["probes"]),
+                thermal_tol=thermal["tol"], thermal_method=thermal["method"],
+            )  # fmt: skip
+        out[i] = ds["R_ohm"].transpose("config", ...).values
+        errors.append(float(ds.attrs["thermal_error_estimate"]))
+    return out, errors

@@ -36,7 +36,14 @@ from types import MappingProxyType
 from typing import Any
 
 from ringkit._validation import ParameterError, check_range
+from ringkit.device.geometry import MAX_LEADS
 from ringkit.study._written import override_comment, written_lines, written_overrides
+from ringkit.study.multiterminal import (
+    leads_display,
+    leads_literal,
+    parse_contacts,
+    parse_leads,
+)
 from ringkit.study.quantities import DIMENSIONS, format_quantity, parse_quantity
 from ringkit.study.schema import PHYSICS_SECTIONS, REQUIRED, SCHEMA, Key
 
@@ -160,6 +167,8 @@ def _bare(text: str) -> str:
 
 
 def _jsonable(obj: Any) -> Any:
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):  # LeadSpec
+        return _jsonable(dataclasses.asdict(obj))
     if isinstance(obj, float):
         return repr(obj)  # exact, and JSON has no inf
     if isinstance(obj, Mapping):
@@ -176,6 +185,10 @@ def _field_dimension(sections: Mapping[str, Mapping[str, Any]]) -> str:
 def _display(key: Key, value: Any, sections: Mapping[str, Mapping[str, Any]]) -> str:
     if value is None:
         return "(not set)"
+    if key.kind == "leads":
+        return leads_display(value)
+    if key.kind == "contacts":
+        return ", ".join(value)
     if key.kind in ("quantity", "quantities"):
         dim = _field_dimension(sections) if len(key.dimensions) > 1 else key.dimensions[0]
         if key.kind == "quantity":
@@ -185,6 +198,10 @@ def _display(key: Key, value: Any, sections: Mapping[str, Mapping[str, Any]]) ->
 
 
 def _toml_literal(key: Key, value: Any, sections: Mapping[str, Mapping[str, Any]]) -> str:
+    if key.kind == "leads":
+        return leads_literal(value)
+    if key.kind == "contacts":
+        return json.dumps(list(value))
     if key.kind in ("quantity", "quantities"):
         dim = _field_dimension(sections) if len(key.dimensions) > 1 else key.dimensions[0]
         if key.kind == "quantity":
@@ -352,6 +369,10 @@ def _convert(key: Key, value: Any, dotted: str, field_mode: str) -> Any:
         if isinstance(value, bool) or not isinstance(value, int | float):
             raise ConfigError(f"{dotted} = {value!r}: expected a number")
         return check_range(dotted, value, key.low, key.high, inclusive=key.inclusive)
+    if key.kind == "leads":
+        return parse_leads(value, dotted)
+    if key.kind == "contacts":  # checked against the number of leads in _cross_check
+        return tuple(str(c) for c in parse_contacts(value, MAX_LEADS, dotted))
     if key.kind == "quantity":
         return _quantity(key, value, dotted, field_mode)
     if key.kind == "quantities":
@@ -459,6 +480,10 @@ def _cross_check(s: dict[str, dict[str, Any]], raw: Mapping[str, Any]) -> None:
             _L(g["lead_width"]),
             f"must be < 2 * r_out = {_L(2 * g['r_out'])}",
         )
+    contacts = s["sweep"]["contacts"]
+    if contacts is not None:
+        n_leads = 2 if g["leads"] is None else len(g["leads"])
+        parse_contacts(list(contacts), n_leads, "sweep.contacts")
     a = s["lattice"]["spacing"]
     if a is not None and a > (g["r_out"] - g["r_in"]) / 2:
         half = (g["r_out"] - g["r_in"]) / 2

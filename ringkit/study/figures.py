@@ -251,6 +251,14 @@ def _fig_amplitude(plan: StudyPlan, ds):
     return fig
 
 
+def _fig_resistance(ds):
+    """R_mn,kl(B) of every configuration, first condition, mean over the realizations."""
+    from ringkit.study.multiterminal import first_condition
+    from ringkit.view.plots import plot_resistance_configs
+
+    return plot_resistance_configs(first_condition(ds)).figure
+
+
 def write_figures(
     plan: StudyPlan, ds, fig_dir: Path, *, fmt: str = "png", dpi: int = 120, setup=None
 ) -> dict[str, Path]:
@@ -263,6 +271,8 @@ def write_figures(
         "spectra": lambda: _fig_spectra(plan, ds, setup),
         "amplitude": lambda: _fig_amplitude(plan, ds),
     }
+    if "R_ohm" in ds:
+        makers["resistance"] = lambda: _fig_resistance(ds)
     for name, make in makers.items():
         with warnings.catch_warnings():
             # analysis caveats are reported once in summary.json, not per figure

@@ -19,6 +19,14 @@ parse_leads(value, name="geometry.leads") -> tuple of LeadSpec
 parse_contacts(value, n_leads, name="sweep.contacts") -> tuple of Contacts
     Configurations checked against the number of leads (distinct voltage and current
     contacts).
+leads_literal(leads) -> str, leads_display(leads) -> str
+    TOML literal (exact, rad and m) and readable form (deg, nm) of a lead layout.
+resistance_variables(plan, results, dims) -> xarray.Dataset
+    ``R_ohm[..., config, field]`` and ``R_thermal_error`` of a study's unit results.
+first_condition(ds) -> xarray.Dataset
+    ``R_ohm(field, config)`` averaged over the realizations, first value of the other axes.
+resistance_report_blocks(plan, ds, setup) -> list
+    The report section "Four-terminal resistance" (table of :func:`resistance_rows`).
 resistance_rows(ds, r_in=None, r_out=None) -> list of dict
     Report table of a :func:`ringkit.transport.multiterminal.resistance_field_sweep` result:
     per configuration mean R, min/max R (ohm), and the h/e amplitude and phase from
@@ -33,6 +41,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -43,7 +52,17 @@ from ringkit.contacts import Contacts
 from ringkit.device.geometry import MAX_LEADS, LeadSpec
 from ringkit.study.quantities import parse_quantity
 
-__all__ = ["parse_angle", "parse_leads", "parse_contacts", "resistance_rows"]
+__all__ = [
+    "parse_angle",
+    "parse_leads",
+    "parse_contacts",
+    "leads_literal",
+    "leads_display",
+    "resistance_rows",
+    "resistance_variables",
+    "first_condition",
+    "resistance_report_blocks",
+]
 
 _ANGLE_UNITS = {"deg": math.pi / 180.0, "°": math.pi / 180.0, "degree": math.pi / 180.0,
                 "degrees": math.pi / 180.0, "rad": 1.0}  # fmt: skip
@@ -102,6 +121,99 @@ def parse_contacts(value: Any, n_leads: int, name: str = "sweep.contacts") -> tu
             raise ParameterError(f"{name}[{i}]", text, f"{err.name}: {err.allowed}") from None
         out.append(c)
     return tuple(out)
+
+
+def leads_literal(leads: Sequence[LeadSpec]) -> str:
+    """TOML literal of a lead layout that parses back exactly (angles in rad, widths in m)."""
+    items = []
+    for spec in leads:
+        width = "" if spec.width is None else f', width = "{float(spec.width)!r} m"'
+        items.append(f'{{angle = "{float(spec.angle)!r} rad"{width}}}')
+    return "[" + ", ".join(items) + "]"
+
+
+def leads_display(leads: Sequence[LeadSpec]) -> str:
+    """Readable lead layout: ``"0: 135 deg, 1: 45 deg (40 nm), ..."``."""
+    out = []
+    for i, spec in enumerate(leads):
+        width = "" if spec.width is None else f" ({spec.width * 1e9:.4g} nm)"
+        out.append(f"{i}: {math.degrees(spec.angle):.4g} deg{width}")
+    return ", ".join(out)
+
+
+def resistance_variables(plan, results, dims: tuple[str, ...]):
+    """``R_ohm`` (ohm) on ``(*dims, config, field)`` and its thermal error from unit results."""
+    import xarray as xr
+
+    contacts = list(plan.config["sweep"]["contacts"])
+    n_r, n_e, n_g, n_d = plan.shape
+    n_t, n_b = len(plan.temperatures), len(plan.field)
+    r = np.full((n_r, n_e, n_g, n_t, n_d, len(contacts), n_b), np.nan)
+    err = np.full((n_r, n_e, n_g, n_t, n_d), np.nan)
+    for unit in plan.units:
+        res = results[unit.uid]
+        i, e, g, d = unit.index
+        r[i, e, g, :, d] = res.resistance
+        err[i, e, g, :, d] = res.info["resistance_thermal_error_e2h"]
+    long = "four-terminal resistance R_mn,kl = (V_k - V_l)/I, current m -> n"
+    return xr.Dataset(
+        {
+            "R_ohm": ((*dims, "config", plan.field_name), r, {"units": "ohm", "long_name": long}),
+            "R_thermal_error": (
+                dims,
+                err,
+                {
+                    "units": "e^2/h",
+                    "long_name": "estimated error "
+                    "of the thermally averaged conductance matrix elements",
+                },
+            ),
+        },  # fmt: skip
+        coords={"config": ("config", contacts, {"long_name": "contacts m,n,k,l"})},
+    )
+
+
+def first_condition(ds):
+    """``R_ohm(field, config)``: mean over the realizations, first value of the other axes."""
+    r = ds["R_ohm"].mean("realization")
+    r = r.isel({d: 0 for d in r.dims if d not in ("config", "B", "flux")})
+    return r.to_dataset(name="R_ohm")
+
+
+def resistance_report_blocks(plan, ds, setup) -> list[tuple]:
+    """Report blocks: R(B) table per configuration and condition (mean over realizations)."""
+    if "R_ohm" not in ds:
+        return []
+    from ringkit.study.quantities import format_quantity
+
+    mean = ds["R_ohm"].mean("realization")
+    other = [d for d in mean.dims if d not in ("config", "B", "flux")]
+    head = ["E_F", "gate", "T", "L_phi", "configuration", "mean R (Ω)", "min R (Ω)",
+            "max R (Ω)", "h/e amplitude (Ω)", "h/e phase (rad)", "note"]  # fmt: skip
+    units = ["energy", "energy", "temperature", "length"]
+    rows = []
+    for idx in np.ndindex(*(mean.sizes[d] for d in other)):
+        sub = mean.isel(dict(zip(other, idx, strict=True)))
+        cond = [format_quantity(float(sub[d]), u, 4) if np.isfinite(float(sub[d])) else "inf"
+                for d, u in zip(other, units, strict=True)]  # fmt: skip
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            table = resistance_rows(sub.to_dataset(name="R_ohm"), r_in=setup.r_in,
+                                    r_out=setup.r_out)  # fmt: skip
+        notes = sorted({str(w.message).split(":")[0] for w in caught})
+        for row in table:
+            rows.append([*cond, row["configuration"],
+                         *(f"{row[k]:.5g}" for k in ("mean_ohm", "min_ohm", "max_ohm",
+                                                     "amplitude_he_ohm", "phase_he_rad")),
+                         "; ".join(filter(None, [row["note"], *notes]))])  # fmt: skip
+    text = (
+        f"R_mn,kl(B) of the configurations {', '.join(plan.config['sweep']['contacts'])} "
+        "(current m -> n, voltage V_k - V_l; mean over the realizations), from the "
+        "conductance matrix of the ring (Büttiker, Phys. Rev. Lett. 57, 1761 (1986); "
+        "docs/multiterminal.md). h/e amplitude and phase: cosine projection at the h/e "
+        "frequency, phase referred to B = 0 (nan: see the note)."
+    )
+    return [("h2", "Four-terminal resistance"), ("p", text), ("table", head, rows)]
 
 
 def resistance_rows(ds, *, r_in: float | None = None, r_out: float | None = None) -> list[dict]:

@@ -40,6 +40,11 @@ from ringkit._version import __version__
 from ringkit.study.analyse import analyse_dataset, reference_area
 from ringkit.study.checkpoint import UnitResult
 from ringkit.study.checkpoint import atomic_write_bytes as _write_file
+from ringkit.study.multiterminal import (
+    leads_literal,
+    resistance_report_blocks,
+    resistance_variables,
+)
 from ringkit.study.plan import StudyPlan
 from ringkit.study.quantities import format_quantity
 from ringkit.study.schema import SCHEMA
@@ -75,6 +80,8 @@ def _param_attrs(plan: StudyPlan) -> dict[str, Any]:
                 dim = field_dim if len(key.dimensions) > 1 else key.dimensions[0]
                 label += f" [{_UNITS[dim]}]"
                 value = np.asarray(value, dtype=float) if key.kind == "quantities" else value
+            elif key.kind in ("leads", "contacts"):
+                value = leads_literal(value) if key.kind == "leads" else json.dumps(list(value))
             elif key.kind == "float" and name == "effective_mass":
                 label += " [m_e]"
             if isinstance(value, bool):
@@ -190,6 +197,8 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
         },
         coords=coords,
     )
+    if plan.config["sweep"]["contacts"]:
+        ds = ds.merge(resistance_variables(plan, results, dims))
     ds.attrs.update(
         {
             "title": plan.config["study"]["name"],
@@ -363,6 +372,7 @@ def _report_blocks(
             row.insert(6, "-" if p_wb is None else _fmt(p_wb / a_ref, "field"))
         rows.append(row)
     b.append(("table", head, rows))
+    b += resistance_report_blocks(plan, ds, setup)
     if summary.get("analysis_warnings"):
         b.append(("p", "Analysis warnings: " + "; ".join(summary["analysis_warnings"])))
     if figure_files:
@@ -375,6 +385,9 @@ def _report_blocks(
             "amplitude": "h/e and h/2e amplitudes (rms of the band content) versus the swept "
             "parameter: filled circles, mean over the single realizations; open squares, the "
             "ensemble-averaged trace; line styles distinguish the other swept parameters.",
+            "resistance": "Four-terminal resistance R_mn,kl(B) of every configuration of "
+            "sweep.contacts (mean over the realizations, first value of every other swept "
+            "parameter).",
         }
         for name, path in figure_files.items():
             b.append(("img", str(path.relative_to(out_dir)), captions.get(name, name)))

@@ -31,7 +31,9 @@ class _Required:
 
 REQUIRED: Any = _Required()
 
-KeyKind = Literal["str", "choice", "int", "float", "bool", "quantity", "quantities"]
+KeyKind = Literal[
+    "str", "choice", "int", "float", "bool", "quantity", "quantities", "leads", "contacts"
+]
 
 
 @dataclass(frozen=True)
@@ -42,9 +44,14 @@ class Key:
     ----------
     name : str
         Key name inside its section.
-    kind : {"str", "choice", "int", "float", "bool", "quantity", "quantities"}
+    kind : {"str", "choice", "int", "float", "bool", "quantity", "quantities", "leads", \
+            "contacts"}
         ``quantity`` is one dimensional value, ``quantities`` a list of them (a single value
-        is accepted as a one-element list).
+        is accepted as a one-element list). ``leads`` is a list of tables ``{angle, width}``
+        (angle in deg or rad, width a length; SI value: tuple of
+        :class:`ringkit.device.LeadSpec`), ``contacts`` a list of configurations
+        ``"m,n,k,l"`` (SI value: tuple of canonical strings); see
+        :mod:`ringkit.study.multiterminal`.
     doc : str
         One-line help.
     dimension : str or tuple of str, optional
@@ -217,6 +224,14 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
                 inclusive=(False, False),
                 example='"60 nm"',
             ),
+            Key(
+                "leads",
+                "leads",
+                "Lead layout, 2 to 4 leads {angle, width} (angle in deg or rad on the centre "
+                "line; width defaults to lead_width); leads 0 and 1 carry G (default: 180, 0 deg).",
+                example='[{angle = "135 deg"}, {angle = "45 deg"}, '
+                '{angle = "225 deg", width = "40 nm"}, {angle = "-45 deg", width = "40 nm"}]',
+            ),
         ),
     ),
     "lattice": (
@@ -294,6 +309,13 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
                 high=20 * 1.602176634e-19,
                 inclusive=(False, True),
                 example='["9 meV", "10 meV"]',
+            ),
+            Key(
+                "contacts",
+                "contacts",
+                'Four-terminal configurations "m,n,k,l" (current m -> n, voltage V_k - V_l), '
+                "each computed as R(B) in ohm; needs geometry.leads.",
+                example='["0,2,1,3", "1,3,0,2"]',
             ),
             Key(
                 "gate_arm",

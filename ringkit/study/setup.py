@@ -206,9 +206,10 @@ def make_device(
         overrides["fermi_energy"] = fermi_energy
     material = Material.preset(m["preset"], **overrides)
     g = physics["geometry"]
-    geometry = RingGeometry.circular(
-        g["r_in"], g["r_out"], **({"lead_width": g["lead_width"]} if g["lead_width"] else {})
-    )
+    extra: dict[str, Any] = {"lead_width": g["lead_width"]} if g["lead_width"] else {}
+    if g.get("leads"):
+        extra["leads"] = list(g["leads"])
+    geometry = RingGeometry.circular(g["r_in"], g["r_out"], **extra)
     sw = physics["sweep"]
     gate = ArmGate(arm=sw["gate_arm"], potential=gate_potential) if gate_potential else None
     lat = physics["lattice"]
