@@ -389,12 +389,14 @@ def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> C
         lphi = next(d for d in plan.dephasing_lengths if math.isfinite(d))
         per_energy["dephased"] = _time_engine(plan, _with_lphi(first, lphi))
     n_f = len(plan.field)
+    # sweep.contacts: every energy is swept a second time for the conductance matrix of R
+    sweeps = 2 if plan.config["sweep"]["contacts"] else 1
     unit_seconds = {}
     for u in plan.units:
         s0, s1 = per_energy["coherent" if math.isinf(u.dephasing_length) else "dephased"]
-        unit_seconds[u.uid] = counts[u.fermi_energy] * (s0 + n_f * s1)
+        unit_seconds[u.uid] = sweeps * counts[u.fermi_energy] * (s0 + n_f * s1)
     pend = sum(unit_seconds[u.uid] for u in pending)
-    n_e = sum(counts[u.fermi_energy] for u in pending)
+    n_e = sweeps * sum(counts[u.fermi_energy] for u in pending)
     wall = pend / max(1, pre.workers)
     return CostEstimate(
         unit_seconds=unit_seconds,
