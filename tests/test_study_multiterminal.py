@@ -211,6 +211,8 @@ def test_four_terminal_study_equals_direct_sweep(four_study):
         (("leads =", "# leads ="), "sweep.contacts[0] = '0,2,1,3' is not allowed: "
          "contacts.current: contacts must lie in 0..1"),
         (('"135 deg"', '"135"'), "geometry.leads[0].angle"),
+        (('{angle = "225 deg"}', '{angle = "140 deg"}'), "geometry.leads = [2.356194, 0.785398, "
+         "2.443461, -0.785398] is not allowed: leads 0 and 2 on the left side overlap"),
     ],
 )  # fmt: skip
 def test_bad_contacts_are_one_line_errors(tmp_path, edit, fragment):

@@ -244,6 +244,8 @@ def study_names():
     try:
         yield
     except ParameterError as err:
+        if str(err.name).startswith("leads"):  # leads, leads[2].angle: the lead layout
+            raise ParameterError(f"geometry.{err.name}", err.value, err.allowed) from err
         if err.name not in _STUDY_KEYS:
             raise
         key, unit = _STUDY_KEYS[err.name]
