@@ -39,7 +39,7 @@ OUT = Path(__file__).with_name("RESULTS-amplitude-stats.md")
 FLUX = np.arange(60) / 12 * PHI0
 LPHI = 1.5e-6
 CKPT = Path(os.environ.get("RINGKIT_BENCH_CKPT", "/tmp/ringkit-bench-amplitude-stats"))
-CAP_A, N_B, N_C = 560, 6, 12  # sized for ~25 min on 2 heavily shared cores
+CAP_A, N_B, N_C = 560, 6, 12  # A: ~13 min, B: ~4 min, C: ~1 min on 2 shared cores
 NOISE = 0.01  # e^2/h, an invented noise floor for the exceedance probability (demo value)
 
 
