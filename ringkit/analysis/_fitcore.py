@@ -27,6 +27,7 @@ __all__ = [
     "thermal_factor",
     "find_unconstrained",
     "fd_jacobian",
+    "physical_errors",
 ]
 
 #: Largest 1-sigma error of ln(parameter) for a scale parameter to count as constrained.
@@ -203,6 +204,34 @@ def _mark_unconstrained(
             vals[m] = float("nan")
             errs[m] = float("inf")
     return estimates
+
+
+def physical_errors(
+    vals: dict[str, float],
+    jac: list[float],
+    cov: np.ndarray,
+    names: list[str],
+    shape: tuple[bool, float, bool, float],
+) -> tuple[dict[str, float], np.ndarray]:
+    """Add the optional shape parameters to ``vals``; 1-sigma errors and covariance of ``vals``.
+
+    ``jac`` holds d(physical)/d(fit parameter) of the parameters already in ``vals`` (the fit
+    works in logs); ``shape = (fit_p, p, fit_ec, thermal_energy)`` appends the exponent
+    (derivative 1) and the thermal energy (fitted as a log: derivative ``thermal_energy``).
+    Infinite or NaN covariance entries stay so (unconstrained parameters).
+    """
+    fit_p, pp, fit_ec, ec = shape
+    jac = list(jac)
+    if fit_p:
+        vals["p"] = float(pp)
+        jac.append(1.0)
+    if fit_ec:
+        vals["thermal_energy"] = float(ec)
+        jac.append(float(ec))
+    jm = np.diag(jac)
+    with np.errstate(invalid="ignore", over="ignore"):  # inf/NaN covariance stays so
+        cov_ext = jm @ cov @ jm.T
+    return {n: float(np.sqrt(cov_ext[i, i])) for i, n in enumerate(names)}, cov_ext
 
 
 def fd_jacobian(model: Callable[..., np.ndarray]) -> Callable[..., np.ndarray]:

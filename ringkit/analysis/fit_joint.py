@@ -40,6 +40,7 @@ from ringkit.analysis._fitcore import (
     _mark_unconstrained,
     fd_jacobian,
     find_unconstrained,
+    physical_errors,
     thermal_factor,
 )
 from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
@@ -208,16 +209,7 @@ def fit_lphi_joint(
         "l_phi_ref": float(len1 / np.exp(lc)),
     }
     jac = [vals["amplitude0_he"], vals["amplitude0_h2e"], -vals["l_phi_ref"]]
-    if fit_p:
-        vals["p"] = float(pp)
-        jac.append(1.0)
-    if fit_ec:
-        vals["thermal_energy"] = float(ec)
-        jac.append(float(ec))
-    jm = np.diag(jac)
-    with np.errstate(invalid="ignore", over="ignore"):  # inf/NaN covariance stays so
-        cov_ext = jm @ cov @ jm.T
-    errs = {n: float(np.sqrt(cov_ext[i, i])) for i, n in enumerate(names)}
+    errs, cov_ext = physical_errors(vals, jac, cov, names, (fit_p, pp, fit_ec, ec))
     notes: list[str] = []
     bad, why = find_unconstrained(
         names, cov, np.asarray(q), amplitudes=("amplitude0_he", "amplitude0_h2e")

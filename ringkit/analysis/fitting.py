@@ -66,6 +66,7 @@ from ringkit.analysis._fitcore import (
     _path_length,
     fd_jacobian,
     find_unconstrained,
+    physical_errors,
     thermal_factor,
 )
 from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
@@ -198,16 +199,7 @@ def fit_lphi_temperature(
     ln_a0, ln_c, pp, ec = unpack(q)
     vals = {"amplitude0": float(np.exp(ln_a0)), "l_phi_ref": float(length / np.exp(ln_c))}
     jac = [vals["amplitude0"], -vals["l_phi_ref"]]
-    if fit_p:
-        vals["p"] = float(pp)
-        jac.append(1.0)
-    if fit_ec:
-        vals["thermal_energy"] = float(ec)
-        jac.append(float(ec))
-    jm = np.diag(jac)
-    with np.errstate(invalid="ignore", over="ignore"):  # inf/NaN covariance stays so
-        cov_ext = jm @ cov @ jm.T
-    errs = {n: float(np.sqrt(cov_ext[i, i])) for i, n in enumerate(names)}
+    errs, cov_ext = physical_errors(vals, jac, cov, names, (fit_p, pp, fit_ec, ec))
     notes: list[str] = []
 
     def chi2_of(qq: np.ndarray) -> float:
