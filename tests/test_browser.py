@@ -88,6 +88,19 @@ _LABELS_JS = """() => Array.from(document.querySelectorAll(
   .map(e => [e.textContent.trim(), e.scrollWidth, e.clientWidth])"""
 
 
+def _local_only(outside: list[str]):
+    """A playwright route handler: requests to 127.0.0.1 go on, others are aborted and noted."""
+
+    def route(r):
+        if urlparse(r.request.url).hostname in LOCAL or r.request.url.startswith("data:"):
+            r.continue_()
+        else:
+            outside.append(r.request.url)
+            r.abort()
+
+    return route
+
+
 @pytest.fixture
 def app_url(tmp_path):
     reason = browser_missing()
@@ -106,13 +119,7 @@ def test_explorer_app_in_a_browser(app_url, tmp_path):
 
     want_labels = _descriptions()
     outside: list[str] = []
-
-    def route(r):
-        if urlparse(r.request.url).hostname in LOCAL or r.request.url.startswith("data:"):
-            r.continue_()
-        else:
-            outside.append(r.request.url)
-            r.abort()
+    route = _local_only(outside)
 
     with sync_playwright() as p:
         ctx = p.chromium.launch_persistent_context(
@@ -263,13 +270,7 @@ def test_other_panels_show_full_labels_and_stay_local(notebook, css, panel, tmp_
     nb = Path(__file__).resolve().parents[1] / "notebooks" / notebook
     proc = _voila(nb, port, tmp_path)
     outside: list[str] = []
-
-    def route(r):
-        if urlparse(r.request.url).hostname in LOCAL or r.request.url.startswith("data:"):
-            r.continue_()
-        else:
-            outside.append(r.request.url)
-            r.abort()
+    route = _local_only(outside)
 
     try:
         deadline = time.monotonic() + 90

@@ -37,7 +37,6 @@ as measured currents do.
 
 from __future__ import annotations
 
-import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 
@@ -51,8 +50,7 @@ from ringkit.tightbinding.builder import TightBindingRing
 from ringkit.transport.dataset import COORD_META, ring_attrs
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
-from ringkit.transport.probes import attach_probes
-from ringkit.transport.sweep import transmission_bound
+from ringkit.transport.sweep import ring_probes, transmission_bound
 from ringkit.units import E2H, K_B
 
 __all__ = [
@@ -169,21 +167,10 @@ def conductance_matrices(
     e_j = ring.fermi_energy if energy is None else float(energy)
     e_t = ring.to_lattice_energy(e_j)
     params = ring.params(gate=gate)
-    probes = None
-    if l_phi is not None and math.isfinite(l_phi):
-        check_positive("l_phi", l_phi, "m")
-        probes = attach_probes(
-            ring.fsyst,
-            l_phi=l_phi,
-            energy=e_t,
-            n_probes=int(n_probes),
-            lattice_spacing=ring.lattice_spacing,
-            params=params,
-            zero_field={ring.field_param: 0.0},
-            # two leads: the default centre (as field_sweep); more leads: the ring's centre,
-            # since the interfaces of leads 0 and 1 may sit at any height
-            center=None if ring.n_leads == 2 else (0.0, 0.0),
-        )
+    # two leads: the default centre (as field_sweep); more leads: the ring's centre, since
+    # the interfaces of leads 0 and 1 may sit at any height
+    center = None if ring.n_leads == 2 else (0.0, 0.0)
+    probes = ring_probes(ring, l_phi, e_t, params, n_probes, center=center)
     sweeper = _sweeper(ring, e_t, params, probes)
     n_leads = ring.n_leads
     shape = (values.size, n_leads, n_leads)

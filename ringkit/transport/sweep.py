@@ -41,7 +41,9 @@ from ringkit.units import HBAR, K_B, PHI0
 
 __all__ = [
     "FastSweepResult",
+    "check_lphi",
     "fast_field_conductance",
+    "ring_probes",
     "ring_correlation_energy",
     "transmission_bound",
 ]
@@ -99,6 +101,27 @@ def check_lphi(l_phi, lattice_spacing: float) -> float | None:
     return v
 
 
+def ring_probes(ring, l_phi, energy_t: float, params: dict, n_probes: int, *, center=None):
+    """Dephasing probes of ``ring`` for ``l_phi`` (m) at ``energy_t`` (units of t), or None.
+
+    ``l_phi`` is validated by :func:`check_lphi` (None or inf: no probes). ``center`` as in
+    :func:`ringkit.transport.probes.attach_probes`.
+    """
+    l_phi = check_lphi(l_phi, ring.lattice_spacing)
+    if l_phi is None:
+        return None
+    return attach_probes(
+        ring.fsyst,
+        l_phi=l_phi,
+        energy=energy_t,
+        n_probes=int(n_probes),
+        lattice_spacing=ring.lattice_spacing,
+        params=params,
+        zero_field={ring.field_param: 0.0},
+        center=center,
+    )
+
+
 def fast_field_conductance(
     ring,
     fields,
@@ -150,23 +173,13 @@ def fast_field_conductance(
     e_t = ring.to_lattice_energy(energy)
     name = ring.field_param
     params = ring.params(gate=gate)
-    probes = None
     l_phi = check_lphi(l_phi, ring.lattice_spacing)
-    if l_phi is not None:
-        if calibrate_lphi:
-            from ringkit.transport.probe_calibration import calibrate_ring_probes
+    if l_phi is not None and calibrate_lphi:
+        from ringkit.transport.probe_calibration import calibrate_ring_probes
 
-            probes = calibrate_ring_probes(ring, l_phi, energy, gate=gate, n_probes=int(n_probes))
-        else:
-            probes = attach_probes(
-                ring.fsyst,
-                l_phi=l_phi,
-                energy=e_t,
-                n_probes=int(n_probes),
-                lattice_spacing=ring.lattice_spacing,
-                params=params,
-                zero_field={name: 0.0},
-            )
+        probes = calibrate_ring_probes(ring, l_phi, energy, gate=gate, n_probes=int(n_probes))
+    else:
+        probes = ring_probes(ring, l_phi, e_t, params, n_probes)
     if name == "flux":
         sweeper = FluxTubeSweeper(ring.fsyst, energy=e_t, params=params, probes=probes)
         solver = "low-rank flux-tube update (ringkit.transport.lowrank)"
