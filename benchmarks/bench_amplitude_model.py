@@ -119,7 +119,7 @@ def _fit(res, mfp, mm):
         amplitude_he_err=[x["he_err"] for x in res],
         amplitude_h2e=[x["h2e"] for x in res],
         amplitude_h2e_err=[x["h2e_err"] for x in res],
-        lphi=np.inf,
+        l_phi=np.inf,
         temperature=0.0,
         mean_free_path=mfp,
         fermi_velocity=1e5,

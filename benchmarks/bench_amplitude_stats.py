@@ -37,7 +37,7 @@ from ringkit.units import PHI0
 
 OUT = Path(__file__).with_name("RESULTS-amplitude-stats.md")
 FLUX = np.arange(60) / 12 * PHI0
-LPHI = 1.5e-6
+L_PHI = 1.5e-6
 CKPT = Path(os.environ.get("RINGKIT_BENCH_CKPT", "/tmp/ringkit-bench-amplitude-stats"))
 CAP_A, N_B, N_C = 560, 6, 12  # A: ~13 min, B: ~4 min, C: ~1 min on 2 shared cores
 NOISE = 0.01  # e^2/h, an invented noise floor for the exceedance probability (demo value)
@@ -96,7 +96,7 @@ def run(kind: str, ex) -> list[str]:
             st = amplitude_statistics(
                 dev,
                 FLUX,
-                l_phi=LPHI,
+                l_phi=L_PHI,
                 rule=rule,
                 executor=ex,
                 noise_floor=NOISE,
@@ -112,7 +112,7 @@ def run(kind: str, ex) -> list[str]:
                 dev,
                 FLUX,
                 temperature=0.3,
-                l_phi=LPHI,
+                l_phi=L_PHI,
                 thermal_tol=2e-3,
                 rule=rule,
                 executor=ex,
@@ -132,11 +132,11 @@ def run(kind: str, ex) -> list[str]:
             device,
             radii,
             lambda d: FLUX,
-            l_phi=LPHI,
+            l_phi=L_PHI,
             rule=StoppingRule.fixed(N_C),
             executor=ex,
             fit_kwargs=dict(
-                lphi=LPHI,
+                l_phi=L_PHI,
                 temperature=0.0,
                 mean_free_path=mat.elastic_mean_free_path,
                 fermi_velocity=mat.fermi_velocity,

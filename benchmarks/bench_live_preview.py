@@ -80,7 +80,7 @@ _CONTROL = {
     "seed": "seed",
     "density": "density",
     "gate": "gate",
-    "L_phi": "lphi",
+    "L_phi": "l_phi",
     "temperature": "temperature",
     "field window": "field",
 }

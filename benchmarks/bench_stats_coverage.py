@@ -37,7 +37,7 @@ from pathlib import Path
 import numpy as np
 from scipy import constants
 
-from ringkit.analysis import extract_oscillations, fit_lphi_joint, fit_lphi_temperature
+from ringkit.analysis import extract_oscillations, fit_l_phi_joint, fit_l_phi_temperature
 from ringkit.analysis.fitting import thermal_factor
 
 PHI0 = constants.h / constants.e
@@ -96,9 +96,9 @@ def area_coverage(n_traces: int, rng: np.random.Generator) -> list[dict[str, flo
 def fits(n_sets: int, rng: np.random.Generator) -> dict[str, float]:
     temps = np.array([0.25, 0.4, 0.6, 0.9, 1.4, 2.0, 2.8])
     r, e_c, lref = 0.63e-6, K_B * 1.0, 2.0e-6
-    lphi = lref / temps
-    he = 0.5 * thermal_factor(temps, "ballistic", e_c) * np.exp(-np.pi * r / lphi)
-    h2e = 0.1 * np.exp(-2 * np.pi * r / lphi)
+    l_phi = lref / temps
+    he = 0.5 * thermal_factor(temps, "ballistic", e_c) * np.exp(-np.pi * r / l_phi)
+    h2e = 0.1 * np.exp(-2 * np.pi * r / l_phi)
     truth = {"l_phi_ref": lref, "p": 1.0, "thermal_energy": e_c}
     inside = dict.fromkeys(truth, 0)
     flagged_joint = flagged_single = flagged_power = 0
@@ -107,7 +107,7 @@ def fits(n_sets: int, rng: np.random.Generator) -> dict[str, float]:
         for _ in range(n_sets):
             a1 = he * (1 + 0.03 * rng.normal(size=temps.size))
             a2 = h2e * (1 + 0.03 * rng.normal(size=temps.size))
-            fit = fit_lphi_joint(
+            fit = fit_l_phi_joint(
                 temps,
                 a1,
                 temps,
@@ -119,12 +119,12 @@ def fits(n_sets: int, rng: np.random.Generator) -> dict[str, float]:
             flagged_joint += bool(fit.unconstrained)
             for k, v in truth.items():
                 inside[k] += abs(fit.values[k] - v) < fit.errors[k]
-            single = fit_lphi_temperature(
+            single = fit_l_phi_temperature(
                 temps, a1, radius=r, amplitude_err=0.03 * he, thermal="ballistic"
             )
             flagged_single += bool(single.unconstrained)
             a_pow = 0.3 * temps**-0.5 * (1 + 0.03 * rng.normal(size=temps.size))
-            power = fit_lphi_temperature(temps, a_pow, radius=r, amplitude_err=0.03 * a_pow)
+            power = fit_l_phi_temperature(temps, a_pow, radius=r, amplitude_err=0.03 * a_pow)
             flagged_power += bool(power.unconstrained)
     out = {f"coverage_{k}": inside[k] / n_sets for k in truth}
     out.update(

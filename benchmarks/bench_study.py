@@ -51,7 +51,7 @@ stop = "3 h/e"
 points = 201
 [sweep]
 temperature = "0.3 K"
-dephasing_length = "{lphi}"
+l_phi = "{l_phi}"
 [dephasing]
 probes = 100
 """
@@ -63,8 +63,8 @@ from threadpoolctl import threadpool_limits
 from ringkit.study import make_plan, parse_config
 from ringkit.units import K_B
 
-which, lphi, n_e, old_path = sys.argv[1], sys.argv[2], int(sys.argv[3]), sys.argv[4]
-plan = make_plan(parse_config(sys.argv[5].replace("{lphi}", lphi)))
+which, l_phi, n_e, old_path = sys.argv[1], sys.argv[2], int(sys.argv[3]), sys.argv[4]
+plan = make_plan(parse_config(sys.argv[5].replace("{l_phi}", l_phi)))
 
 
 class Grid:  # a fixed energy grid: the same physics work for both versions
@@ -106,10 +106,10 @@ print(json.dumps({"seconds": dt, "rss_mb": rss, "sites": res.info["n_sites"],
 """
 
 
-def run_case(which: str, lphi: str, n_e: int, old_path: str) -> dict:
+def run_case(which: str, l_phi: str, n_e: int, old_path: str) -> dict:
     env = {k: v for k, v in os.environ.items() if not k.endswith("_NUM_THREADS")}
     p = subprocess.run(
-        [sys.executable, "-c", CHILD, which, lphi, str(n_e), old_path, STUDY],
+        [sys.executable, "-c", CHILD, which, l_phi, str(n_e), old_path, STUDY],
         capture_output=True,
         text=True,
         env=env,
@@ -117,7 +117,7 @@ def run_case(which: str, lphi: str, n_e: int, old_path: str) -> dict:
         check=False,
     )
     if p.returncode:
-        raise SystemExit(f"{which} {lphi}: {p.stderr[-2000:]}")
+        raise SystemExit(f"{which} {l_phi}: {p.stderr[-2000:]}")
     return json.loads(p.stdout.strip().splitlines()[-1])
 
 
@@ -140,8 +140,8 @@ def main() -> None:
     load_before = os.getloadavg()
     results: dict[str, list[dict]] = {name: [] for name, _, _ in cases}
     for _ in range(args.repeat):
-        for name, which, lphi in cases:
-            results[name].append(run_case(which, lphi, args.energies, str(old_path)))
+        for name, which, l_phi in cases:
+            results[name].append(run_case(which, l_phi, args.energies, str(old_path)))
             r = results[name][-1]
             print(f"{name:9s} {r['seconds']:7.1f} s  peak RSS {r['rss_mb']:6.0f} MB", flush=True)
     load_after = os.getloadavg()

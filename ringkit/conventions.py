@@ -1,7 +1,7 @@
 """Path-length convention of the phase-coherence length ``l_phi`` (the one place it lives).
 
 Every ringkit result that contains a phase-coherence length uses this convention and carries
-the string :data:`LPHI_CONVENTION` (key ``lphi_convention``); fits
+the string :data:`L_PHI_CONVENTION` (key ``l_phi_convention``); fits
 (:mod:`ringkit.analysis.fitting`), amplitude predictions (:mod:`ringkit.analysis.scaling`)
 and the dephasing-probe calibration (:mod:`ringkit.transport.probes`) all import it from here.
 
@@ -20,7 +20,7 @@ intensity of one partial wave falls by 1/e):
 Other conventions exist in the literature: diffusive-ring theory damps h/e as
 ``exp(-2 pi R/L_phi)`` (circumference; from memory, Ludwig and Mirlin, Phys. Rev. B 69,
 193306 (2004)). An ``l_phi`` quoted in that convention equals 2x the ringkit value for the
-same h/e damping; :func:`convert_lphi` converts between explicit path-length choices.
+same h/e damping; :func:`convert_l_phi` converts between explicit path-length choices.
 See ``docs/conventions.md`` ("Phase-coherence length").
 """
 
@@ -31,21 +31,21 @@ import numpy as np
 from ringkit._validation import ParameterError, check_positive
 
 __all__ = [
-    "LPHI_CONVENTION",
-    "LPHI_CONVENTION_KEY",
+    "L_PHI_CONVENTION",
+    "L_PHI_CONVENTION_KEY",
     "path_length",
     "coherent_damping",
-    "convert_lphi",
+    "convert_l_phi",
 ]
 
-LPHI_CONVENTION: str = (
+L_PHI_CONVENTION: str = (
     "exp(-L/l_phi), L = explicit path length of the interfering paths; "
     "default L = pi r (h/e, one arm), 2 pi r (h/2e AAS loop), n pi r (n-th harmonic)"
 )
 """Text stated with every output that contains a phase-coherence length."""
 
-LPHI_CONVENTION_KEY: str = "lphi_convention"
-"""Key under which :data:`LPHI_CONVENTION` is stored in results, attrs and JSON."""
+L_PHI_CONVENTION_KEY: str = "l_phi_convention"
+"""Key under which :data:`L_PHI_CONVENTION` is stored in results, attrs and JSON."""
 
 
 def path_length(radius: float | np.ndarray, order: int = 1) -> float | np.ndarray:
@@ -91,13 +91,13 @@ def coherent_damping(length: float | np.ndarray, l_phi: float | np.ndarray) -> n
     return np.exp(-length / lp)
 
 
-def convert_lphi(l_phi: float, from_length: float, to_length: float) -> float:
+def convert_l_phi(l_phi: float, from_length: float, to_length: float) -> float:
     """Re-express ``l_phi`` quoted for path length ``from_length`` for ``to_length``.
 
     The same damping ``exp(-from_length/l_phi)`` equals ``exp(-to_length/l_phi')`` with
     ``l_phi' = l_phi * to_length/from_length``. Example: an h/e value ``l`` quoted with the
     circumference ``2 pi R`` corresponds to the ringkit value (``L = pi R``)
-    ``convert_lphi(l, 2*pi*R, pi*R) == l/2``.
+    ``convert_l_phi(l, 2*pi*R, pi*R) == l/2``.
     """
     check_positive("from_length", from_length, "m")
     check_positive("to_length", to_length, "m")

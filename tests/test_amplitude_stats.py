@@ -213,7 +213,7 @@ def test_amplitude_versus_radius_bands_and_fitted_prefactors():
     radii = (150e-9, 200e-9)
     mat = Material.preset("GaAs", mean_free_path=3e-7)
     model = dict(
-        lphi=math.inf,
+        l_phi=math.inf,
         temperature=0.0,
         mean_free_path=3e-7,
         fermi_velocity=mat.fermi_velocity,

@@ -28,7 +28,7 @@ from ringkit.analysis.checks import (
     refusals,
 )
 from ringkit.analysis.labunits import detectability, parse_quantity, resistance_amplitude
-from ringkit.analysis.tseries import group_by_temperature, lphi_from_series
+from ringkit.analysis.tseries import group_by_temperature, l_phi_from_series
 
 PHI0 = constants.h / constants.e
 R_K = constants.physical_constants["von Klitzing constant"][0]  # h/e^2 in Ohm (CODATA)
@@ -169,20 +169,20 @@ def test_detectability_hand_computed():
     assert d["he"]["exceeds_noise"] and not d["h2e"]["exceeds_noise"]  # 20 pV < 3 nV
 
 
-def test_group_by_temperature_and_lphi_series():
+def test_group_by_temperature_and_l_phi_series():
     assert group_by_temperature([0.5, None, 0.2, 0.5000001, 1.0]) == [[2], [0, 3], [4]]
     # A(T) = 0.4 exp(-L/L_phi), L_phi = 2 um (T/1K)^-1, L = pi r (r = 0.5 um): invented
     temps = [0.3, 0.3, 0.6, 1.0, 1.5, 2.0, None]
     length = math.pi * 0.5e-6
     rms = [0.4 * math.exp(-length * t / 2e-6) / math.sqrt(2) if t else 0.1 for t in temps]
-    out = lphi_from_series(temps, rms, [1e-4] * len(temps), radius=0.5e-6)
+    out = l_phi_from_series(temps, rms, [1e-4] * len(temps), radius=0.5e-6)
     assert [q["n_traces"] for q in out["points"]] == [2, 1, 1, 1, 1]
     assert out["n_traces_without_temperature"] == 1
     fit = out["fit"]
     scale = out["path_length_m"] / length  # whatever path-length convention fitting uses
-    assert out["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=1e-3)
+    assert out["l_phi_ref_m"] == pytest.approx(2e-6 * scale, rel=1e-3)
     assert fit["values"]["p"] == pytest.approx(1.0, rel=1e-3)
-    assert 0 < out["lphi_ref_err_m"] < 0.01 * out["lphi_ref_m"]
-    assert "lphi_convention" in out
+    assert 0 < out["l_phi_ref_err_m"] < 0.01 * out["l_phi_ref_m"]
+    assert "l_phi_convention" in out
     with pytest.raises(ParameterError, match="3 temperatures"):
-        lphi_from_series([0.3, 0.5], [0.1, 0.1], [1e-3, 1e-3], radius=0.5e-6)
+        l_phi_from_series([0.3, 0.5], [0.1, 0.1], [1e-3, 1e-3], radius=0.5e-6)

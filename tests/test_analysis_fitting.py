@@ -18,15 +18,15 @@ from scipy import constants, integrate
 from ringkit._validation import ParameterError
 from ringkit.analysis import (
     extract_oscillations,
-    fit_lphi_size,
-    fit_lphi_temperature,
+    fit_l_phi_size,
+    fit_l_phi_temperature,
+    l_phi_at,
     load_traces,
-    lphi_at,
     thermal_factor,
 )
-from ringkit.analysis.fit_joint import fit_lphi_joint
+from ringkit.analysis.fit_joint import fit_l_phi_joint
 from ringkit.analysis.fitting import UnconstrainedWarning
-from ringkit.conventions import LPHI_CONVENTION, coherent_damping, convert_lphi, path_length
+from ringkit.conventions import L_PHI_CONVENTION, coherent_damping, convert_l_phi, path_length
 
 K_B = constants.k
 DATA = Path(__file__).parent / "data"
@@ -75,8 +75,8 @@ TEMPS = np.array([0.25, 0.4, 0.6, 0.9, 1.4, 2.0, 2.8])
 
 
 def _amp(t):
-    lphi = TRUTH["l_phi_ref"] * t ** (-TRUTH["p"])
-    return TRUTH["amplitude0"] * thermal_factor(t, "ballistic", E_C) * np.exp(-L_PATH / lphi)
+    l_phi = TRUTH["l_phi_ref"] * t ** (-TRUTH["p"])
+    return TRUTH["amplitude0"] * thermal_factor(t, "ballistic", E_C) * np.exp(-L_PATH / l_phi)
 
 
 def test_noise_free_log_linear_case_is_exact():
@@ -84,7 +84,7 @@ def test_noise_free_log_linear_case_is_exact():
     # docs/physics.md, "Amplitude damping and thermal averaging")
     t = np.linspace(0.3, 4.0, 8)
     a = 0.3 * np.exp(-L_PATH * t / 1.5e-6)
-    fit = fit_lphi_temperature(t, a, path_length=L_PATH, p=1.0)
+    fit = fit_l_phi_temperature(t, a, path_length=L_PATH, p=1.0)
     assert fit.values["l_phi_ref"] == pytest.approx(1.5e-6, rel=1e-9)
     assert fit.values["amplitude0"] == pytest.approx(0.3, rel=1e-9)
     assert fit.parameter_names == ("amplitude0", "l_phi_ref")
@@ -95,7 +95,7 @@ def test_temperature_fit_recovers_truth_with_errors():
     rng = np.random.default_rng(12)
     a_true = _amp(TEMPS)
     a = a_true * (1 + 0.03 * rng.normal(size=TEMPS.size))
-    fit = fit_lphi_temperature(
+    fit = fit_l_phi_temperature(
         TEMPS,
         a,
         radius=0.63e-6,
@@ -110,16 +110,16 @@ def test_temperature_fit_recovers_truth_with_errors():
     assert fit.errors["p"] < 0.1 and fit.errors["l_phi_ref"] < 0.1 * TRUTH["l_phi_ref"]
     assert fit.dof == TEMPS.size - 3
     assert 0.1 < fit.reduced_chi2 < 4
-    lphi, err = lphi_at(fit, np.array([0.5, 1.0, 2.0]))
+    l_phi, err = l_phi_at(fit, np.array([0.5, 1.0, 2.0]))
     truth = TRUTH["l_phi_ref"] / np.array([0.5, 1.0, 2.0])
-    assert np.all(np.abs(lphi - truth) < 3 * err)
+    assert np.all(np.abs(l_phi - truth) < 3 * err)
     assert err[1] == pytest.approx(fit.errors["l_phi_ref"], rel=1e-12)  # T = T_ref
 
 
-def test_lphi_at_error_matches_monte_carlo_of_covariance():
+def test_l_phi_at_error_matches_monte_carlo_of_covariance():
     rng = np.random.default_rng(2)
     a = _amp(TEMPS) * (1 + 0.03 * rng.normal(size=TEMPS.size))
-    fit = fit_lphi_temperature(
+    fit = fit_l_phi_temperature(
         TEMPS,
         a,
         path_length=L_PATH,
@@ -133,7 +133,7 @@ def test_lphi_at_error_matches_monte_carlo_of_covariance():
     draws = rng.multivariate_normal(mean, cov, size=200000)
     t = 2.5
     mc = np.std(draws[:, 0] * t ** (-draws[:, 1]))
-    assert lphi_at(fit, t)[1] == pytest.approx(mc, rel=0.03)  # first-order propagation
+    assert l_phi_at(fit, t)[1] == pytest.approx(mc, rel=0.03)  # first-order propagation
 
 
 @pytest.mark.slow
@@ -146,7 +146,7 @@ def test_temperature_fit_coverage():
     within2 = dict.fromkeys(TRUTH, 0)
     for _ in range(n):
         a = a_true * (1 + 0.03 * rng.normal(size=TEMPS.size))
-        fit = fit_lphi_temperature(
+        fit = fit_l_phi_temperature(
             TEMPS,
             a,
             path_length=L_PATH,
@@ -168,11 +168,11 @@ def test_fit_without_errors_scales_by_residuals():
     rng = np.random.default_rng(5)
     a = _amp(TEMPS) * (1 + 0.03 * rng.normal(size=TEMPS.size))
     kw = {"path_length": L_PATH, "thermal": "ballistic", "thermal_energy": E_C}
-    fit = fit_lphi_temperature(TEMPS, a, **kw)
+    fit = fit_l_phi_temperature(TEMPS, a, **kw)
     assert fit.sigma is None
     # equal relative errors give the same weights; absolute_sigma=False rescales the
     # covariance by chi2/dof (scipy.optimize.curve_fit convention)
-    unit = fit_lphi_temperature(TEMPS, a, amplitude_err=0.01 * a, **kw)
+    unit = fit_l_phi_temperature(TEMPS, a, amplitude_err=0.01 * a, **kw)
     for name in TRUTH:
         assert fit.values[name] == pytest.approx(unit.values[name], rel=1e-6)
         assert fit.errors[name] == pytest.approx(
@@ -181,7 +181,7 @@ def test_fit_without_errors_scales_by_residuals():
     # E_c free as well: one harmonic cannot separate x/sinh x from l_phi ∝ 1/T (both give
     # ~exp(-cT)); the fit says so instead of reporting confident numbers (issue 15, pt 6)
     with pytest.warns(UnconstrainedWarning, match="cannot constrain.*p"):
-        free = fit_lphi_temperature(
+        free = fit_l_phi_temperature(
             TEMPS, a, path_length=L_PATH, amplitude_err=0.03 * a, thermal="ballistic"
         )
     assert not free.success and "p" in free.unconstrained
@@ -189,28 +189,28 @@ def test_fit_without_errors_scales_by_residuals():
     assert np.isfinite(free.estimates["p"])
 
 
-def test_size_fit_recovers_lphi():
+def test_size_fit_recovers_l_phi():
     rng = np.random.default_rng(8)
     radius = np.linspace(0.3e-6, 1.5e-6, 8)
-    lphi, lt = 1.5e-6, 1.2e-6
+    l_phi, lt = 1.5e-6, 1.2e-6
     for order, thermal_length in ((1, None), (2, None), (1, lt)):
         length = order * np.pi * radius
         ft = 1.0 if thermal_length is None else np.minimum(1.0, thermal_length / length)
-        a_true = 0.8 * ft * np.exp(-length / lphi)
+        a_true = 0.8 * ft * np.exp(-length / l_phi)
         a = a_true * (1 + 0.05 * rng.normal(size=radius.size))
-        fit = fit_lphi_size(
+        fit = fit_l_phi_size(
             radius, a, order=order, amplitude_err=0.05 * a_true, thermal_length=thermal_length
         )
         assert fit.success
-        assert abs(fit.values["l_phi"] - lphi) < 3 * fit.errors["l_phi"]
-        assert fit.values["l_phi"] == pytest.approx(lphi, rel=0.1)
+        assert abs(fit.values["l_phi"] - l_phi) < 3 * fit.errors["l_phi"]
+        assert fit.values["l_phi"] == pytest.approx(l_phi, rel=0.1)
         assert abs(fit.values["amplitude0"] - 0.8) < 3 * fit.errors["amplitude0"]
         assert fit.predict(radius) == pytest.approx(a_true, rel=0.15)
 
 
 def test_size_fit_not_decaying_is_reported():
     radius = np.linspace(0.3e-6, 1.0e-6, 5)
-    fit = fit_lphi_size(radius, np.array([0.1, 0.11, 0.1, 0.12, 0.13]))
+    fit = fit_l_phi_size(radius, np.array([0.1, 0.11, 0.1, 0.12, 0.13]))
     assert not fit.success and np.isnan(fit.values["l_phi"])
     assert "does not decay" in fit.message
     assert fit.values["inverse_l_phi"] < 0
@@ -218,13 +218,13 @@ def test_size_fit_not_decaying_is_reported():
 
 def test_bad_input_names_parameter():
     with pytest.raises(ParameterError, match="amplitude"):
-        fit_lphi_temperature(TEMPS, np.r_[np.nan, _amp(TEMPS[1:])], path_length=L_PATH)
+        fit_l_phi_temperature(TEMPS, np.r_[np.nan, _amp(TEMPS[1:])], path_length=L_PATH)
     with pytest.raises(ParameterError, match="radius/path_length"):
-        fit_lphi_temperature(TEMPS, _amp(TEMPS))
+        fit_l_phi_temperature(TEMPS, _amp(TEMPS))
     with pytest.raises(ParameterError, match="temperature"):
-        fit_lphi_temperature(TEMPS[:3], _amp(TEMPS[:3]), path_length=L_PATH)
+        fit_l_phi_temperature(TEMPS[:3], _amp(TEMPS[:3]), path_length=L_PATH)
     with pytest.raises(ParameterError, match="order"):
-        fit_lphi_size([1e-6, 2e-6, 3e-6], [0.3, 0.2, 0.1], order=3)
+        fit_l_phi_size([1e-6, 2e-6, 3e-6], [0.3, 0.2, 0.1], order=3)
 
 
 def test_end_to_end_temperature_file():
@@ -241,7 +241,7 @@ def test_end_to_end_temperature_file():
         temps.append(tr.temperature)
         amps.append(res.amplitude_he_rms * np.sqrt(2))  # cosine amplitude
         errs.append(max(res.noise_he_rms * np.sqrt(2), 1e-4))
-    fit = fit_lphi_temperature(
+    fit = fit_l_phi_temperature(
         np.array(temps),
         np.array(amps),
         path_length=t["path_length"],
@@ -249,7 +249,7 @@ def test_end_to_end_temperature_file():
         thermal="ballistic",
         thermal_energy=t["thermal_energy"],
     )
-    truth = {"amplitude0": t["amp0"], "l_phi_ref": t["lphi_1K"], "p": t["p"]}
+    truth = {"amplitude0": t["amp0"], "l_phi_ref": t["l_phi_1K"], "p": t["p"]}
     for name, value in truth.items():
         assert abs(fit.values[name] - value) < 3 * fit.errors[name] + 0.03 * value, name
         assert fit.values[name] == pytest.approx(value, rel=0.15), name
@@ -260,7 +260,7 @@ def test_path_length_convention_is_explicit_and_shared():
 
     h/e: L = pi r (one arm), h/2e: L = 2 pi r (circumference) -- closed forms. Diffusive-ring
     theory damps h/e as exp(-2 pi R/L_phi) (from memory: Ludwig and Mirlin, Phys. Rev. B 69,
-    193306 (2004)): the same data then give twice the ringkit value, which convert_lphi maps.
+    193306 (2004)): the same data then give twice the ringkit value, which convert_l_phi maps.
     """
     r = 0.63e-6
     assert path_length(r, 1) == pytest.approx(np.pi * r, rel=1e-15)
@@ -269,24 +269,24 @@ def test_path_length_convention_is_explicit_and_shared():
     assert coherent_damping(1e-6, np.inf) == 1.0
     radius = np.linspace(0.3e-6, 1.5e-6, 6)
     a = 0.8 * np.exp(-np.pi * radius / 1.5e-6)  # h/e amplitudes, l_phi = 1.5 um (ringkit)
-    default = fit_lphi_size(radius, a)
-    explicit = fit_lphi_size(radius, a, path_length=np.pi * radius)
-    circumference = fit_lphi_size(radius, a, path_length=2 * np.pi * radius)
+    default = fit_l_phi_size(radius, a)
+    explicit = fit_l_phi_size(radius, a, path_length=np.pi * radius)
+    circumference = fit_l_phi_size(radius, a, path_length=2 * np.pi * radius)
     assert default.values["l_phi"] == pytest.approx(1.5e-6, rel=1e-9)
     assert explicit.values["l_phi"] == pytest.approx(default.values["l_phi"], rel=1e-12)
     assert circumference.values["l_phi"] == pytest.approx(3.0e-6, rel=1e-9)
-    assert convert_lphi(circumference.values["l_phi"], 2 * np.pi, np.pi) == pytest.approx(1.5e-6)
+    assert convert_l_phi(circumference.values["l_phi"], 2 * np.pi, np.pi) == pytest.approx(1.5e-6)
     assert circumference.predict(radius) == pytest.approx(a, rel=1e-9)
     t = np.array([0.3, 0.6, 1.0, 2.0])
     a_t = np.exp(-np.pi * r * t / 2e-6)
     kw = {"amplitude_err": 0.01 * a_t, "p": 1.0}
-    by_radius = fit_lphi_temperature(t, a_t, radius=r, **kw)
-    by_length = fit_lphi_temperature(t, a_t, path_length=np.pi * r, **kw)
+    by_radius = fit_l_phi_temperature(t, a_t, radius=r, **kw)
+    by_length = fit_l_phi_temperature(t, a_t, path_length=np.pi * r, **kw)
     assert by_radius.values["l_phi_ref"] == pytest.approx(by_length.values["l_phi_ref"])
     for fit in (default, explicit, circumference, by_radius):
-        assert fit.fixed["lphi_convention"] == LPHI_CONVENTION
+        assert fit.fixed["l_phi_convention"] == L_PHI_CONVENTION
     with pytest.raises(ParameterError, match="path_length"):
-        fit_lphi_size(radius, a, path_length=[1e-6, 2e-6])
+        fit_l_phi_size(radius, a, path_length=[1e-6, 2e-6])
 
 
 def test_thermal_power_law_is_not_reported_as_dephasing():
@@ -298,7 +298,7 @@ def test_thermal_power_law_is_not_reported_as_dephasing():
     for _ in range(20):
         a = 0.3 * TEMPS**-0.5 * (1 + 0.03 * rng.normal(size=TEMPS.size))
         with pytest.warns(UnconstrainedWarning, match="cannot constrain"):
-            fit = fit_lphi_temperature(TEMPS, a, path_length=L_PATH, amplitude_err=0.03 * a)
+            fit = fit_l_phi_temperature(TEMPS, a, path_length=L_PATH, amplitude_err=0.03 * a)
         confident += not fit.unconstrained
         assert not fit.success
     assert confident == 0
@@ -314,9 +314,9 @@ def _joint_amplitudes(t):
     l_phi = l_ref/T (Hansen et al. 2001); the AAS pair is insensitive to the energy average
     (Al'tshuler, Aronov, Spivak, JETP Lett. 33, 94 (1981)); docs/physics.md, "Separating
     thermal averaging from dephasing"."""
-    lphi = LREF_JOINT / t
-    he = 0.5 * thermal_factor(t, "ballistic", E_C_JOINT) * np.exp(-np.pi * R_RING / lphi)
-    return he, 0.1 * np.exp(-2 * np.pi * R_RING / lphi)
+    l_phi = LREF_JOINT / t
+    he = 0.5 * thermal_factor(t, "ballistic", E_C_JOINT) * np.exp(-np.pi * R_RING / l_phi)
+    return he, 0.1 * np.exp(-2 * np.pi * R_RING / l_phi)
 
 
 def test_joint_fit_separates_thermal_averaging_from_dephasing():
@@ -324,7 +324,7 @@ def test_joint_fit_separates_thermal_averaging_from_dephasing():
     he, h2e = _joint_amplitudes(TEMPS)
     a1 = he * (1 + 0.03 * rng.normal(size=TEMPS.size))
     a2 = h2e * (1 + 0.03 * rng.normal(size=TEMPS.size))
-    fit = fit_lphi_joint(
+    fit = fit_l_phi_joint(
         TEMPS,
         a1,
         TEMPS,
@@ -338,14 +338,14 @@ def test_joint_fit_separates_thermal_averaging_from_dephasing():
     for name, value in truth.items():
         assert abs(fit.values[name] - value) < 3 * fit.errors[name], name
     assert fit.errors["p"] < 0.1
-    assert fit.fixed["lphi_convention"] == LPHI_CONVENTION
+    assert fit.fixed["l_phi_convention"] == L_PHI_CONVENTION
     assert fit.fixed["path_length_he"] == pytest.approx(np.pi * R_RING)
     assert fit.predict(TEMPS) == pytest.approx(np.vstack([he, h2e]), rel=0.1)
-    lphi, err = lphi_at(fit, 1.0)
-    assert abs(lphi - LREF_JOINT) < 3 * err
+    l_phi, err = l_phi_at(fit, 1.0)
+    assert abs(l_phi - LREF_JOINT) < 3 * err
     # the same h/e data alone, energy scale free: not separable, and said so
-    with pytest.warns(UnconstrainedWarning, match="fit_lphi_joint"):
-        single = fit_lphi_temperature(
+    with pytest.warns(UnconstrainedWarning, match="fit_l_phi_joint"):
+        single = fit_l_phi_temperature(
             TEMPS, a1, radius=R_RING, amplitude_err=0.03 * he, thermal="ballistic"
         )
     assert single.unconstrained
@@ -359,7 +359,7 @@ def test_joint_fit_warns_when_data_cannot_discriminate():
     a1 = he * (1 + 0.03 * rng.normal(size=t.size))
     a2 = h2e * (1 + 0.2 * rng.normal(size=t.size))
     with pytest.warns(UnconstrainedWarning, match=r"cannot constrain .*\bp\b") as rec:
-        fit = fit_lphi_joint(
+        fit = fit_l_phi_joint(
             t,
             a1,
             t[[0, -1]],
@@ -370,7 +370,7 @@ def test_joint_fit_warns_when_data_cannot_discriminate():
         )
     assert "discriminate" in str(rec[0].message)
     assert "p" in fit.unconstrained and np.isnan(fit.values["p"]) and not fit.success
-    assert np.all(np.isnan(lphi_at(fit, t)[0]))  # no confident l_phi(T) either
+    assert np.all(np.isnan(l_phi_at(fit, t)[0]))  # no confident l_phi(T) either
 
 
 def test_joint_fit_error_coverage():
@@ -384,7 +384,7 @@ def test_joint_fit_error_coverage():
     for _ in range(n):
         a1 = he * (1 + 0.03 * rng.normal(size=TEMPS.size))
         a2 = h2e * (1 + 0.03 * rng.normal(size=TEMPS.size))
-        fit = fit_lphi_joint(
+        fit = fit_l_phi_joint(
             TEMPS,
             a1,
             TEMPS,
@@ -401,7 +401,7 @@ def test_joint_fit_error_coverage():
 
 def test_joint_fit_fixed_energy_and_bad_input():
     he, h2e = _joint_amplitudes(TEMPS)
-    fit = fit_lphi_joint(
+    fit = fit_l_phi_joint(
         TEMPS,
         he,
         TEMPS,
@@ -416,10 +416,10 @@ def test_joint_fit_fixed_energy_and_bad_input():
     assert fit.values["p"] == pytest.approx(1.0, abs=1e-6)
     assert fit.fixed["thermal_energy"] == E_C_JOINT
     with pytest.raises(ParameterError, match="radius/path_length"):
-        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, path_length_he=1e-6)
+        fit_l_phi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, path_length_he=1e-6)
     with pytest.raises(ParameterError, match="amplitude_he_err/amplitude_h2e_err"):
-        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, amplitude_he_err=0.1)
+        fit_l_phi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, amplitude_he_err=0.1)
     with pytest.raises(ParameterError, match="temperature_he/temperature_h2e"):
-        fit_lphi_joint(TEMPS, he, TEMPS[:1], h2e[:1], radius=R_RING)
+        fit_l_phi_joint(TEMPS, he, TEMPS[:1], h2e[:1], radius=R_RING)
     with pytest.raises(ParameterError, match="thermal_energy"):
-        fit_lphi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, thermal_energy=-1.0)
+        fit_l_phi_joint(TEMPS, he, TEMPS, h2e, radius=R_RING, thermal_energy=-1.0)

@@ -25,7 +25,7 @@ from ringkit.analysis.scaling import fit_amplitude_prefactors
 PHI0 = constants.h / constants.e
 HBAR, K_B = constants.hbar, constants.k
 R = np.linspace(0.2e-6, 2.0e-6, 19)
-BASE = {"lphi": 3e-6, "temperature": 0.3, "mean_free_path": 0.1e-6, "fermi_velocity": 2e5}
+BASE = {"l_phi": 3e-6, "temperature": 0.3, "mean_free_path": 0.1e-6, "fermi_velocity": 2e5}
 HUGE_G = {"conductance": 1e7}  # makes the bound by G irrelevant (tests of the raw laws)
 
 
@@ -35,7 +35,7 @@ def test_periods_and_labels():
     assert ds["frequency_he"].values == pytest.approx(np.pi * R**2 / PHI0, rel=1e-14)
     assert ds["radius"].attrs["units"] == "m"
     assert ds["amplitude_he_rms"].attrs["units"] == "e^2/h"
-    for key in ("lphi_m", "temperature_K", "mean_free_path_m", "model", "references"):
+    for key in ("l_phi_m", "temperature_K", "mean_free_path_m", "model", "references"):
         assert key in ds.attrs
     assert set(ds["regime"].values) == {"diffusive"}
 
@@ -43,7 +43,7 @@ def test_periods_and_labels():
 def test_zero_temperature_no_dephasing_gives_prefactors():
     ds = predict_amplitudes(
         R,
-        lphi=np.inf,
+        l_phi=np.inf,
         temperature=0.0,
         mean_free_path=0.1e-6,
         fermi_velocity=2e5,
@@ -60,7 +60,7 @@ def test_zero_temperature_no_dephasing_gives_prefactors():
 
 def test_dephasing_ratio_is_exponential_in_path_length():
     ds = predict_amplitudes(
-        R, lphi=1.3e-6, temperature=0.0, mean_free_path=0.05e-6, fermi_velocity=2e5, **HUGE_G
+        R, l_phi=1.3e-6, temperature=0.0, mean_free_path=0.05e-6, fermi_velocity=2e5, **HUGE_G
     )
     he = ds["amplitude_he_rms"].values
     assert he[1:] / he[:-1] == pytest.approx(np.exp(-np.pi * np.diff(R) / 1.3e-6), rel=1e-12)
@@ -74,7 +74,7 @@ def test_diffusive_thermal_law_and_aas_temperature_independent():
     for t in temps:
         ds = predict_amplitudes(
             [1.5e-6],
-            lphi=5e-6,
+            l_phi=5e-6,
             temperature=t,
             mean_free_path=0.05e-6,
             fermi_velocity=2e5,
@@ -97,7 +97,7 @@ def test_ballistic_thermal_factor_check_value():
     length = np.pi * r
     t = HBAR * vf / (K_B * length)  # x = pi k_B T L/(hbar v_F) = pi
     ds = predict_amplitudes(
-        [r], lphi=np.inf, temperature=t, mean_free_path=10.0, fermi_velocity=vf, **HUGE_G
+        [r], l_phi=np.inf, temperature=t, mean_free_path=10.0, fermi_velocity=vf, **HUGE_G
     )
     assert ds["regime"].values[0] == "ballistic"
     assert float(ds["thermal_factor_he"][0]) == pytest.approx(np.pi / np.sinh(np.pi), rel=1e-5)
@@ -117,7 +117,7 @@ def test_series_array_averaging():
 
 def test_regime_switch_at_mean_free_path():
     ds = predict_amplitudes(
-        R, lphi=3e-6, temperature=0.1, mean_free_path=np.pi * 1.0e-6, fermi_velocity=2e5
+        R, l_phi=3e-6, temperature=0.1, mean_free_path=np.pi * 1.0e-6, fermi_velocity=2e5
     )
     assert np.all(ds["regime"].values[R * np.pi > np.pi * 1.0e-6 + 1e-12] == "diffusive")
     assert np.all(ds["regime"].values[R < 1.0e-6 - 1e-12] == "ballistic")
@@ -127,7 +127,7 @@ def test_material_like_input_and_override():
     mat = SimpleNamespace(
         fermi_velocity=2e5,
         elastic_mean_free_path=0.1e-6,
-        phase_coherence_length=3e-6,
+        l_phi=3e-6,
         temperature=0.3,
     )
     a = predict_amplitudes(R, material=mat)
@@ -167,7 +167,7 @@ def test_simulated_points_side_by_side():
 
 
 def test_errors_name_parameter():
-    with pytest.raises(ParameterError, match="lphi"):
+    with pytest.raises(ParameterError, match="l_phi"):
         predict_amplitudes(R, temperature=0.3, mean_free_path=1e-7, fermi_velocity=2e5)
     with pytest.raises(ParameterError, match="radius"):
         predict_amplitudes([-1e-6], **BASE)
@@ -178,7 +178,7 @@ def test_errors_name_parameter():
 
 
 GRID = [
-    dict(lphi=lp, temperature=t, mean_free_path=mfp, fermi_velocity=2e5, n_modes=n, **g)
+    dict(l_phi=lp, temperature=t, mean_free_path=mfp, fermi_velocity=2e5, n_modes=n, **g)
     for lp in (0.3e-6, 3e-6, np.inf)
     for t in (0.0, 0.3, 4.0)
     for mfp in (0.02e-6, 0.5e-6, 20e-6)
@@ -206,7 +206,7 @@ def test_amplitudes_bounded_by_conductance_over_a_parameter_grid():
 def test_ballistic_amplitude_grows_as_sqrt_of_modes_diffusive_is_universal():
     # ballistic (l >> pi r): N independent channel phases, rms ~ sqrt(N) (central limit);
     # diffusive (l << pi r): universal, of order e^2/h whatever N (Lee and Stone 1985)
-    kw = dict(lphi=np.inf, temperature=0.0, fermi_velocity=2e5, **HUGE_G)
+    kw = dict(l_phi=np.inf, temperature=0.0, fermi_velocity=2e5, **HUGE_G)
     r = np.array([0.5e-6])
     he = [
         float(predict_amplitudes(r, mean_free_path=1e3, n_modes=n, **kw)["amplitude_he_rms"][0])
@@ -228,7 +228,7 @@ def test_ballistic_amplitude_grows_as_sqrt_of_modes_diffusive_is_universal():
     ]
     assert dif == pytest.approx([dif[0]] * 4, rel=1e-4)
     # with the model conductance 2N/(1 + pi r/2l) the amplitude/G ratio falls with N
-    g_kw = dict(lphi=np.inf, temperature=0.0, fermi_velocity=2e5, mean_free_path=1e3)
+    g_kw = dict(l_phi=np.inf, temperature=0.0, fermi_velocity=2e5, mean_free_path=1e3)
     ratio = [
         float(
             (lambda d: d["amplitude_he_rms"][0] / d["conductance"][0])(
@@ -254,20 +254,20 @@ def test_curves_are_continuous_in_radius():
     # the old model's 0.7 -> 1.0 jump at the panel defaults is gone: step at r = l/pi is tiny
     r = np.array([0.999, 1.001]) * 0.12e-6  # either side of r = l/pi
     ds = predict_amplitudes(
-        r, lphi=3e-6, temperature=0.3, mean_free_path=0.12e-6 * np.pi, fermi_velocity=2e5
+        r, l_phi=3e-6, temperature=0.3, mean_free_path=0.12e-6 * np.pi, fermi_velocity=2e5
     )
     y = ds["amplitude_h2e_rms"].values
     assert abs(y[1] - y[0]) < 1e-2 * y[0]
     ds = predict_amplitudes(r, **BASE)
     assert ds.attrs["regime_boundary_radius"] == pytest.approx(0.1e-6 / np.pi)
-    assert ds.attrs["lphi_convention"].startswith("exp(-L/l_phi)")
+    assert ds.attrs["l_phi_convention"].startswith("exp(-L/l_phi)")
 
 
 def test_fit_prefactors_recovers_known_values():
     # invented data for this test: the model with c_he = 0.35, c_aas = 0.12 plus 3 % Gaussian
     # noise (labelled invented; the real use is issue 13's simulated ensemble medians)
     r = np.linspace(0.3e-6, 1.0e-6, 8)
-    kw = dict(lphi=2e-6, temperature=0.1, mean_free_path=0.3e-6, fermi_velocity=2e5, n_modes=3)
+    kw = dict(l_phi=2e-6, temperature=0.1, mean_free_path=0.3e-6, fermi_velocity=2e5, n_modes=3)
     true = predict_amplitudes(r, coherent_amplitude=0.35, aas_amplitude=0.12, **kw)
     exact = fit_amplitude_prefactors(
         r,

@@ -310,7 +310,7 @@ def test_json_keeps_old_keys_and_adds_new(capsys):
     assert d["temperature_K"] == pytest.approx(0.3)
 
 
-def test_temperature_series_lphi_fit(capsys):
+def test_temperature_series_l_phi_fit(capsys):
     t = _mk.TRUTH["ring_temperatures.csv"]
     temps_file = str(DATA / "ring_temperatures.csv")
     d = _json(capsys, temps_file, "--r-in", "610nm", "--r-out", "650nm")  # no --group-by
@@ -318,18 +318,18 @@ def test_temperature_series_lphi_fit(capsys):
     assert len({tr["label"] for tr in d["traces"]}) == 6
     series = [temps_file, "--group-by", "temperature", "--r-in", "610nm", "--r-out", "650nm"]
     d = _json(capsys, *series, "--thermal", "ballistic", "--thermal-energy", "2K")
-    s = d["lphi_series"]
+    s = d["l_phi_series"]
     assert [q["temperature_K"] for q in s["points"]] == pytest.approx(list(t["temperatures"]))
     scale = s["path_length_m"] / t["path_length"]  # path-length convention of the fit
-    truth = t["lphi_1K"] * scale
-    assert abs(s["lphi_ref_m"] - truth) < 3 * s["lphi_ref_err_m"] + 0.03 * truth
+    truth = t["l_phi_1K"] * scale
+    assert abs(s["l_phi_ref_m"] - truth) < 3 * s["l_phi_ref_err_m"] + 0.03 * truth
     assert s["fit"]["values"]["p"] == pytest.approx(t["p"], rel=0.05)
-    assert "lphi_convention" in s
+    assert "l_phi_convention" in s
     assert main(["analyze", *series]) == 0
     assert "L_phi(T) from 6 temperatures" in capsys.readouterr().out
     assert "3 temperatures" in _fail(capsys, UPDOWN, "--group-by", "temperature")
     d = _json(capsys, temps_file, "--group-by", "T (K)", "--r-in", "610nm", "--r-out", "650nm")
-    assert len(d["lphi_series"]["points"]) == 6  # a temperature column named by the user
+    assert len(d["l_phi_series"]["points"]) == 6  # a temperature column named by the user
 
 
 def test_non_finite_rows_reported_not_contradicted(tmp_path, capsys):
@@ -367,10 +367,10 @@ def test_temperature_series_from_a_folder_of_files(tmp_path, capsys):
     d = _json(
         capsys, str(tmp_path), "--group-by", "temperature", "--r-in", "480nm", "--r-out", "520nm"
     )
-    s = d["lphi_series"]
+    s = d["l_phi_series"]
     assert [q["temperature_K"] for q in s["points"]] == [0.3, 0.6, 1.0, 1.5]
     scale = s["path_length_m"] / (np.pi * 500e-9)
-    assert s["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.01)
+    assert s["l_phi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.01)
 
 
 def test_joint_fit_separates_thermal_averaging(tmp_path, capsys):
@@ -381,9 +381,9 @@ def test_joint_fit_separates_thermal_averaging(tmp_path, capsys):
     r = 500e-9
     f = np.pi * r**2 / 4.135667696923859e-15
     for temp in (0.2, 0.4, 0.7, 1.0, 1.5):
-        lphi, x = 2e-6 / temp, np.pi * temp
-        a1 = 0.4 * x / np.sinh(x) * np.exp(-np.pi * r / lphi)
-        a2 = 0.1 * np.exp(-2 * np.pi * r / lphi)
+        l_phi, x = 2e-6 / temp, np.pi * temp
+        a1 = 0.4 * x / np.sinh(x) * np.exp(-np.pi * r / l_phi)
+        a2 = 0.1 * np.exp(-2 * np.pi * r / l_phi)
         g = 2 + a1 * np.cos(2 * np.pi * f * b) + a2 * np.cos(4 * np.pi * f * b + 0.3)
         (tmp_path / f"ring_{temp}K.csv").write_text(
             "B (T),G (e^2/h)\n"
@@ -391,9 +391,9 @@ def test_joint_fit_separates_thermal_averaging(tmp_path, capsys):
         )
     args = [str(tmp_path), "--group-by", "temperature", "--r-in", "480nm", "--r-out", "520nm"]
     d = _json(capsys, *args, "--fit", "joint", "--thermal", "ballistic")
-    s = d["lphi_series"]
+    s = d["l_phi_series"]
     assert s["fit"]["joint"] and len(s["points_h2e"]) == 5
     scale = s["path_length_m"] / (np.pi * r)  # path-length convention of the fit
-    assert s["lphi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.03)
+    assert s["l_phi_ref_m"] == pytest.approx(2e-6 * scale, rel=0.03)
     ec = s["fit"]["values"]["thermal_energy"]
     assert ec == pytest.approx(1.380649e-23, rel=0.1)  # k_B x 1 K (SI exact)

@@ -49,7 +49,7 @@ stop = "1.2 T"
 points = 96
 [sweep]
 temperature = ["0 K", "1 K"]
-dephasing_length = ["inf", "300 nm"]
+l_phi = ["inf", "300 nm"]
 [thermal]
 tol = 0.1
 [dephasing]
@@ -99,10 +99,10 @@ def test_study_outputs_and_physics(reference, tiny_file):
     cfg = load_config(tiny_file)
     # SI coordinates and every parameter in the attributes
     assert ds["B"].attrs["units"] == "T" and ds["temperature"].attrs["units"] == "K"
-    assert ds["dephasing_length"].attrs["units"] == "m"
+    assert ds["l_phi"].attrs["units"] == "m"
     np.testing.assert_array_equal(ds["B"].values, np.linspace(-1.2, 1.2, 96))
     assert list(ds["seed"].values) == [5, 6, 7]
-    assert np.isinf(ds["dephasing_length"].values[0])
+    assert np.isinf(ds["l_phi"].values[0])
     for row in cfg.describe():
         key = row[0]
         assert any(a == key or a.startswith(key + " [") for a in ds.attrs) or row[1] == "(not set)"
@@ -172,7 +172,7 @@ def test_study_matches_plain_kwant(reference, tiny_file):
         return 2.0 * sm.transmission(1, 0)  # spin degeneracy
 
     mu = ring.fermi_energy
-    got0 = ds["G"].sel(temperature=0.0).isel(realization=1, dephasing_length=0).values.ravel()
+    got0 = ds["G"].sel(temperature=0.0).isel(realization=1, l_phi=0).values.ravel()
     for b in fields:
         i = int(np.argmin(np.abs(ds["B"].values - b)))
         assert got0[i] == pytest.approx(g_kwant(mu, b), abs=1e-8)
@@ -184,8 +184,8 @@ def test_study_matches_plain_kwant(reference, tiny_file):
     from scipy.integrate import quad
 
     kt = sc.k * 1.0
-    got1 = ds["G"].sel(temperature=1.0).isel(realization=1, dephasing_length=0).values.ravel()
-    err1 = ds["thermal_error"].sel(temperature=1.0).isel(realization=1, dephasing_length=0)
+    got1 = ds["G"].sel(temperature=1.0).isel(realization=1, l_phi=0).values.ravel()
+    err1 = ds["thermal_error"].sel(temperature=1.0).isel(realization=1, l_phi=0)
     est = float(err1.values.max())
     assert 0 < est <= 0.1
     b = fields[1]
@@ -213,7 +213,7 @@ def test_energy_and_gate_axes_match_plain_kwant(tmp_path):
     overrides = [
         "--set", 'sweep.fermi_energy=["5.2 meV", "5.8 meV"]',
         "--set", 'sweep.gate_potential=["0 meV", "0.4 meV"]',
-        "--set", 'sweep.temperature="0 K"', "--set", 'sweep.dephasing_length="inf"',
+        "--set", 'sweep.temperature="0 K"', "--set", 'sweep.l_phi="inf"',
         "--set", "ensemble.realizations=1", "--set", "field.points=48",
         "--set", 'executor.kind="serial"',
     ]  # fmt: skip
@@ -372,7 +372,7 @@ def test_flux_tube_study_has_period_h_over_e(tmp_path):
     assert ds["flux"].attrs["units"] == "Wb"
     phi0 = sc.h / sc.e  # scipy.constants
     flux = ds["flux"].values
-    g = ds["G"].values[0, 0, 0, 0]  # (dephasing_length, flux)
+    g = ds["G"].values[0, 0, 0, 0]  # (l_phi, flux)
     # exact periodicity: G(flux + h/e) = G(flux) on the grid points one period apart
     step = flux[1] - flux[0]
     shift = int(round(phi0 / step))
@@ -391,7 +391,7 @@ def test_demo_reduced(tmp_path):
     rc, stdout, _ = run_cli(
         "demo", "--out", str(out), "--quiet", "--confirm-above", "0",  # the demo never asks
         "--set", "ensemble.realizations=1", "--set", "field.points=64",
-        "--set", 'sweep.temperature="0 K"', "--set", 'sweep.dephasing_length="inf"',
+        "--set", 'sweep.temperature="0 K"', "--set", 'sweep.l_phi="inf"',
         "--set", 'executor.kind="serial"', "--set", 'output.report="html"',
     )  # fmt: skip
     assert rc == 0
@@ -412,7 +412,7 @@ def test_demo_reduced(tmp_path):
     assert (g["r_in"] + g["r_out"]) / 2 >= 0.4e-6 and demo["field"]["mode"] == "flux_tube"
     temps = demo["sweep"]["temperature"]
     assert len(temps) >= 2 and min(temps) <= 0.5 and min(temps) > 0
-    assert any(math.isfinite(d) for d in demo["sweep"]["dephasing_length"])
+    assert any(math.isfinite(d) for d in demo["sweep"]["l_phi"])
     assert demo["ensemble"]["realizations"] >= 6
 
 
@@ -455,7 +455,7 @@ def test_example_config_prints_a_valid_study(tmp_path):
         ),
         (
             TINY.replace('"300 nm"]', '"30 nm"]'),
-            "sweep.dephasing_length[1] = '30 nm' is not allowed: must be >= the spacing of "
+            "sweep.l_phi[1] = '30 nm' is not allowed: must be >= the spacing of "
             "the 8 dephasing probes",
         ),
         (TINY.replace('"70 nm"', "70"), 'geometry.r_in = 70 has no unit; write "70 nm"'),
@@ -510,7 +510,7 @@ def test_cost_estimate_is_printed_and_long_studies_need_yes(tiny_file, tmp_path)
     # with --yes a study above the limit runs
     rc, _, err = run_cli(
         "study", str(tiny_file), "--out", str(tmp_path / "small"), "--confirm-above", "0",
-        "--yes", "--set", "ensemble.realizations=1", "--set", 'sweep.dephasing_length="inf"',
+        "--yes", "--set", "ensemble.realizations=1", "--set", 'sweep.l_phi="inf"',
         "--set", 'sweep.temperature="0 K"', "--set", 'executor.kind="serial"',
     )  # fmt: skip
     assert rc == 0, err
@@ -638,7 +638,7 @@ def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypa
     monkeypatch.setattr(probes, "attach_probes", attach)
     monkeypatch.setattr(compute.UnitEngine, "conductance", conductance)
     compute.clear_cache()
-    unit = next(u for u in plan.units if np.isfinite(u.dephasing_length))
+    unit = next(u for u in plan.units if np.isfinite(u.l_phi))
     res = compute.compute_unit(compute.make_tasks(plan, [unit])[0])
     n_total = res.info["n_energies_total"]
     assert res.n_energies[0] == 1 and res.n_energies[1] >= 15
@@ -647,7 +647,7 @@ def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypa
     assert threads and set(threads) == {1}
     ring = compute.state_for(compute.make_tasks(plan, [unit])[0]).ring
     lib = fast_field_conductance(
-        ring, plan.field, energy=ring.fermi_energy, l_phi=unit.dephasing_length, n_probes=8
+        ring, plan.field, energy=ring.fermi_energy, l_phi=unit.l_phi, n_probes=8
     )
     # same mapping at E_F; the study rounds eta to 8 digits (bit-for-bit resumes)
     np.testing.assert_allclose(res.conductance[0], lib.conductance, rtol=0, atol=1e-6)

@@ -40,7 +40,7 @@ def test_gaas_preset_and_derived_fermi_quantities():
     assert gaas.sheet_density == pytest.approx(3e15, rel=1e-12)
     # Chang et al. ring (Surf. Sci. 196, 46 (1988)): 4e4 cm^2/Vs, L_phi ~ 0.4 um
     assert gaas.mobility == pytest.approx(4.0)
-    assert gaas.phase_coherence_length == pytest.approx(0.4e-6)
+    assert gaas.l_phi == pytest.approx(0.4e-6)
 
 
 def test_inas_and_au_presets():
@@ -92,8 +92,8 @@ def test_transport_lengths_from_mobility():
         ),
         (dict(effective_mass=0.067, density=1e15, temperature=-1.0), "temperature"),
         (
-            dict(effective_mass=0.067, density=1e15, phase_coherence_length=0.0),
-            "phase_coherence_length",
+            dict(effective_mass=0.067, density=1e15, l_phi=0.0),
+            "l_phi",
         ),
     ],
 )

@@ -322,7 +322,7 @@ def test_finite_temperature_matches_dense_quadrature():
 
 
 def test_dephasing_limit_is_classical():
-    ring = NetworkRing(0.5e-6, **GAAS, coupling=0.4, phase_coherence_length=1e-9)
+    ring = NetworkRing(0.5e-6, **GAAS, coupling=0.4, l_phi=1e-9)
     g = ring.conductance(np.linspace(0, 0.02, 30))
     np.testing.assert_allclose(g, 2 * 2 * 0.4 / (2 - 0.4), atol=1e-9)
     assert coherent_fraction(2.0, 1.0) == pytest.approx(math.exp(-2.0))

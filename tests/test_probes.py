@@ -18,27 +18,27 @@ import pytest
 from engine_systems import chain_loop, square_ring
 
 from ringkit._validation import ParameterError
-from ringkit.conventions import LPHI_CONVENTION
+from ringkit.conventions import L_PHI_CONVENTION
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeModel, FluxTubeSweeper
 from ringkit.transport.probe_calibration import (
     VALIDATED_DAMPING,
     CalibrationRangeWarning,
-    LphiCalibrator,
+    LPhiCalibrator,
     ProbeFluxSolver,
     calibrate_probes,
     default_calibration_energies,
-    measure_realised_lphi,
+    measure_realised_l_phi,
 )
 from ringkit.transport.probes import (
     ANALYTIC_LATTICE_FACTOR,
     DephasingProbes,
     attach_probes,
     conductance_matrix_from_transmission,
-    coupling_from_lphi,
+    coupling_from_l_phi,
     effective_conductance,
+    l_phi_from_coupling,
     local_dos,
-    lphi_from_coupling,
     policy_probe_conductance,
     ring_probe_sites,
     thermal_probe_conductance,
@@ -168,7 +168,7 @@ def test_h_over_e_amplitude_falls_monotonically_with_coupling():
     assert amps[-1] < 0.3 * amps[0]
 
 
-def _fitted_lphi(builder, sizes, l_phi, energies, n_probes_of):
+def _fitted_l_phi(builder, sizes, l_phi, energies, n_probes_of):
     """Fit log(A(eta)/A(0)) = const - L_arm/L_phi over rings of several arm lengths."""
     arm, ratio = [], []
     for size in sizes:
@@ -187,7 +187,7 @@ def _fitted_lphi(builder, sizes, l_phi, energies, n_probes_of):
     return -1.0 / slope
 
 
-def test_lphi_mapping_single_channel_ring():
+def test_l_phi_mapping_single_channel_ring():
     # Single-channel square loops (arms of w + 2h = 2w sites): the mapping is exact per probe
     # (module docstring), so the fitted decay length must match within the scatter of the
     # energy average (~10 %).
@@ -195,7 +195,7 @@ def test_lphi_mapping_single_channel_ring():
         return chain_loop(2 * h, h, h), 4 * h
 
     l_phi = 30.0
-    fitted = _fitted_lphi(
+    fitted = _fitted_l_phi(
         builder,
         (4, 7, 10, 13, 16),
         l_phi,
@@ -259,18 +259,18 @@ def test_full_dephasing_single_probe_gives_series_resistance():
 
 
 def test_mapping_inverse_and_validation():
-    eta = coupling_from_lphi(40.0, velocity=1.3, probe_fraction=0.05)
-    assert lphi_from_coupling(eta, velocity=1.3, probe_fraction=0.05) == pytest.approx(40.0)
+    eta = coupling_from_l_phi(40.0, velocity=1.3, probe_fraction=0.05)
+    assert l_phi_from_coupling(eta, velocity=1.3, probe_fraction=0.05) == pytest.approx(40.0)
     # weak coupling: rate picture 1/tau = eta f, L_phi = v tau (module docstring)
-    eta_weak = coupling_from_lphi(1e4, velocity=1.3, probe_fraction=0.05)
+    eta_weak = coupling_from_l_phi(1e4, velocity=1.3, probe_fraction=0.05)
     assert eta_weak == pytest.approx(1.3 / (0.05 * 1e4), rel=1e-3)  # correction 1/(4 f L)
-    eta_d = coupling_from_lphi(20.0, velocity=1.0, probe_fraction=0.1, diffusion_constant=3.0)
+    eta_d = coupling_from_l_phi(20.0, velocity=1.0, probe_fraction=0.1, diffusion_constant=3.0)
     assert eta_d == pytest.approx(3.0 / (0.1 * 400.0))
     assert 0 < ANALYTIC_LATTICE_FACTOR < 1
     with pytest.raises(ParameterError, match="l_phi"):
-        coupling_from_lphi(-1.0, velocity=1.0, probe_fraction=0.1)
+        coupling_from_l_phi(-1.0, velocity=1.0, probe_fraction=0.1)
     with pytest.raises(ParameterError, match="probe_fraction"):
-        coupling_from_lphi(10.0, velocity=1.0, probe_fraction=2.0)
+        coupling_from_l_phi(10.0, velocity=1.0, probe_fraction=2.0)
     with pytest.raises(ParameterError, match="probes.sites"):
         FieldSweeper(
             _ring(), field_param="phi", energy=0.5, probes=DephasingProbes(np.array([0, 0]), 0.1)
@@ -409,7 +409,7 @@ def test_probe_flux_solver_equals_real_probe_leads_in_kwant():
         assert np.max(np.abs(got[k] - ref)) < TOL
 
 
-def test_realised_lphi_on_held_out_seeds_and_widths():
+def test_realised_l_phi_on_held_out_seeds_and_widths():
     # Acceptance of issue 15.1. Disorder seeds, energies and disorder strengths are drawn at
     # test time from numpy default_rng(20261204) (not used in development, which used
     # default_rng(1) and the benchmark's default_rng(20261205)); arm widths 3..15 sites.
@@ -426,11 +426,11 @@ def test_realised_lphi_on_held_out_seeds_and_widths():
         )
         model = FluxTubeModel(fsyst, flux_period=1.0)
         pr = calibrate_probes(model, l_phi, e0, n_probes=64, radius=rm)
-        assert pr.info["lphi_convention"] == LPHI_CONVENTION
+        assert pr.info["l_phi_convention"] == L_PHI_CONVENTION
         assert np.isfinite(pr.info["l_phi_realised_err"]) and pr.info["l_phi_realised_err"] > 0
         v = float(np.mean(np.abs(fsyst.leads[0].modes(e0)[0].velocities)))
         held = default_calibration_energies(e0 + 0.5 * v / (2 * np.pi * rm), v, rm, 16)
-        m = measure_realised_lphi(ProbeFluxSolver(model, pr.sites, held), pr.eta, radius=rm)
+        m = measure_realised_l_phi(ProbeFluxSolver(model, pr.sites, held), pr.eta, radius=rm)
         ok.append(abs(m["l_phi_realised"] / l_phi - 1) <= 0.15)
         pulls.append((m["l_phi_realised"] - l_phi) / np.hypot(m["l_phi_realised_err"], 1e-9))
     assert np.mean(ok) >= 0.8, ok
@@ -439,7 +439,7 @@ def test_realised_lphi_on_held_out_seeds_and_widths():
 
 def test_calibration_range_warning_and_linear_extrapolation():
     fsyst = square_ring(14, 10, 4, disorder=0.7, seed=11, field_param="flux")
-    cal = LphiCalibrator(
+    cal = LPhiCalibrator(
         FluxTubeModel(fsyst, flux_period=1.0), 1.0, n_probes=24, radius=12.0, n_energies=8
     )  # one set-up, several L_phi
     lo, hi = VALIDATED_DAMPING
@@ -459,7 +459,7 @@ def test_calibration_range_warning_and_linear_extrapolation():
 def test_attach_probes_reports_its_status_and_convention():
     fsyst = square_ring(12, 8, 4, disorder=1.0, seed=3, field_param="flux")
     pr = attach_probes(fsyst, l_phi=30.0, energy=1.1, n_probes=6, zero_field={"flux": 0.0})
-    assert pr.info["lphi_convention"] == LPHI_CONVENTION
+    assert pr.info["l_phi_convention"] == L_PHI_CONVENTION
     assert pr.info["l_phi_realised"] is None and "not measured" in pr.info["l_phi_status"]
 
 
@@ -513,7 +513,7 @@ def test_probe_types_through_the_thermal_policy():
         assert np.all(err <= np.asarray(res.errors) + 1e-4), (probe_type, err, res.errors)
 
 
-def test_field_sweep_results_report_the_realised_lphi():
+def test_field_sweep_results_report_the_realised_l_phi():
     # issue 15.1: a result with dephasing states the L_phi it realises (measured, with an
     # error) or says that the coupling is the unmeasured analytic estimate; the path-length
     # convention travels with it (ringkit.conventions)
@@ -530,9 +530,9 @@ def test_field_sweep_results_report_the_realised_lphi():
     ring = build_ring(dev, seed=5)
     flux = np.linspace(0, 2, 17) * PHI0
     kw = dict(energy=ring.fermi_energy, l_phi=0.25e-6, n_probes=24)
-    res = fast_field_conductance(ring, flux, calibrate_lphi=True, **kw)
+    res = fast_field_conductance(ring, flux, calibrate_l_phi=True, **kw)
     assert res.info["l_phi_realised_m"] == pytest.approx(0.25e-6, rel=0.031)
     assert 0 < res.info["l_phi_realised_err_m"] < 0.5e-6
-    assert res.info["lphi_convention"] == LPHI_CONVENTION
+    assert res.info["l_phi_convention"] == L_PHI_CONVENTION
     plain = fast_field_conductance(ring, flux, **kw)
     assert np.isnan(plain.info["l_phi_realised_m"]) and "not measured" in plain.info["l_phi_status"]

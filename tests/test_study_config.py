@@ -108,7 +108,7 @@ def test_default_study_and_example_config_agree():
 
 
 def test_to_toml_round_trip_is_exact():
-    c = cfg('[sweep]\ntemperature = ["0.1 K", "2 K"]\ndephasing_length = ["inf", "1.3 um"]')
+    c = cfg('[sweep]\ntemperature = ["0.1 K", "2 K"]\nl_phi = ["inf", "1.3 um"]')
     again = parse_config(c.to_toml())
     assert again.sections == c.sections
     assert again.fingerprint == c.fingerprint
@@ -119,7 +119,7 @@ def test_defaults_and_si_values():
     assert c["geometry"]["r_in"] == pytest.approx(140e-9, rel=1e-15, abs=0)
     assert c["field"]["points"] == 401
     assert c["sweep"]["temperature"] == (0.0,)
-    assert c["sweep"]["dephasing_length"] == (math.inf,)
+    assert c["sweep"]["l_phi"] == (math.inf,)
     assert c["ensemble"]["realizations"] == 1
     assert c["material"]["preset"] == "GaAs"
 
@@ -180,7 +180,8 @@ def test_overrides():
             ["sweep.temperature[1] = '-2 K'", "must lie in [0, 1000 K]"],
         ),
         ({"sweep.temperature": ["1 K", "1 K"]}, ConfigError, ["values must be distinct"]),
-        ({"sweep.dephasing_length": "0 um"}, ParameterError, ["sweep.dephasing_length[0]"]),
+        ({"sweep.l_phi": "0 um"}, ParameterError, ["sweep.l_phi[0]"]),
+        ({"sweep.dephasing_length": "2 um"}, ConfigError, ["renamed: write [sweep] l_phi"]),
         ({"sweep.temperature": "4 meV"}, QuantityError, ["'meV' is an energy"]),
         ({"field.points": 3}, ParameterError, ["field.points = 3", "[16, 1e+06]"]),
         ({"field.points": "many"}, ConfigError, ["field.points = 'many': expected an integer"]),
@@ -262,7 +263,7 @@ def test_flux_tube_mode_needs_flux_units():
 def test_plan_units_ids_and_axes():
     c = cfg(
         '[sweep]\nfermi_energy = ["5 meV", "6 meV"]\ngate_potential = ["0 meV", "0.2 meV", '
-        '"0.4 meV"]\ntemperature = ["0 K", "1 K"]\ndephasing_length = ["inf", "1 um"]\n'
+        '"0.4 meV"]\ntemperature = ["0 K", "1 K"]\nl_phi = ["inf", "1 um"]\n'
         "[ensemble]\nrealizations = 3\nseed = 7\n"
     )
     plan = make_plan(c)
@@ -273,7 +274,7 @@ def test_plan_units_ids_and_axes():
         "fermi_energy",
         "gate_potential",
         "temperature",
-        "dephasing_length",
+        "l_phi",
     ]
     uids = [u.uid for u in plan.units]
     assert len(set(uids)) == len(uids)
@@ -282,7 +283,7 @@ def test_plan_units_ids_and_axes():
     # realization-major order (one worker reuses one built lattice)
     assert [u.index[0] for u in plan.units] == sorted(u.index[0] for u in plan.units)
     u = plan.unit("r0001-e01-g02-d01")
-    assert (u.seed, u.fermi_energy, u.dephasing_length) == (
+    assert (u.seed, u.fermi_energy, u.l_phi) == (
         8,
         pytest.approx(6e-3 * sc.eV, rel=1e-15, abs=0),
         1e-6,
@@ -333,13 +334,13 @@ def test_bare_number_for_a_dimensional_key_says_which_unit_to_write():
 @pytest.mark.parametrize(
     ("overrides", "fragment"),
     [
-        ({"sweep.dephasing_length": "1e-30 nm"}, "sweep.dephasing_length[0] = '1e-30 nm'"),
+        ({"sweep.l_phi": "1e-30 nm"}, "sweep.l_phi[0] = '1e-30 nm'"),
         ({"geometry.r_in": "5e-324 m"}, "geometry.r_in = '5e-324 m'"),
         ({"sweep.temperature": "5e-324 K"}, "sweep.temperature[0] = '5e-324 K'"),
         ({"material.mean_free_path": "1e-30 nm"}, "material.mean_free_path = '1e-30 nm'"),
         ({"material.effective_mass": 5e-324}, "material.effective_mass = 5e-324"),
-        ({"sweep.dephasing_length": math.nan}, "sweep.dephasing_length[0] = nan"),
-        ({"sweep.dephasing_length": "-inf"}, "sweep.dephasing_length[0] = '-inf'"),
+        ({"sweep.l_phi": math.nan}, "sweep.l_phi[0] = nan"),
+        ({"sweep.l_phi": "-inf"}, "sweep.l_phi[0] = '-inf'"),
     ],
 )
 def test_absurd_values_are_refused_when_the_file_is_read(overrides, fragment):

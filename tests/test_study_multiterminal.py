@@ -159,7 +159,7 @@ def test_four_terminal_study_end_to_end(four_study):
     assert ds["R_ohm"].attrs["units"] == "ohm"
     assert list(ds["config"].values) == ["0,2,1,3", "1,3,0,2"]
     assert ds["R_ohm"].dims[-2:] == ("config", "B")
-    r = ds["R_ohm"].isel(realization=0, fermi_energy=0, gate_potential=0, dephasing_length=0)
+    r = ds["R_ohm"].isel(realization=0, fermi_energy=0, gate_potential=0, l_phi=0)
     assert np.all(np.isfinite(r.values))
     np.testing.assert_allclose(ds["B"].values, -ds["B"].values[::-1], atol=1e-15)
     fwd, rev = r.isel(temperature=0).values
@@ -193,7 +193,7 @@ def test_four_terminal_study_equals_direct_sweep(four_study):
             direct = resistance_field_sweep(ring, ds["B"].values, ["0,2,1,3", "1,3,0,2"],
                                             temperature=float(temp))  # fmt: skip
         study = ds["R_ohm"].isel(realization=0, fermi_energy=0, gate_potential=0,
-                                 dephasing_length=0, temperature=t).values  # fmt: skip
+                                 l_phi=0, temperature=t).values  # fmt: skip
         np.testing.assert_allclose(study, direct["R_ohm"].transpose("config", "B").values,
                                    rtol=1e-10)  # fmt: skip
     rc, _, err = run_cli("study", str(path), "--out", str(out), "--quiet")

@@ -263,7 +263,7 @@ def test_explorer_full_computation_uses_the_same_policy():
         radius=0.1e-6,
         width=0.04e-6,
         temperature=2.0,
-        phase_coherence_length=None,
+        l_phi=None,
         field_mode="flux_tube",
         lattice_spacing=8e-9,
         field_min=-0.2,

@@ -29,12 +29,12 @@ def test_non_finite_field_is_refused(ring, kw):
 
 @pytest.mark.parametrize("l_phi", [math.nan, -math.inf, 5e-324, -1.0, 0.0])
 @pytest.mark.parametrize("method", ["auto", "kwant"])
-def test_absurd_lphi_is_refused_on_every_path(ring, l_phi, method):
+def test_absurd_l_phi_is_refused_on_every_path(ring, l_phi, method):
     with pytest.raises(ParameterError, match="l_phi"):
         field_sweep(ring, np.linspace(0.0, 0.05, 3), l_phi=l_phi, method=method)
 
 
-def test_infinite_lphi_means_coherent(ring):
+def test_infinite_l_phi_means_coherent(ring):
     fields = np.linspace(0.0, 0.05, 3)
     coherent = field_sweep(ring, fields)
     also = field_sweep(ring, fields, l_phi=math.inf)

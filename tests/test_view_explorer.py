@@ -26,7 +26,7 @@ from ringkit.view.panels.explorer import ExplorerParams
 from ringkit.view.style import new_figure
 
 M_GAAS = 0.067  # GaAs effective mass (as in the Material preset)
-SMALL = dict(radius=0.12e-6, width=0.03e-6, temperature=0.0, phase_coherence_length=None,
+SMALL = dict(radius=0.12e-6, width=0.03e-6, temperature=0.0, l_phi=None,
              field_min=-0.1, field_max=0.1)  # fmt: skip
 
 
@@ -35,7 +35,7 @@ def _derived(ex) -> dict:
 
 
 def test_density_input_gives_textbook_fermi_energy_and_derived_quantities():
-    ex = DeviceExplorer(ExplorerParams(temperature=0.3, phase_coherence_length=None),
+    ex = DeviceExplorer(ExplorerParams(temperature=0.3, l_phi=None),
                         live_lattice=False)  # fmt: skip
     c = ex.controls
     c["density"].value = 2.5  # 10^11 cm^-2
@@ -73,7 +73,7 @@ def test_density_input_gives_textbook_fermi_energy_and_derived_quantities():
 
 
 def test_bad_density_or_mobility_is_one_line_and_changes_nothing():
-    ex = DeviceExplorer(ExplorerParams(temperature=0.0, phase_coherence_length=None),
+    ex = DeviceExplorer(ExplorerParams(temperature=0.0, l_phi=None),
                         live_lattice=False)  # fmt: skip
     params, png = ex.params, ex.pane.image.value
     line = np.asarray(ex.artists["preview"].get_ydata()).copy()
@@ -131,11 +131,11 @@ def test_export_run_study_reproduces_panel_lattice(tmp_path):
     p, q = other.params, ex.params
     for name in ("radius", "width", "density", "mobility", "temperature", "seed"):
         assert getattr(p, name) == pytest.approx(getattr(q, name), rel=1e-9), name
-    assert p.phase_coherence_length is None and p.field_mode == q.field_mode == "flux_tube"
+    assert p.l_phi is None and p.field_mode == q.field_mode == "flux_tube"
 
 
 def test_import_bad_files_one_line_nothing_changes(tmp_path):
-    ex = DeviceExplorer(ExplorerParams(temperature=0.0, phase_coherence_length=None),
+    ex = DeviceExplorer(ExplorerParams(temperature=0.0, l_phi=None),
                         live_lattice=False)  # fmt: skip
     params = ex.params
     bad = {

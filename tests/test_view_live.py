@@ -111,7 +111,7 @@ def test_flux_grid_is_commensurate_with_the_period():
 
 # --------------------------------------------------------------------------- exactness
 def test_live_line_equals_field_sweep_and_kwant_coherent():
-    ex = _explorer(temperature=0.0, phase_coherence_length=None)
+    ex = _explorer(temperature=0.0, l_phi=None)
     c = ex.controls
     c["gate"].value = 0.8  # meV on the upper arm
     c["field"].value = (-70.0, 50.0)  # asymmetric window (mT)
@@ -140,7 +140,7 @@ def test_live_line_equals_field_sweep_and_kwant_coherent():
 
 
 def test_live_line_onsager_and_period():
-    ex = _explorer(temperature=0.0, phase_coherence_length=None)
+    ex = _explorer(temperature=0.0, l_phi=None)
     ex.controls["field"].value = (-60.0, 60.0)
     live = ex.live
     k = np.round(live.flux / (H_OVER_E / live.points_per_period)).astype(int)
@@ -155,7 +155,7 @@ def test_live_line_onsager_and_period():
 
 def test_live_with_probes_and_temperature_equals_engine():
     live_view = LiveLattice(n_probes=8)
-    ex = _explorer(live=live_view, temperature=0.0, phase_coherence_length=1.0e-6)
+    ex = _explorer(live=live_view, temperature=0.0, l_phi=1.0e-6)
     live = ex.live
     ring = live_view.ring
     assert live.n_probes == 8 and live.probe_eta > 0
@@ -179,8 +179,8 @@ def test_live_with_probes_and_temperature_equals_engine():
         g_ref = 2 * _floating_probe_g(ref.fsyst, e_t, p, live.probe_sites, live.probe_eta)
         assert g[i] == pytest.approx(g_ref, abs=1e-9)
     # a new L_phi reuses the cached probe weights: same as a fresh field_sweep
-    ex.controls["lphi"].value = 0.5  # µm
-    l_phi = ex.params.phase_coherence_length
+    ex.controls["l_phi"].value = 0.5  # µm
+    l_phi = ex.params.l_phi
     assert l_phi == pytest.approx(0.5e-6, rel=0.02)
     ds = field_sweep(ring, ex.live.flux, energy=ring.fermi_energy, l_phi=l_phi, n_probes=8)
     np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
@@ -206,12 +206,12 @@ def test_live_with_probes_and_temperature_equals_engine():
 
 
 # --------------------------------------------------------------------------- caching
-def test_cache_no_rebuild_for_gate_temperature_lphi_window():
-    ex = _explorer(temperature=0.0, phase_coherence_length=2e-6)
+def test_cache_no_rebuild_for_gate_temperature_l_phi_window():
+    ex = _explorer(temperature=0.0, l_phi=2e-6)
     view = ex.live_view
     builds, ring = view.builds, view.ring
     c = ex.controls
-    for name, value in (("gate", 1.5), ("temperature", 0.05), ("lphi", 1.0),
+    for name, value in (("gate", 1.5), ("temperature", 0.05), ("l_phi", 1.0),
                         ("field", (-40.0, 40.0)), ("gate", -0.5)):  # fmt: skip
         c[name].value = value
         assert ex.live is not None and not ex.live.rebuilt, name
@@ -225,7 +225,7 @@ def test_cache_no_rebuild_for_gate_temperature_lphi_window():
     # the reused lattice is exact for the new settings: compare with a fresh build
     fresh = build_ring(live_device(ex.params), seed=0)
     ds = field_sweep(fresh, ex.live.flux, energy=fresh.fermi_energy, gate=-0.5 * MEV,
-                     l_phi=ex.params.phase_coherence_length, n_probes=view.n_probes)  # fmt: skip
+                     l_phi=ex.params.l_phi, n_probes=view.n_probes)  # fmt: skip
     np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
     # geometry and disorder seed rebuild
     c["radius"].value = 130.0
@@ -236,7 +236,7 @@ def test_cache_no_rebuild_for_gate_temperature_lphi_window():
 
 def test_cache_energy_change():
     # fixed lattice spacing and a clean ring: the lattice does not depend on E_F -> reused
-    ex = _explorer(temperature=0.0, phase_coherence_length=None, mobility=math.inf,
+    ex = _explorer(temperature=0.0, l_phi=None, mobility=math.inf,
                    lattice_spacing=3.0e-9)  # fmt: skip
     view = ex.live_view
     builds = view.builds
@@ -261,7 +261,7 @@ def test_cache_energy_change():
 
 # --------------------------------------------------------------------------- panel behaviour
 def test_live_off_uniform_too_large_and_invalid():
-    ex = _explorer(temperature=0.0, phase_coherence_length=None)
+    ex = _explorer(temperature=0.0, l_phi=None)
     good = _live_line(ex)[1].copy()
     ex.controls["width"].value = 300.0  # wider than 2 * radius: invalid
     assert "width" in ex.message.value and ex.last_error is not None
@@ -281,7 +281,7 @@ def test_live_off_uniform_too_large_and_invalid():
 
 
 def test_live_and_full_drawn_together():
-    ex = _explorer(temperature=0.0, phase_coherence_length=None)
+    ex = _explorer(temperature=0.0, l_phi=None)
     job = ex.run_full()
     assert job.wait(timeout=180) and job.error is None, job.error
     full, live = ex.full, ex.live

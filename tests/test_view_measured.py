@@ -61,7 +61,7 @@ def test_new_file_resets_per_file_options():
     assert panel.load_controls["series_resistance"].value == 10.0
 
 
-def test_temperature_series_labels_and_lphi_fit():
+def test_temperature_series_labels_and_l_phi_fit():
     panel = MeasuredDataPanel()
     assert panel.load_bytes(_series(), "series.tsv"), panel.message.value
     labels = [lab for lab, _ in panel.trace_select.options]
@@ -71,7 +71,7 @@ def test_temperature_series_labels_and_lphi_fit():
     assert panel.fit_series(), panel.message.value
     fit = panel.series
     np.testing.assert_allclose(fit.temperatures, [0.1, 0.3, 1.0, 3.0], rtol=1e-9)
-    assert fit.fit["lphi_ref_m"] == pytest.approx(2.0e-6, rel=0.03)
+    assert fit.fit["l_phi_ref_m"] == pytest.approx(2.0e-6, rel=0.03)
     assert fit.fit["fit"]["values"]["p"] == pytest.approx(0.5, abs=0.03)
     assert "L_phi" in panel.series_summary.value and "±" in panel.series_summary.value
     # too few temperatures: one line in the message area, no exception

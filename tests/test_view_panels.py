@@ -44,11 +44,11 @@ def kf_of(e_f_mev: float, mass: float = M_GAAS) -> float:
 def coherent_explorer():
     """Explorer at T = 0, no dephasing, no disorder, junction eps = 1/2."""
     ex = DeviceExplorer(
-        ExplorerParams(temperature=0.0, phase_coherence_length=None, mobility=math.inf,
+        ExplorerParams(temperature=0.0, l_phi=None, mobility=math.inf,
                        coupling=0.5), live_lattice=False,
     )  # fmt: skip
     c = ex.controls
-    assert c["lphi"].value == 10 ** c["lphi"].max  # log slider top end = no dephasing
+    assert c["l_phi"].value == 10 ** c["l_phi"].max  # log slider top end = no dephasing
     assert c["mobility"].value == 10 ** c["mobility"].max  # top end = clean
     return ex
 
@@ -125,7 +125,7 @@ def test_explorer_disorder_and_dephasing(coherent_explorer):
     coh = 2 * ring_transmission(kf * lj, kf * lj, phi, 0.5, arm_reflection=(refl, refl))
     np.testing.assert_allclose(g, coh, atol=1e-9)
     c["mobility"].value = 10 ** c["mobility"].max  # top end = clean
-    c["lphi"].value = 1.0  # µm
+    c["l_phi"].value = 1.0  # µm
     f = math.exp(-math.pi * r / 1e-6)  # coherent fraction exp(-(C/2)/L_phi)
     classical = 2 * (2 * 0.5 / (2 - 0.5))  # ideal arms: T_cl = 2 eps/(2 - eps)
     want = f * _expected(ex) + (1 - f) * classical
@@ -182,7 +182,7 @@ def test_explorer_full_tight_binding_with_preview():
 
     ex = DeviceExplorer(
         ExplorerParams(radius=0.15e-6, width=0.04e-6, temperature=0.0,
-                       phase_coherence_length=None, field_min=-0.03, field_max=0.03),
+                       l_phi=None, field_min=-0.03, field_max=0.03),
         live_lattice=False,
     )  # fmt: skip
     job = ex.run_full()
@@ -323,7 +323,7 @@ def test_scaling_panel_model_lines():
     panel = SizeScalingPanel()
     c = panel.controls
     c["temperature"].value = 10 ** c["temperature"].min  # 1 mK: no thermal reduction left
-    c["lphi"].value = 2.0
+    c["l_phi"].value = 2.0
 
     def raw_he():  # the drawn line, before the smooth bound by G (docs/amplitude-model.md)
         a = np.asarray(panel.artists["he"].get_ydata()).copy()
@@ -332,7 +332,7 @@ def test_scaling_panel_model_lines():
 
     he = raw_he()
     r = np.asarray(panel.artists["he"].get_xdata()) * 1e-6
-    c["lphi"].value = 1.0
+    c["l_phi"].value = 1.0
     he2 = raw_he()
     # exp(-pi r/L_phi) (ringkit.conventions): the ratio does not depend on the thermal factor
     np.testing.assert_allclose(he2 / he, np.exp(-np.pi * r / 1e-6 + np.pi * r / 2e-6), rtol=1e-9)
@@ -368,7 +368,7 @@ def test_simulated_points_same_on_engine_ensemble():
     from ringkit.transport.ensemble import SerialExecutor
     from ringkit.view.panels.scaling import ScalingParams, simulate_points
 
-    params = ScalingParams(lphi=1e-6, temperature=0.05)
+    params = ScalingParams(l_phi=1e-6, temperature=0.05)
     kw = dict(seeds=(0, 1), width=0.04e-6, n_flux=16)
     here = simulate_points(params, [0.12e-6], **kw)
     pooled = simulate_points(params, [0.12e-6], executor=SerialExecutor(), **kw)
@@ -378,7 +378,7 @@ def test_simulated_points_same_on_engine_ensemble():
 
 
 def test_explorer_material_preset_switch():
-    ex = DeviceExplorer(ExplorerParams(temperature=0.0, phase_coherence_length=None),
+    ex = DeviceExplorer(ExplorerParams(temperature=0.0, l_phi=None),
                         live_lattice=False)  # fmt: skip
     ex.controls["material"].value = "Au"
     # free-electron Au: E_F = 5.53 eV (Ashcroft & Mermin table, as in the Material preset)

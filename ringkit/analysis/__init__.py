@@ -3,7 +3,7 @@
 This layer never imports kwant (nor matplotlib), so it also serves users who only analyse
 measured data. Pipeline: :func:`load_traces` (measured files) -> :func:`remove_background`
 -> :func:`oscillation_spectrum` -> :func:`extract_oscillations` (area, radius, h/e and h/2e
-amplitudes) -> :func:`fit_lphi_temperature` / :func:`fit_lphi_size` (phase-coherence
+amplitudes) -> :func:`fit_l_phi_temperature` / :func:`fit_l_phi_size` (phase-coherence
 length) -> :func:`predict_amplitudes` (amplitude versus ring size, beside simulations).
 
 Public API
@@ -12,8 +12,8 @@ Trace, LoadReport, LoadResult, TraceFormatError, load_traces          (:mod:`.tr
 BackgroundResult, remove_background                                    (:mod:`.background`)
 OscillationSpectrum, oscillation_spectrum, ab_bands, window_properties (:mod:`.spectrum`)
 OscillationResult, extract_oscillations, band_filter                   (:mod:`.extract`)
-FitResult, thermal_factor, fit_lphi_temperature, fit_lphi_size, lphi_at (:mod:`.fitting`)
-fit_lphi_joint (h/e + h/2e temperature fit), UnconstrainedWarning       (:mod:`.fit_joint`)
+FitResult, thermal_factor, fit_l_phi_temperature, fit_l_phi_size, l_phi_at (:mod:`.fitting`)
+fit_l_phi_joint (h/e + h/2e temperature fit), UnconstrainedWarning       (:mod:`.fit_joint`)
 predict_amplitudes                                                     (:mod:`.scaling`)
 AnalysisWarning, ResolutionWarning, UndersampledWarning, FieldRangeError, SamplingError
 
@@ -33,13 +33,13 @@ from ringkit.analysis._common import (
 )
 from ringkit.analysis.background import BackgroundResult, remove_background
 from ringkit.analysis.extract import OscillationResult, band_filter, extract_oscillations
-from ringkit.analysis.fit_joint import fit_lphi_joint
+from ringkit.analysis.fit_joint import fit_l_phi_joint
 from ringkit.analysis.fitting import (
     FitResult,
     UnconstrainedWarning,
-    fit_lphi_size,
-    fit_lphi_temperature,
-    lphi_at,
+    fit_l_phi_size,
+    fit_l_phi_temperature,
+    l_phi_at,
     thermal_factor,
 )
 from ringkit.analysis.scaling import predict_amplitudes
@@ -73,10 +73,10 @@ __all__ = [
     "band_filter",
     "FitResult",
     "thermal_factor",
-    "fit_lphi_temperature",
-    "fit_lphi_size",
-    "lphi_at",
-    "fit_lphi_joint",
+    "fit_l_phi_temperature",
+    "fit_l_phi_size",
+    "l_phi_at",
+    "fit_l_phi_joint",
     "UnconstrainedWarning",
     "predict_amplitudes",
 ]

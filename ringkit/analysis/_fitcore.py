@@ -65,7 +65,7 @@ class FitResult:
         Data fitted (sigma None if no errors were given).
     fixed : dict
         Constants of the model (path length, reference temperature, fixed parameters) and
-        ``lphi_convention`` (:data:`ringkit.conventions.LPHI_CONVENTION`).
+        ``l_phi_convention`` (:data:`ringkit.conventions.L_PHI_CONVENTION`).
     unconstrained : tuple of str
         Parameters the data cannot fix: their ``values`` are NaN and ``errors`` inf.
     estimates : dict

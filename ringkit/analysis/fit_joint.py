@@ -2,7 +2,7 @@
 
 Public API
 ----------
-fit_lphi_joint(t_he, a_he, t_h2e, a_h2e, *, radius | path lengths, ...) -> FitResult
+fit_l_phi_joint(t_he, a_he, t_h2e, a_h2e, *, radius | path lengths, ...) -> FitResult
 
 Why two harmonics (``docs/physics.md``, "Separating thermal averaging from dephasing")
 -------------------------------------------------------------------------------------
@@ -43,13 +43,13 @@ from ringkit.analysis._fitcore import (
     physical_errors,
     thermal_factor,
 )
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY, path_length
 from ringkit.units import K_B
 
-__all__ = ["fit_lphi_joint"]
+__all__ = ["fit_l_phi_joint"]
 
 
-def fit_lphi_joint(
+def fit_l_phi_joint(
     temperature_he: np.ndarray,
     amplitude_he: np.ndarray,
     temperature_h2e: np.ndarray,
@@ -265,7 +265,7 @@ def fit_lphi_joint(
             "reference_temperature": t_ref,
             "thermal": thermal,
             "harmonic": np.where(is_he, 1, 2),
-            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
             **({} if fit_p else {"p": float(p)}),
             **({} if fit_ec or thermal == "none" else {"thermal_energy": thermal_energy}),
         },

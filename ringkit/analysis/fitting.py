@@ -4,18 +4,18 @@ Public API
 ----------
 FitResult(values, errors, covariance, ...)      fitted parameters and 1-sigma errors
 thermal_factor(temperature, kind, energy)        thermal averaging factor F_T
-fit_lphi_temperature(temperature, amplitude, *, path_length | radius, ...) -> FitResult
-fit_lphi_size(radius, amplitude, *, order=1, path_length=None, ...) -> FitResult
-lphi_at(fit, temperature) -> (l_phi, error)
+fit_l_phi_temperature(temperature, amplitude, *, path_length | radius, ...) -> FitResult
+fit_l_phi_size(radius, amplitude, *, order=1, path_length=None, ...) -> FitResult
+l_phi_at(fit, temperature) -> (l_phi, error)
 UnconstrainedWarning                             the data cannot fix some parameters
-(The joint h/e + h/2e temperature fit is :func:`ringkit.analysis.fit_joint.fit_lphi_joint`.)
+(The joint h/e + h/2e temperature fit is :func:`ringkit.analysis.fit_joint.fit_l_phi_joint`.)
 
 Model (``docs/physics.md``, "Amplitude damping and thermal averaging")
 -----------------------------------------------------------------------
 ``A(T) = A0 F_T(T) exp(-L/l_phi(T))`` with ``l_phi(T) = l_phi_ref (T/T_ref)^-p`` and L the
 explicit length of the interfering paths, in the one convention of
 :mod:`ringkit.conventions` (``L = pi r`` for h/e, ``order=1``; ``2 pi r`` for the h/2e AAS
-loop, ``order=2``); every result states it in ``fixed["lphi_convention"]``. Exponential
+loop, ``order=2``); every result states it in ``fixed["l_phi_convention"]``. Exponential
 damping with path length: Milliken, Umbach, Webb, Phys. Rev. B 36, 4465 (1987) (abstract
 verified; reference from memory); ``l_phi ∝ 1/T`` in GaAs rings: Hansen et al., Phys. Rev. B
 64, 045327 (2001).
@@ -69,7 +69,7 @@ from ringkit.analysis._fitcore import (
     physical_errors,
     thermal_factor,
 )
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
 from ringkit.conventions import path_length as _default_path_length
 from ringkit.units import K_B
 
@@ -81,13 +81,13 @@ __all__ = [
     "thermal_factor",
     "find_unconstrained",
     "fd_jacobian",
-    "fit_lphi_temperature",
-    "fit_lphi_size",
-    "lphi_at",
+    "fit_l_phi_temperature",
+    "fit_l_phi_size",
+    "l_phi_at",
 ]
 
 
-def fit_lphi_temperature(
+def fit_l_phi_temperature(
     temperature: np.ndarray,
     amplitude: np.ndarray,
     *,
@@ -105,7 +105,7 @@ def fit_lphi_temperature(
     One harmonic cannot separate thermal averaging from dephasing when both the energy
     scale and ``p`` are free (module docstring): such parameters come out unconstrained
     with an :class:`UnconstrainedWarning`; fit h/e and h/2e together with
-    :func:`ringkit.analysis.fit_joint.fit_lphi_joint`.
+    :func:`ringkit.analysis.fit_joint.fit_l_phi_joint`.
 
     Parameters
     ----------
@@ -217,7 +217,7 @@ def fit_lphi_temperature(
         bad,
         why,
         "One harmonic cannot separate thermal averaging from dephasing: fit h/e together "
-        "with h/2e (fit_lphi_joint), or fix p or the thermal energy.",
+        "with h/2e (fit_l_phi_joint), or fix p or the thermal energy.",
         notes,
     )
     units = {"amplitude0": "amplitude", "l_phi_ref": "m", "p": "1", "thermal_energy": "J"}
@@ -245,7 +245,7 @@ def fit_lphi_temperature(
             "path_length": length,
             "reference_temperature": t_ref,
             "thermal": thermal,
-            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
             **({} if fit_p else {"p": float(p)}),
             **({} if fit_ec or thermal == "none" else {"thermal_energy": thermal_energy}),
         },
@@ -256,12 +256,12 @@ def fit_lphi_temperature(
     )
 
 
-def lphi_at(fit: FitResult, temperature: float | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def l_phi_at(fit: FitResult, temperature: float | np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """l_phi(T) in m and its 1-sigma error from a temperature fit (NaN, inf if unconstrained).
 
-    Works for :func:`fit_lphi_temperature` and
-    :func:`ringkit.analysis.fit_joint.fit_lphi_joint` results (same path-length convention,
-    ``fit.fixed["lphi_convention"]``).
+    Works for :func:`fit_l_phi_temperature` and
+    :func:`ringkit.analysis.fit_joint.fit_l_phi_joint` results (same path-length convention,
+    ``fit.fixed["l_phi_convention"]``).
     """
     if "l_phi_ref" not in fit.values:
         raise ParameterError("fit", fit.model, "must come from a temperature fit of l_phi")
@@ -271,21 +271,21 @@ def lphi_at(fit: FitResult, temperature: float | np.ndarray) -> tuple[np.ndarray
     p = fit.values["p"] if "p" in fit.values else fit.fixed["p"]
     names = fit.parameter_names
     u = t / t_ref
-    lphi = lref * u ** (-p)
-    # gradient with respect to (lphi_ref, p)
+    l_phi = lref * u ** (-p)
+    # gradient with respect to (l_phi_ref, p)
     grad = np.zeros((t.size if t.ndim else 1, len(names)))
     grad[:, names.index("l_phi_ref")] = np.ravel(u ** (-p))
     if "p" in names:
-        grad[:, names.index("p")] = np.ravel(-lphi * np.log(u))
+        grad[:, names.index("p")] = np.ravel(-l_phi * np.log(u))
     if not np.isfinite(lref) or not np.isfinite(p):
         nan = np.full(t.shape, np.nan)
         return nan, np.full(t.shape, np.inf)
     var = np.einsum("ij,jk,ik->i", grad, fit.covariance, grad)
     err = np.sqrt(var).reshape(t.shape)
-    return lphi, err
+    return l_phi, err
 
 
-def fit_lphi_size(
+def fit_l_phi_size(
     radius: np.ndarray,
     amplitude: np.ndarray,
     *,
@@ -318,7 +318,7 @@ def fit_lphi_size(
     FitResult
         ``amplitude0``, ``inverse_l_phi`` (1/m; may be <= 0 if the amplitude does not decay)
         and ``l_phi`` (m; NaN and ``success=False`` when ``inverse_l_phi <= 0``).
-        ``fixed`` holds ``path_length`` (array, m) and ``lphi_convention``. ``predict(r)``
+        ``fixed`` holds ``path_length`` (array, m) and ``l_phi_convention``. ``predict(r)``
         uses ``L = kappa r`` with kappa the least-squares ratio of the path lengths to the
         radii (``order pi`` by default).
 
@@ -336,7 +336,7 @@ def fit_lphi_size(
         raise ParameterError("radius", Described(f"{r.size} points"), f"need >= {need} sizes")
     if path_length is None:
         length = np.asarray(_default_path_length(r, order), dtype=float)
-        source = f"{order} pi r ({LPHI_CONVENTION_KEY} default)"
+        source = f"{order} pi r ({L_PHI_CONVENTION_KEY} default)"
     else:
         length = np.asarray(path_length, dtype=float).ravel()
         if length.shape != r.shape or np.any(~np.isfinite(length)) or np.any(length <= 0):
@@ -407,7 +407,7 @@ def fit_lphi_size(
             "order": order,
             "thermal_length": lt,
             "path_length": length,
-            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
         },
         _predict=predict,
     )

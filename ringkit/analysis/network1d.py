@@ -18,7 +18,7 @@ ring_transmission(k_L1, k_L2, ab_phase, coupling, *, arm_reflection=(0, 0))
     Transmission probability ``|t|^2``.
 classical_transmission(coupling, *, arm_reflection=(0, 0))
     Fully phase-randomised (incoherent) network transmission.
-coherent_fraction(path_length, phase_coherence_length)
+coherent_fraction(path_length, l_phi)
     ``exp(-L/L_phi)``.
 thermal_weights(energies, mu, temperature)
     Normalised ``-df/dE`` weights on a uniform grid (kept for comparisons; the ring itself
@@ -258,12 +258,12 @@ def classical_transmission(
     return float(eps * (x[2] + x[3]))
 
 
-def coherent_fraction(path_length: float, phase_coherence_length: float | None) -> float:
+def coherent_fraction(path_length: float, l_phi: float | None) -> float:
     """Coherent fraction ``exp(-L/L_phi)`` of a path of length L (m); 1 for ``L_phi=None``."""
-    if phase_coherence_length is None or math.isinf(phase_coherence_length):
+    if l_phi is None or math.isinf(l_phi):
         return 1.0
-    lphi = check_positive("phase_coherence_length", phase_coherence_length, "m")
-    return math.exp(-check_positive("path_length", path_length, "m") / lphi)
+    l_phi = check_positive("l_phi", l_phi, "m")
+    return math.exp(-check_positive("path_length", path_length, "m") / l_phi)
 
 
 def thermal_weights(energies: np.ndarray, mu: float, temperature: float) -> np.ndarray:
@@ -310,7 +310,7 @@ class NetworkRing:
         probability ``L_j/(L_j + l)`` (1D Ohmic addition, common practice). None = ballistic.
     temperature : float
         Temperature in K; > 0 averages over energy with ``-df/dE``.
-    phase_coherence_length : float or None
+    l_phi : float or None
         L_phi in m; the result is ``f G_coherent + (1 - f) G_classical`` with the coherent
         fraction ``f = exp(-(circumference/2)/L_phi)`` (h/e path, common practice; this mixing
         damps h/2e like h/e, a simplification of the preview).
@@ -327,7 +327,7 @@ class NetworkRing:
     gate_arm: str = "upper"
     mean_free_path: float | None = None
     temperature: float = 0.0
-    phase_coherence_length: float | None = None
+    l_phi: float | None = None
     spin_degeneracy: int = 2
 
     def __post_init__(self) -> None:
@@ -342,8 +342,8 @@ class NetworkRing:
         if self.mean_free_path is not None:
             check_positive("mean_free_path", self.mean_free_path, "m")
         check_positive("temperature", self.temperature, "K", allow_zero=True)
-        if self.phase_coherence_length is not None:
-            check_positive("phase_coherence_length", self.phase_coherence_length, "m")
+        if self.l_phi is not None:
+            check_positive("l_phi", self.l_phi, "m")
         if self.spin_degeneracy not in (1, 2):
             raise ParameterError("spin_degeneracy", self.spin_degeneracy, "must be 1 or 2")
 
@@ -380,7 +380,7 @@ class NetworkRing:
     @property
     def coherent_fraction(self) -> float:
         """Weight ``f`` of the coherent network result (see class docstring)."""
-        return coherent_fraction(self.circumference / 2, self.phase_coherence_length)
+        return coherent_fraction(self.circumference / 2, self.l_phi)
 
     def _wavevector(self, energy: np.ndarray) -> np.ndarray:
         return np.sqrt(2 * self.effective_mass * M_E * np.maximum(energy, 0.0)) / HBAR

@@ -2,7 +2,7 @@
 
 Public API
 ----------
-predict_amplitudes(radius, *, lphi, temperature, mean_free_path, fermi_velocity, n_modes, ...)
+predict_amplitudes(radius, *, l_phi, temperature, mean_free_path, fermi_velocity, n_modes, ...)
     -> xarray.Dataset on coordinate ``radius`` (m), optionally with simulated points.
 fit_amplitude_prefactors(radius, amplitude_he=..., amplitude_h2e=..., ...)
     -> prefactors ``coherent_amplitude`` and ``aas_amplitude`` with 1-sigma errors, fitted to
@@ -56,7 +56,7 @@ import numpy as np
 
 from ringkit._validation import ParameterError, check_positive, check_range
 from ringkit.analysis._common import Described
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY, path_length
 from ringkit.units import HBAR, K_B, PHI0
 
 __all__ = [
@@ -112,7 +112,7 @@ def _model(r, p: dict) -> dict[str, np.ndarray]:
     g = p["conductance"] if p["conductance"] is not None else 2.0 * n / (1.0 + l1 / (2 * mfp))
     g = np.broadcast_to(np.asarray(g, dtype=float), r.shape)
     n_c = 1.0 + (n - 1.0) * b * (1.0 - p["mode_mixing"])
-    d1, d2 = np.exp(-l1 / p["lphi"]), np.exp(-l2 / p["lphi"])
+    d1, d2 = np.exp(-l1 / p["l_phi"]), np.exp(-l2 / p["l_phi"])
     f1 = _thermal(l1, b, p["l_t"], p["x_per_m"])
     f2 = _thermal(l2, b, p["l_t"], p["x_per_m"])
     sq = np.sqrt(n_c / p["n_averaged"])
@@ -164,7 +164,7 @@ _UNITS = {
 
 def _parameters(
     material,
-    lphi,
+    l_phi,
     temperature,
     mean_free_path,
     fermi_velocity,
@@ -178,8 +178,8 @@ def _parameters(
     mode_mixing=0.0,
 ) -> dict:
     if material is not None:
-        if lphi is None:
-            lphi = _from_material(material, ("phase_coherence_length",))
+        if l_phi is None:
+            l_phi = _from_material(material, ("l_phi",))
         if temperature is None:
             temperature = _from_material(material, ("temperature",))
         if mean_free_path is None:
@@ -187,16 +187,16 @@ def _parameters(
         if fermi_velocity is None:
             fermi_velocity = _from_material(material, ("fermi_velocity",))
     for name, v in (
-        ("lphi", lphi),
+        ("l_phi", l_phi),
         ("temperature", temperature),
         ("mean_free_path", mean_free_path),
         ("fermi_velocity", fermi_velocity),
     ):
         if v is None:
             raise ParameterError(name, None, "is required (directly or via material)")
-    lphi = float(lphi)
-    if not lphi > 0:  # inf allowed (no dephasing); NaN and <= 0 are not
-        raise ParameterError("lphi", lphi, "must be > 0 (inf allowed)", "m")
+    l_phi = float(l_phi)
+    if not l_phi > 0:  # inf allowed (no dephasing); NaN and <= 0 are not
+        raise ParameterError("l_phi", l_phi, "must be > 0 (inf allowed)", "m")
     temperature = check_range("temperature", temperature, 0.0, None, "K")
     mean_free_path = check_positive("mean_free_path", mean_free_path, "m")
     fermi_velocity = check_positive("fermi_velocity", fermi_velocity, "m/s")
@@ -217,7 +217,7 @@ def _parameters(
     diffusion = fermi_velocity * mean_free_path / dimension
     l_t = np.inf if temperature == 0 else float(np.sqrt(HBAR * diffusion / (K_B * temperature)))
     return {
-        "lphi": lphi,
+        "l_phi": l_phi,
         "temperature": temperature,
         "mean_free_path": mean_free_path,
         "fermi_velocity": fermi_velocity,
@@ -239,7 +239,7 @@ def predict_amplitudes(
     radius: np.ndarray,
     *,
     material: Any = None,
-    lphi: float | None = None,
+    l_phi: float | None = None,
     temperature: float | None = None,
     mean_free_path: float | None = None,
     fermi_velocity: float | None = None,
@@ -261,11 +261,11 @@ def predict_amplitudes(
         Ring (mean) radii in m.
     material : object, optional
         Anything with ``fermi_velocity``, ``elastic_mean_free_path`` or
-        ``mean_free_path``, ``phase_coherence_length`` and ``temperature`` (e.g.
+        ``mean_free_path``, ``l_phi`` and ``temperature`` (e.g.
         :class:`ringkit.device.Material`); explicit keywords override it.
-    lphi : float
+    l_phi : float
         Phase-coherence length L_phi in m (``inf`` allowed), convention
-        :data:`ringkit.conventions.LPHI_CONVENTION` (h/e damped by exp(-pi r/L_phi)).
+        :data:`ringkit.conventions.L_PHI_CONVENTION` (h/e damped by exp(-pi r/L_phi)).
     temperature : float
         Temperature in K (>= 0).
     mean_free_path : float
@@ -305,7 +305,7 @@ def predict_amplitudes(
 
     p = _parameters(
         material,
-        lphi,
+        l_phi,
         temperature,
         mean_free_path,
         fermi_velocity,
@@ -331,8 +331,8 @@ def predict_amplitudes(
             raise ParameterError("conductance", "array", "must be a scalar with simulated=")
         _add_simulated(data, coords, simulated, p)
     attrs = {
-        "lphi_m": p["lphi"],
-        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        "l_phi_m": p["l_phi"],
+        L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
         "temperature_K": p["temperature"],
         "mean_free_path_m": p["mean_free_path"],
         "fermi_velocity_m_per_s": p["fermi_velocity"],

@@ -45,7 +45,7 @@ def fit_amplitude_prefactors(
     amplitude_he_err, amplitude_h2e_err : array, optional
         1-sigma errors (same shape), e.g. bootstrap errors of the medians.
     **model_kwargs
-        Everything else of :func:`predict_amplitudes` (``lphi``, ``temperature``, ...).
+        Everything else of :func:`predict_amplitudes` (``l_phi``, ``temperature``, ...).
 
     Returns
     -------
@@ -111,7 +111,7 @@ def fit_amplitude_prefactors(
 def _kwargs_from_attrs(attrs: Mapping) -> dict:
     g = attrs.get("conductance_e2h", "model")
     return {
-        "lphi": float(attrs["lphi_m"]),
+        "l_phi": float(attrs["l_phi_m"]),
         "temperature": float(attrs["temperature_K"]),
         "mean_free_path": float(attrs["mean_free_path_m"]),
         "fermi_velocity": float(attrs["fermi_velocity_m_per_s"]),

@@ -3,13 +3,13 @@
 Public API
 ----------
 group_by_temperature(temperatures, rtol=1e-3) -> list of index lists
-lphi_from_series(temperatures, amplitudes_rms, noise_rms, *, radius, ...) -> dict
+l_phi_from_series(temperatures, amplitudes_rms, noise_rms, *, radius, ...) -> dict
 
 Traces at the same temperature (up and down sweeps, several columns) are averaged: the
 cosine amplitude is ``sqrt(2) x`` the mean band rms, and its 1-sigma error combines the
 noise-floor contribution of each trace (``noise_rms / sqrt(n)``) with the scatter between the
 sweeps (standard error of the mean). The fit is
-:func:`ringkit.analysis.fitting.fit_lphi_temperature` with the path length of
+:func:`ringkit.analysis.fitting.fit_l_phi_temperature` with the path length of
 :func:`ringkit.conventions.path_length` (h/e: ``L = pi r``); its parameter errors are the
 fit's. docs/measured-data.md, "Temperature series".
 """
@@ -21,10 +21,10 @@ import math
 import numpy as np
 
 from ringkit._validation import ParameterError
-from ringkit.analysis.fitting import fit_lphi_temperature, lphi_at
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.analysis.fitting import fit_l_phi_temperature, l_phi_at
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY, path_length
 
-__all__ = ["group_by_temperature", "lphi_from_series"]
+__all__ = ["group_by_temperature", "l_phi_from_series"]
 
 
 def group_by_temperature(temperatures: list[float | None], rtol: float = 1e-3) -> list[list[int]]:
@@ -71,7 +71,7 @@ def _arrays(pts: list[dict]) -> tuple[np.ndarray, np.ndarray, np.ndarray | None]
     return t, a, (err if np.all(err > 0) else None)
 
 
-def lphi_from_series(
+def l_phi_from_series(
     temperatures: list[float | None],
     amplitudes_rms: list[float],
     noise_rms: list[float],
@@ -96,20 +96,20 @@ def lphi_from_series(
     radius : float
         Ring radius in m (path length ``order * pi * radius``).
     order, thermal, thermal_energy, p
-        Passed to :func:`~ringkit.analysis.fitting.fit_lphi_temperature`.
+        Passed to :func:`~ringkit.analysis.fitting.fit_l_phi_temperature`.
     amplitudes_h2e_rms, noise_h2e_rms : list of float, optional
         h/2e band rms and noise of each trace: the joint h/e + h/2e fit
-        (:func:`~ringkit.analysis.fit_joint.fit_lphi_joint`, Hansen et al., Phys. Rev. B
+        (:func:`~ringkit.analysis.fit_joint.fit_l_phi_joint`, Hansen et al., Phys. Rev. B
         64, 045327 (2001)) separates thermal averaging (h/e only) from dephasing.
 
     Returns
     -------
     dict
-        ``lphi_ref_m``, ``lphi_ref_err_m`` (L_phi at the reference temperature and its
+        ``l_phi_ref_m``, ``l_phi_ref_err_m`` (L_phi at the reference temperature and its
         1-sigma error; NaN/inf if unconstrained), ``points`` (T, amplitude, error, n
         traces; ``points_h2e`` for the joint fit), ``fit`` (values, errors, units, reduced
-        chi2, model, unconstrained, notes), ``lphi_at_points_m`` and errors,
-        ``path_length_m``, ``lphi_convention``, ``n_traces_without_temperature``.
+        chi2, model, unconstrained, notes), ``l_phi_at_points_m`` and errors,
+        ``path_length_m``, ``l_phi_convention``, ``n_traces_without_temperature``.
     """
     pts = _points(temperatures, amplitudes_rms, noise_rms)
     if len(pts) < 3:
@@ -123,12 +123,12 @@ def lphi_from_series(
     length = float(path_length(radius, order))
     out: dict = {}
     if amplitudes_h2e_rms is not None:
-        from ringkit.analysis.fit_joint import fit_lphi_joint
+        from ringkit.analysis.fit_joint import fit_l_phi_joint
 
         pts2 = _points(temperatures, amplitudes_h2e_rms, noise_h2e_rms)
         t2, a2, err2 = _arrays(pts2)
         both = err is not None and err2 is not None
-        fit = fit_lphi_joint(
+        fit = fit_l_phi_joint(
             t,
             a,
             t2,
@@ -143,7 +143,7 @@ def lphi_from_series(
         out["points_h2e"] = pts2
         out["path_length_h2e_m"] = float(path_length(radius, 2))
     else:
-        fit = fit_lphi_temperature(
+        fit = fit_l_phi_temperature(
             t,
             a,
             path_length=length,
@@ -153,12 +153,12 @@ def lphi_from_series(
             thermal_energy=thermal_energy,
             p=p,
         )
-    lphi, lphi_err = lphi_at(fit, t)
-    ref_name = next(k for k in fit.values if k.replace("_", "") == "lphiref")
+    l_phi, l_phi_err = l_phi_at(fit, t)
+    ref_name = next(k for k in fit.values if k.replace("_", "") == "l_phiref")
     out.update(
         {
-            "lphi_ref_m": float(fit.values[ref_name]),
-            "lphi_ref_err_m": float(fit.errors[ref_name]),
+            "l_phi_ref_m": float(fit.values[ref_name]),
+            "l_phi_ref_err_m": float(fit.errors[ref_name]),
             "reference_temperature_K": float(fit.fixed.get("reference_temperature", 1.0)),
             "points": pts,
             "fit": {
@@ -173,12 +173,12 @@ def lphi_from_series(
                 "notes": list(getattr(fit, "notes", ())),
                 "joint": amplitudes_h2e_rms is not None,
             },
-            "lphi_at_points_m": [float(x) for x in np.ravel(lphi)],
-            "lphi_err_at_points_m": [float(x) for x in np.ravel(lphi_err)],
+            "l_phi_at_points_m": [float(x) for x in np.ravel(l_phi)],
+            "l_phi_err_at_points_m": [float(x) for x in np.ravel(l_phi_err)],
             "path_length_m": length,
             "order": order,
             "thermal": thermal,
-            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
             "n_traces_without_temperature": sum(1 for x in temperatures if x is None),
         }
     )

@@ -59,7 +59,7 @@ def series_lines(s: dict[str, Any]) -> list[str]:
         "  T (K)     A (e^2/h)          L_phi (um)        traces",
     ]
     for q, lp, le in zip(
-        s["points"], s["lphi_at_points_m"], s["lphi_err_at_points_m"], strict=True
+        s["points"], s["l_phi_at_points_m"], s["l_phi_err_at_points_m"], strict=True
     ):
         lines.append(
             f"  {q['temperature_K']:<9.4g} {q['amplitude_e2h']:.4g} +- "
@@ -82,7 +82,7 @@ def series_lines(s: dict[str, Any]) -> list[str]:
         lines.append(
             f"  unconstrained   {', '.join(fit['unconstrained'])} (the data cannot fix them)"
         )
-    lines.append(f"  convention      {s['lphi_convention']}")
+    lines.append(f"  convention      {s['l_phi_convention']}")
     if s.get("n_traces_left_out"):
         lines.append(
             f"  left out        {s['n_traces_left_out']} trace(s) (no temperature, refused "

@@ -25,8 +25,8 @@ Added keys (the keys above are unchanged): ``checks``, ``refused``; for resistan
 ``amplitude_*_pp_ohm``, ``relative_he_percent``, ``relative_h2e_percent`` (dR/R);
 with ``--current/--noise/--bandwidth`` a ``detectability`` object (signal and in-band noise
 in V, S/N, ``exceeds_noise`` per band; :mod:`ringkit.analysis.labunits`); with
-``--group-by temperature`` an ``lphi_series`` object (points, fit values and errors,
-``lphi_ref_m``, ``lphi_ref_err_m``, path length, ``lphi_convention``).
+``--group-by temperature`` an ``l_phi_series`` object (points, fit values and errors,
+``l_phi_ref_m``, ``l_phi_ref_err_m``, path length, ``l_phi_convention``).
 
 Bad input (unreadable or malformed file, unknown unit, field range too short, sampling too
 coarse, a refused check) ends with one ``ringkit: error: ...`` line and exit status 2.
@@ -258,7 +258,7 @@ def _lab_record(args: argparse.Namespace, trace, res) -> dict[str, Any]:
 
 
 def _series(args, traces, records) -> dict[str, Any]:
-    from ringkit.analysis.tseries import lphi_from_series
+    from ringkit.analysis.tseries import l_phi_from_series
 
     usable = [r for r in records if "error" not in r and not r.get("refused")]
     if not usable:
@@ -275,7 +275,7 @@ def _series(args, traces, records) -> dict[str, Any]:
             "noise_h2e_rms": [r.get("noise_h2e_rms_e2h", float("nan")) for r in records],
         }
     try:
-        out = lphi_from_series(
+        out = l_phi_from_series(
             temps,
             [r.get("amplitude_he_e2h", float("nan")) for r in records],
             [r.get("noise_he_rms_e2h", float("nan")) for r in records],
@@ -363,7 +363,7 @@ def run(args: argparse.Namespace) -> int:
                 f"{loaded.traces[args.trace].label}: {top_refusals[0].message} "
                 "(--force reports the numbers anyway)"
             )
-        lphi_series = _series(args, loaded.traces, records) if series else None
+        l_phi_series = _series(args, loaded.traces, records) if series else None
         four = four_t.four_terminal_record(args, loaded, lambda p: _load(args, p, False))
     messages = list(dict.fromkeys(str(w.message) for w in caught))
     for tr, found in zip(loaded.traces, findings, strict=True):
@@ -394,8 +394,8 @@ def run(args: argparse.Namespace) -> int:
             figures=figures,
             traces=records,
         )
-        if lphi_series is not None:
-            top["lphi_series"] = lphi_series
+        if l_phi_series is not None:
+            top["l_phi_series"] = l_phi_series
         four_t.merge_record(top, four)
         json.dump(clean_json(top), sys.stdout, allow_nan=False)
         sys.stdout.write("\n")
@@ -404,8 +404,8 @@ def run(args: argparse.Namespace) -> int:
     print(report.summary())
     for rec in records:
         print("\n".join(summary_lines(rec)))
-    if lphi_series is not None:
-        print("\n".join(series_lines(lphi_series)))
+    if l_phi_series is not None:
+        print("\n".join(series_lines(l_phi_series)))
     for line in four_t.four_terminal_lines(four):
         print(line)
     for m in messages:

@@ -62,7 +62,7 @@ class Material:
         At most one of ``mobility``, ``mean_free_path``, ``disorder_strength``; none = clean.
     temperature : float
         Temperature in K (>= 0), carried for thermal averaging by the transport layer.
-    phase_coherence_length : float, optional
+    l_phi : float, optional
         Phase-coherence length L_phi in m, carried for dephasing models.
     g_factor : float
         Effective Lande g factor (CODATA sign convention, free electron -2.0023); 0 switches
@@ -85,7 +85,7 @@ class Material:
     mean_free_path: float | None = None
     disorder_strength: float | None = None
     temperature: float = 0.0
-    phase_coherence_length: float | None = None
+    l_phi: float | None = None
     g_factor: float = 0.0
     name: str = ""
 
@@ -97,7 +97,7 @@ class Material:
             ("density", "m^-2"),
             ("mobility", "m^2/(V s)"),
             ("mean_free_path", "m"),
-            ("phase_coherence_length", "m"),
+            ("l_phi", "m"),
         ):
             value = getattr(self, key)
             if value is not None:
@@ -236,7 +236,7 @@ class Material:
             * ``density = 3e15 m^-2`` (3e11 cm^-2): typical HEMT value, range 1e11-5e11 cm^-2
               [M].
             * ``mobility = 4.0 m^2/(V s)`` (40 000 cm^2/(V s) at 4 K) and
-              ``phase_coherence_length = 0.4 um``: etched GaAs ring of A. M. Chang, G. Timp
+              ``l_phi = 0.4 um``: etched GaAs ring of A. M. Chang, G. Timp
               et al., Surf. Sci. 196, 46 (1988) (abstract).
             * ``g_factor = -0.44``: bulk GaAs conduction band [M].
         ``"InAs"`` -- InAs quantum-well 2DEG.
@@ -264,7 +264,7 @@ class Material:
                 effective_mass=0.067,
                 density=3e15,
                 mobility=4.0,
-                phase_coherence_length=0.4e-6,
+                l_phi=0.4e-6,
                 g_factor=-0.44,
                 name="GaAs/AlGaAs 2DEG",
             ),

@@ -31,7 +31,7 @@ CONDITION_DIMS: tuple[str, ...] = (
     "fermi_energy",
     "gate_potential",
     "temperature",
-    "dephasing_length",
+    "l_phi",
 )
 
 _SCALARS = (
@@ -161,7 +161,7 @@ def analyse_dataset(plan: StudyPlan, ds, setup: StudySetup) -> tuple[Any, dict[s
                 "fermi_energy_J": coord["fermi_energy"],
                 "gate_potential_J": coord["gate_potential"],
                 "temperature_K": coord["temperature"],
-                "dephasing_length_m": coord["dephasing_length"],
+                "l_phi_m": coord["l_phi"],
                 "mean_conductance_e2h": float(np.mean(gm[idx])),
                 "ensemble_mean": {
                     f"period_he{unit}": vals["period_he"],

@@ -7,7 +7,7 @@ API
 ---
 transverse_modes(k_fermi, width) -> int, lattice_modes(energy, n_across) -> int
 check_mean_free_path(physics, device), check_born_mean_free_path(physics, ring)
-check_dephasing_lengths(plan, device)
+check_l_phi_values(plan, device)
 """
 
 from __future__ import annotations
@@ -24,7 +24,7 @@ __all__ = [
     "lattice_modes",
     "check_mean_free_path",
     "check_born_mean_free_path",
-    "check_dephasing_lengths",
+    "check_l_phi_values",
 ]
 
 
@@ -89,15 +89,15 @@ def check_born_mean_free_path(physics: dict[str, dict[str, Any]], ring) -> None:
     )
 
 
-def check_dephasing_lengths(plan: StudyPlan, device) -> None:
+def check_l_phi_values(plan: StudyPlan, device) -> None:
     """Every finite L_phi must be at least the probe spacing along the arms."""
     geo = device.geometry
     n = plan.config["dephasing"]["probes"]
     spacing = 2 * math.pi * 0.5 * (geo.r_in + geo.r_out) / n
-    for i, d in enumerate(plan.config["sweep"]["dephasing_length"]):
+    for i, d in enumerate(plan.config["sweep"]["l_phi"]):
         if math.isfinite(d) and d < spacing:
             raise ParameterError(
-                f"sweep.dephasing_length[{i}]",
+                f"sweep.l_phi[{i}]",
                 format_quantity(d, "length", 4),
                 f"must be >= the spacing of the {n} dephasing probes along the arms, "
                 f"2 pi r_m / probes = {format_quantity(spacing, 'length', 3)} (the probe model "

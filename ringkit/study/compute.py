@@ -18,7 +18,7 @@ What is reused (per worker process, :class:`_RingState`, at most two lattices ke
 * the dephasing probes of (lattice, gate): the probe sites and the zero-field LDOS weights at
   the unit's Fermi energy are computed once (:func:`ringkit.transport.probes.attach_probes`);
   another L_phi only re-evaluates the coupling formula
-  (:func:`ringkit.transport.probes.coupling_from_lphi`).
+  (:func:`ringkit.transport.probes.coupling_from_l_phi`).
 
 Dephasing convention: the probe coupling is mapped from L_phi **at the Fermi energy** of the
 unit and kept for every energy of the thermal window, as in
@@ -185,7 +185,7 @@ class UnitEngine:
         self.field = np.asarray(task.field, float)
         self.flux = task.field_name == "flux"
         self.n_probes = int(task.physics["dephasing"]["probes"])
-        self.probes = None if math.isinf(u.dephasing_length) else self._probes(u.dephasing_length)
+        self.probes = None if math.isinf(u.l_phi) else self._probes(u.l_phi)
         self.model = self._model() if self.flux else None
 
     # ------------------------------------------------------------------ reused pieces
@@ -205,7 +205,7 @@ class UnitEngine:
 
     def _probes(self, l_phi: float):
         """Probes of the unit: sites and weights at E_F cached, coupling for ``l_phi``."""
-        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_lphi
+        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_l_phi
 
         ring = self.ring
         e_f = ring.fermi_energy_lattice
@@ -223,7 +223,7 @@ class UnitEngine:
 
         base = _lru(self.state.probes, self.gate_key, make, _PER_RING)
         info = base.info
-        eta = coupling_from_lphi(
+        eta = coupling_from_l_phi(
             l_phi / info["lattice_spacing"], velocity=info["velocity"],
             probe_fraction=info["probe_fraction"], diffusion_constant=info["diffusion_constant"],
             calibration=info["calibration"],
@@ -353,7 +353,7 @@ def _resistances(task: UnitTask, ring) -> tuple[np.ndarray, list[float]]:
             ds = resistance_field_sweep(
                 ring, np.asarray(task.field, float), list(sweep["contacts"]),
                 gate=u.gate_potential if "gate" in ring.params() else None, temperature=temp,
-                l_phi=None if math.isinf(u.dephasing_length) else u.dephasing_length,
+                l_phi=None if math.isinf(u.l_phi) else u.l_phi,
                 n_probes=int(task.physics["dephasing"]["probes"]),
                 thermal_tol=thermal["tol"], thermal_method=thermal["method"],
             )  # fmt: skip

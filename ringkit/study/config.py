@@ -339,6 +339,8 @@ _RETIRED = {
     "error-controlled; give its accuracy as [thermal] tol (e^2/h, default 1e-4)",
     "thermal.tail_tol": "no longer used: the thermal average is now error-controlled; give "
     "its accuracy as [thermal] tol (e^2/h, default 1e-4)",
+    "sweep.dephasing_length": "renamed: write [sweep] l_phi (one name for the phase-coherence "
+    "length everywhere in ringkit)",
 }
 
 _TYPE_WORDS = {"str": "a string", "int": "an integer", "float": "a number", "bool": "true or false"}

@@ -143,7 +143,7 @@ class Preflight:
 
 def _terminal_channels(plan: StudyPlan, lead_sites: int, n_sites: int) -> int:
     d = min(plan.config["dephasing"]["probes"], n_sites)  # more probes are refused by set-up
-    return 2 * lead_sites + (d if any(math.isfinite(x) for x in plan.dephasing_lengths) else 0)
+    return 2 * lead_sites + (d if any(math.isfinite(x) for x in plan.l_phi_values) else 0)
 
 
 def _worker_bytes(plan: StudyPlan, device) -> tuple[int, float]:
@@ -384,16 +384,16 @@ def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> C
     t_start = time.perf_counter()
     counts = unit_energy_counts(plan)
     first = plan.units[0]
-    per_energy = {"coherent": _time_engine(plan, _with_lphi(first, math.inf))}
-    if any(math.isfinite(d) for d in plan.dephasing_lengths):
-        lphi = next(d for d in plan.dephasing_lengths if math.isfinite(d))
-        per_energy["dephased"] = _time_engine(plan, _with_lphi(first, lphi))
+    per_energy = {"coherent": _time_engine(plan, _with_l_phi(first, math.inf))}
+    if any(math.isfinite(d) for d in plan.l_phi_values):
+        l_phi = next(d for d in plan.l_phi_values if math.isfinite(d))
+        per_energy["dephased"] = _time_engine(plan, _with_l_phi(first, l_phi))
     n_f = len(plan.field)
     # sweep.contacts: every energy is swept a second time for the conductance matrix of R
     sweeps = 2 if plan.config["sweep"]["contacts"] else 1
     unit_seconds = {}
     for u in plan.units:
-        s0, s1 = per_energy["coherent" if math.isinf(u.dephasing_length) else "dephased"]
+        s0, s1 = per_energy["coherent" if math.isinf(u.l_phi) else "dephased"]
         unit_seconds[u.uid] = sweeps * counts[u.fermi_energy] * (s0 + n_f * s1)
     pend = sum(unit_seconds[u.uid] for u in pending)
     n_e = sweeps * sum(counts[u.fermi_energy] for u in pending)
@@ -408,16 +408,16 @@ def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> C
     )
 
 
-def _with_lphi(unit: WorkUnit, lphi: float) -> WorkUnit:
+def _with_l_phi(unit: WorkUnit, l_phi: float) -> WorkUnit:
     from dataclasses import replace
 
-    return replace(unit, dephasing_length=lphi)
+    return replace(unit, l_phi=l_phi)
 
 
 def describe(plan: StudyPlan, pre: Preflight, cost: CostEstimate | None, n_pending: int) -> list:
     """Lines of the up-front estimate printed by ``ringkit study``."""
     n_probes = plan.config["dephasing"]["probes"]
-    dephased = sum(1 for u in plan.units if math.isfinite(u.dephasing_length))
+    dephased = sum(1 for u in plan.units if math.isfinite(u.l_phi))
     lines = [
         f"work: {n_pending} of {len(plan.units)} units to compute; each sweeps "
         f"{len(plan.field)} field points at every energy of its thermal window"

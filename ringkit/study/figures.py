@@ -38,13 +38,13 @@ _DIM_OF = {
     "fermi_energy": "energy",
     "gate_potential": "energy",
     "temperature": "temperature",
-    "dephasing_length": "length",
+    "l_phi": "length",
 }
 _SYMBOL = {
     "fermi_energy": "E_F",
     "gate_potential": "V_g",
     "temperature": "T",
-    "dephasing_length": "L_phi",
+    "l_phi": "L_phi",
 }
 
 

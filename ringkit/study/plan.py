@@ -27,7 +27,7 @@ from ringkit.study.config import StudyConfig
 __all__ = ["WorkUnit", "StudyPlan", "make_plan", "AXES"]
 
 #: Names of the outer axes of a study, in the order of the unit-id fields.
-AXES: tuple[str, ...] = ("realization", "fermi_energy", "gate_potential", "dephasing_length")
+AXES: tuple[str, ...] = ("realization", "fermi_energy", "gate_potential", "l_phi")
 
 
 @dataclass(frozen=True)
@@ -46,7 +46,7 @@ class WorkUnit:
         Fermi energy in J (``None``: the material's own value).
     gate_potential : float
         Potential energy of the arm gate in J.
-    dephasing_length : float
+    l_phi : float
         Phase-coherence length L_phi in m (``inf``: coherent, no probes).
     """
 
@@ -55,7 +55,7 @@ class WorkUnit:
     seed: int
     fermi_energy: float | None
     gate_potential: float
-    dephasing_length: float
+    l_phi: float
 
 
 @dataclass(frozen=True)
@@ -72,7 +72,7 @@ class StudyPlan:
         Disorder seed of each realization.
     fermi_energies : tuple of float or None
         Fermi energies in J; ``(None,)`` when the material's value is used.
-    gate_potentials, temperatures, dephasing_lengths : tuple of float
+    gate_potentials, temperatures, l_phi_values : tuple of float
         Outer axes in J, K and m.
     units : tuple of WorkUnit
         In execution order (realization-major, so each worker reuses one built system).
@@ -84,7 +84,7 @@ class StudyPlan:
     fermi_energies: tuple[float | None, ...]
     gate_potentials: tuple[float, ...]
     temperatures: tuple[float, ...]
-    dephasing_lengths: tuple[float, ...]
+    l_phi_values: tuple[float, ...]
     units: tuple[WorkUnit, ...]
 
     @property
@@ -99,7 +99,7 @@ class StudyPlan:
             len(self.seeds),
             len(self.fermi_energies),
             len(self.gate_potentials),
-            len(self.dephasing_lengths),
+            len(self.l_phi_values),
         )
 
     @property
@@ -122,8 +122,8 @@ class StudyPlan:
             out.append("gate_potential")
         if len(self.temperatures) > 1:
             out.append("temperature")
-        if len(self.dephasing_lengths) > 1:
-            out.append("dephasing_length")
+        if len(self.l_phi_values) > 1:
+            out.append("l_phi")
         return out
 
 
@@ -143,7 +143,7 @@ def make_plan(config: StudyConfig) -> StudyPlan:
     Returns
     -------
     StudyPlan
-        ``len(units) = realizations * n_fermi_energy * n_gate_potential * n_dephasing_length``.
+        ``len(units) = realizations * n_fermi_energy * n_gate_potential * n_l_phi``.
     """
     f = config["field"]
     field = np.linspace(f["start"], f["stop"], f["points"])
@@ -152,8 +152,8 @@ def make_plan(config: StudyConfig) -> StudyPlan:
     sw = config["sweep"]
     energies: tuple[float | None, ...] = sw["fermi_energy"] or (None,)
     gates = tuple(sw["gate_potential"])
-    lphis = tuple(sw["dephasing_length"])
-    sizes = (len(seeds), len(energies), len(gates), len(lphis))
+    l_phis = tuple(sw["l_phi"])
+    sizes = (len(seeds), len(energies), len(gates), len(l_phis))
     widths = tuple(max(2, len(str(n - 1))) for n in sizes)
     widths = (max(4, widths[0]), *widths[1:])
     units = []
@@ -166,7 +166,7 @@ def make_plan(config: StudyConfig) -> StudyPlan:
                 seed=seeds[r],
                 fermi_energy=energies[e],
                 gate_potential=gates[g],
-                dephasing_length=lphis[d],
+                l_phi=l_phis[d],
             )
         )
     return StudyPlan(
@@ -176,6 +176,6 @@ def make_plan(config: StudyConfig) -> StudyPlan:
         fermi_energies=energies,
         gate_potentials=gates,
         temperatures=tuple(sw["temperature"]),
-        dephasing_lengths=lphis,
+        l_phi_values=l_phis,
         units=tuple(units),
     )

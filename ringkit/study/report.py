@@ -4,8 +4,8 @@ Files written into the output directory ``DIR``:
 
 ``results.nc``
     xarray Dataset (netCDF4/HDF5 via h5netcdf). ``G[realization, fermi_energy,
-    gate_potential, temperature, dephasing_length, B]`` in e^2/h on SI coordinates (T or Wb,
-    J, K, m; ``dephasing_length = inf`` is the coherent ring), ``G_mean`` (ensemble average),
+    gate_potential, temperature, l_phi, B]`` in e^2/h on SI coordinates (T or Wb,
+    J, K, m; ``l_phi = inf`` is the coherent ring), ``G_mean`` (ensemble average),
     the extracted periods, areas and amplitudes, and every study parameter in the attributes
     (``"section.key [unit]"``), plus the study file itself (``study_toml``).
 ``summary.json``
@@ -123,7 +123,7 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
         elapsed[r, e, gi, d] = res.elapsed
     fname = plan.field_name
     energies = [setup.fermi_energy if e is None else e for e in plan.fermi_energies]
-    dims = ("realization", "fermi_energy", "gate_potential", "temperature", "dephasing_length")
+    dims = ("realization", "fermi_energy", "gate_potential", "temperature", "l_phi")
     coords = {
         "realization": ("realization", np.arange(n_r), {"long_name": "realization index"}),
         "seed": ("realization", np.asarray(plan.seeds), {"long_name": "disorder seed"}),
@@ -146,9 +146,9 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
             np.asarray(plan.temperatures, float),
             {"units": "K", "long_name": "temperature"},
         ),
-        "dephasing_length": (
-            "dephasing_length",
-            np.asarray(plan.dephasing_lengths, float),
+        "l_phi": (
+            "l_phi",
+            np.asarray(plan.l_phi_values, float),
             {
                 "units": "m",
                 "long_name": "phase-coherence length L_phi",
@@ -190,7 +190,7 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
                 },
             ),
             "compute_seconds": (
-                ("realization", "fermi_energy", "gate_potential", "dephasing_length"),
+                ("realization", "fermi_energy", "gate_potential", "l_phi"),
                 elapsed,
                 {"units": "s", "long_name": "wall-clock time per work unit"},
             ),
@@ -357,7 +357,7 @@ def _report_blocks(
             _fmt(c["fermi_energy_J"], "energy"),
             _fmt(c["gate_potential_J"], "energy"),
             _fmt(c["temperature_K"], "temperature"),
-            _fmt(c["dephasing_length_m"], "length"),
+            _fmt(c["l_phi_m"], "length"),
             _fmt(c["mean_conductance_e2h"]),
             _fmt(m.get("period_he_Wb" if period_dim == "flux" else "period_he_T"), period_dim),
             "-" if area is None else f"{area * 1e12:.4g}",

@@ -77,7 +77,7 @@ def _describe_unit(plan: StudyPlan, unit: WorkUnit) -> str:
     return (
         f"work unit {unit.uid} (disorder seed {unit.seed}, E_F = {e}, gate = "
         f"{format_quantity(unit.gate_potential, 'energy')}, "
-        f"L_phi = {format_quantity(unit.dephasing_length, 'length')})"
+        f"L_phi = {format_quantity(unit.l_phi, 'length')})"
     )
 
 

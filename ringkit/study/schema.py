@@ -343,7 +343,7 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
                 high=1000.0,
             ),
             Key(
-                "dephasing_length",
+                "l_phi",
                 "quantities",
                 'Phase-coherence lengths L_phi set by voltage probes; "inf" = fully coherent.',
                 dimension="length",
@@ -378,7 +378,7 @@ SCHEMA: dict[str, tuple[str, dict[str, Key]]] = {
         ),
     ),
     "dephasing": (
-        "Dephasing probes used for finite sweep.dephasing_length: floating voltage probes spread "
+        "Dephasing probes used for finite sweep.l_phi: floating voltage probes spread "
         "evenly along both arms, coupled so that the coherent intensity decays as "
         "exp(-L/L_phi) (see ringkit.transport.probes).",
         _keys(

@@ -28,7 +28,7 @@ import numpy as np
 from ringkit._validation import ParameterError
 from ringkit.study.checks import (
     check_born_mean_free_path,
-    check_dephasing_lengths,
+    check_l_phi_values,
     check_mean_free_path,
     lattice_modes,
     transverse_modes,
@@ -297,11 +297,11 @@ def check_setup(plan: StudyPlan) -> StudySetup:
             _check_window(ring, grid, temp)
             if e == plan.fermi_energies[0]:
                 n_thermal.append(grid.n_energies)
-    if any(math.isfinite(d) for d in plan.dephasing_lengths):
+    if any(math.isfinite(d) for d in plan.l_phi_values):
         from ringkit.transport.probes import ring_probe_sites
 
         ring_probe_sites(ring.fsyst, physics["dephasing"]["probes"])
-        check_dephasing_lengths(plan, ring.device)
+        check_l_phi_values(plan, ring.device)
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         base = make_device(physics, None, 0.0)

@@ -16,7 +16,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from ringkit._validation import ParameterError, check_positive
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY, path_length
 from ringkit.transport._lowrank_linalg import (
     Factorization,
     SparsePattern,
@@ -25,7 +25,7 @@ from ringkit.transport._lowrank_linalg import (
 )
 from ringkit.transport.fastsweep import kron_reduce
 
-__all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_lphi"]
+__all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_l_phi"]
 
 
 def _one_blas_thread():
@@ -183,7 +183,7 @@ def _bootstrap(a_eta: np.ndarray, a0: np.ndarray, n_boot: int, seed: int) -> np.
     return 0.5 * np.log(num / den)
 
 
-def measure_realised_lphi(
+def measure_realised_l_phi(
     solver: ProbeFluxSolver,
     eta,
     *,
@@ -223,14 +223,14 @@ def measure_realised_lphi(
     lr = _log_ratio(a1, a0)
     boots = _bootstrap(a1, a0, n_boot, seed)
     lr_err = float(np.std(boots, ddof=1)) if a0.size > 1 else float("inf")
-    lphi = length / -lr if lr < 0 else float("inf")
-    err = lphi * lr_err / abs(lr) if lr < 0 else float("inf")
+    l_phi = length / -lr if lr < 0 else float("inf")
+    err = l_phi * lr_err / abs(lr) if lr < 0 else float("inf")
     return {
-        "l_phi_realised": float(lphi),
+        "l_phi_realised": float(l_phi),
         "l_phi_realised_err": float(err),
         "log_ratio": lr,
         "log_ratio_err": lr_err,
         "path_length": float(length),
         "n_energies": int(a0.size),
-        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
     }

@@ -30,7 +30,7 @@ def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **k
     make_fields : callable
         ``make_fields(device) -> fields`` (T or Wb).
     fit_kwargs : dict, optional
-        Model keywords for :func:`fit_amplitude_prefactors` (``lphi``, ``temperature``,
+        Model keywords for :func:`fit_amplitude_prefactors` (``l_phi``, ``temperature``,
         ``mean_free_path``, ``fermi_velocity``, ``n_modes``, ...); the simulated median mean G
         per radius is passed as ``conductance`` unless given.
     **kwargs

@@ -239,9 +239,9 @@ def field_sweep(
         )
     if uniform:
         ring.check_field(float(np.max(np.abs(fields))), stacklevel=2)
-    from ringkit.transport.sweep import check_lphi
+    from ringkit.transport.sweep import check_l_phi
 
-    l_phi = check_lphi(l_phi, ring.lattice_spacing)
+    l_phi = check_l_phi(l_phi, ring.lattice_spacing)
     special = bool(zeeman or spin_resolved)
     extended = bool(temperature) or l_phi is not None
     if method == "auto":

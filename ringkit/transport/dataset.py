@@ -59,7 +59,7 @@ _UNITS = {
     "mean_free_path": "m",
     "disorder_strength": "J",
     "temperature": "K",
-    "phase_coherence_length": "m",
+    "l_phi": "m",
     "g_factor": "",
     "r_in": "m",
     "r_out": "m",

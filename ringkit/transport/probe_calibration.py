@@ -2,7 +2,7 @@
 
 Why per device
 --------------
-The analytic mapping of :func:`ringkit.transport.probes.coupling_from_lphi` (escape rate
+The analytic mapping of :func:`ringkit.transport.probes.coupling_from_l_phi` (escape rate
 ``eta f/hbar`` per unit time, ``L_phi = v tau_phi``; Buttiker, Phys. Rev. B 33, 3020 (1986);
 D'Amato and Pastawski, Phys. Rev. B 41, 7411 (1990)) is exact for one channel, but in a
 multi-channel disordered arm the velocity, the dwell time and the weight of the probe sites
@@ -43,8 +43,8 @@ range. See docs/probes.md.
 
 Public API
 ----------
-LphiCalibrator (set-up once, many L_phi), calibrate_probes, calibrate_ring_probes (ringkit
-rings, SI, either field mode), ProbeFluxSolver, measure_realised_lphi, he_amplitudes,
+LPhiCalibrator (set-up once, many L_phi), calibrate_probes, calibrate_ring_probes (ringkit
+rings, SI, either field mode), ProbeFluxSolver, measure_realised_l_phi, he_amplitudes,
 default_calibration_energies, CalibrationRangeWarning, VALIDATED_DAMPING
 """
 
@@ -57,16 +57,16 @@ from collections.abc import Sequence
 import numpy as np
 
 from ringkit._validation import ParameterError, check_positive
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY, path_length
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY, path_length
 from ringkit.transport._probe_solver import (
     ProbeFluxSolver,
     he_amplitudes,
-    measure_realised_lphi,
+    measure_realised_l_phi,
 )
 from ringkit.transport.probes import (
     ANALYTIC_LATTICE_FACTOR,
     DephasingProbes,
-    coupling_from_lphi,
+    coupling_from_l_phi,
     ring_probe_sites,
 )
 
@@ -76,15 +76,15 @@ __all__ = [
     "ProbeFluxSolver",
     "default_calibration_energies",
     "he_amplitudes",
-    "measure_realised_lphi",
-    "LphiCalibrator",
+    "measure_realised_l_phi",
+    "LPhiCalibrator",
     "calibrate_probes",
     "calibrate_ring_probes",
 ]
 
 VALIDATED_DAMPING = (0.25, 3.0)
 """Range of ``pi r / L_phi`` on which the calibration is validated (tests/test_probes.py,
-benchmarks/bench_lphi_calibration.py)."""
+benchmarks/bench_l_phi_calibration.py)."""
 
 
 class CalibrationRangeWarning(UserWarning):
@@ -110,7 +110,7 @@ def _estimate_radius(fsyst) -> float:
     return float(np.mean(np.hypot(*(pos - c).T)))
 
 
-class LphiCalibrator:
+class LPhiCalibrator:
     """Realised-L_phi calibration of one device at one working energy, reusable for many L_phi.
 
     The set-up (probe sites, calibration energies, one factorization per energy, probe-free
@@ -157,8 +157,8 @@ class LphiCalibrator:
         self._start = ANALYTIC_LATTICE_FACTOR if lattice else 1.0
 
     def measure(self, eta) -> dict:
-        """:func:`measure_realised_lphi` of coupling ``eta`` on the calibration energies."""
-        return measure_realised_lphi(
+        """:func:`measure_realised_l_phi` of coupling ``eta`` on the calibration energies."""
+        return measure_realised_l_phi(
             self.solver, eta, radius=self.radius, n_flux=self.n_flux, seed=self.seed, a0=self.a0
         )
 
@@ -171,7 +171,7 @@ class LphiCalibrator:
             "radius": float(self.radius),
             "energy": self.energy,
             "calibration_energies": [float(e) for e in self.energies],
-            LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+            L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
             "method": "per-device h/e damping, secant on the probe coupling (probe_calibration)",
             "velocity": self.velocity,
         }
@@ -196,7 +196,7 @@ class LphiCalibrator:
             )
         aim = max(target, lo)
         f_uniform = len(self.sites) / self.model.h0.shape[0]
-        eta = coupling_from_lphi(
+        eta = coupling_from_l_phi(
             length / aim, velocity=self.velocity, probe_fraction=f_uniform, calibration=self._start
         )
         eta_meas, meas, hist = self._secant(eta, aim, tol, max_steps)
@@ -277,7 +277,7 @@ def calibrate_probes(
         The flux-tube device (two leads, flux parameter ``"flux"`` for a system).
     l_phi : float
         Requested dephasing length in position units (lattice spacings for ringkit systems),
-        convention :data:`ringkit.conventions.LPHI_CONVENTION` (h/e damped by exp(-pi r/L_phi));
+        convention :data:`ringkit.conventions.L_PHI_CONVENTION` (h/e damped by exp(-pi r/L_phi));
         ``inf`` gives zero coupling.
     energy : float
         Working energy (Hamiltonian units).
@@ -299,10 +299,10 @@ def calibrate_probes(
     -------
     DephasingProbes
         ``info`` holds ``l_phi_requested``, ``l_phi_realised``, ``l_phi_realised_err``,
-        ``path_length``, ``calibration_energies``, ``eta_history``, ``lphi_convention``.
-        For several L_phi on one device use :class:`LphiCalibrator` (set-up done once).
+        ``path_length``, ``calibration_energies``, ``eta_history``, ``l_phi_convention``.
+        For several L_phi on one device use :class:`LPhiCalibrator` (set-up done once).
     """
-    cal = LphiCalibrator(
+    cal = LPhiCalibrator(
         model,
         energy,
         n_probes=n_probes,
@@ -334,7 +334,7 @@ def calibrate_ring_probes(
         disorder and hoppings apart from the Peierls phases); the probe sites are mapped back
         by their lattice tags. The realised L_phi is the zero-field value.
     l_phi : float
-        Requested L_phi in m (convention :data:`ringkit.conventions.LPHI_CONVENTION`).
+        Requested L_phi in m (convention :data:`ringkit.conventions.L_PHI_CONVENTION`).
     energy : float
         Fermi energy in J above the band bottom.
     gate : float, optional

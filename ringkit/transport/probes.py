@@ -27,7 +27,7 @@ Coupling from a dephasing length
 Convention (:mod:`ringkit.conventions`): the h/e amplitude is damped as ``exp(-L/L_phi)``
 with ``L = path_length(r, 1) = pi r``.
 
-* :func:`coupling_from_lphi` is the *analytic estimate*: a channel with group velocity v passes
+* :func:`coupling_from_l_phi` is the *analytic estimate*: a channel with group velocity v passes
   a site of coupling eta coherently with amplitude ``1/(1 + eta/(2 hbar v/a))`` (exact for a
   single-channel chain), which with probes every ``d`` sites gives
   ``eta = 2 hbar v/a (exp(d/(2 L_phi)) - 1)``, i.e. the rate picture ``1/tau_phi = eta f/hbar``,
@@ -44,7 +44,7 @@ with ``L = path_length(r, 1) = pi r``.
 
 Public API
 ----------
-DephasingProbes, ring_probe_sites, attach_probes, coupling_from_lphi, lphi_from_coupling,
+DephasingProbes, ring_probe_sites, attach_probes, coupling_from_l_phi, l_phi_from_coupling,
 lead_velocity, local_dos, effective_conductance, conductance_matrix_from_transmission,
 thermal_probe_conductance, policy_probe_conductance, PROBE_TYPES, ANALYTIC_LATTICE_FACTOR
 """
@@ -58,7 +58,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from ringkit._validation import ParameterError, check_positive
-from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
+from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
 from ringkit.transport.fastsweep import kron_reduce
 from ringkit.transport.probe_types import (  # the probe types, re-exported here
     PROBE_TYPES,
@@ -73,8 +73,8 @@ __all__ = [
     "DephasingProbes",
     "ring_probe_sites",
     "attach_probes",
-    "coupling_from_lphi",
-    "lphi_from_coupling",
+    "coupling_from_l_phi",
+    "l_phi_from_coupling",
     "lead_velocity",
     "local_dos",
     "conductance_matrix_from_transmission",
@@ -304,7 +304,7 @@ def local_dos(fsyst, energy: float, params: dict | None = None, *, hamiltonian=N
     return (np.abs(psi) ** 2).sum(axis=1) / (2.0 * np.pi)
 
 
-def coupling_from_lphi(
+def coupling_from_l_phi(
     l_phi: float,
     *,
     velocity: float,
@@ -346,7 +346,7 @@ def coupling_from_lphi(
     return float(calibration * eta)
 
 
-def lphi_from_coupling(
+def l_phi_from_coupling(
     eta: float,
     *,
     velocity: float,
@@ -354,7 +354,7 @@ def lphi_from_coupling(
     diffusion_constant: float | None = None,
     calibration: float = CALIBRATION,
 ) -> float:
-    """Inverse of :func:`coupling_from_lphi` (lattice spacings); ``inf`` for eta = 0."""
+    """Inverse of :func:`coupling_from_l_phi` (lattice spacings); ``inf`` for eta = 0."""
     eta = check_positive("eta", eta, allow_zero=True) / calibration
     if eta == 0:
         return float("inf")
@@ -429,7 +429,7 @@ def attach_probes(
     -------
     DephasingProbes
         ``info`` holds velocity, probe fraction, calibration factor, energy, the path-length
-        convention (``lphi_convention``) and ``l_phi_realised``/``l_phi_realised_err`` in m
+        convention (``l_phi_convention``) and ``l_phi_realised``/``l_phi_realised_err`` in m
         (None for the analytic estimate, which is not measured on the device).
     """
     if not isinstance(fsyst, kwant.system.FiniteSystem):
@@ -454,7 +454,7 @@ def attach_probes(
     if np.isinf(l_phi):
         eta = 0.0
     else:
-        eta = coupling_from_lphi(
+        eta = coupling_from_l_phi(
             l_phi / a,
             velocity=v,
             probe_fraction=f,
@@ -468,7 +468,7 @@ def attach_probes(
         "lattice_spacing": a,
         "diffusion_constant": diffusion_constant,
         "calibration": calibration,
-        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
         "l_phi_realised": None,
         "l_phi_realised_err": None,
         "l_phi_status": "analytic estimate, not measured on this device (calibrate=True)",

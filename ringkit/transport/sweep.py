@@ -41,7 +41,7 @@ from ringkit.units import HBAR, K_B, PHI0
 
 __all__ = [
     "FastSweepResult",
-    "check_lphi",
+    "check_l_phi",
     "fast_field_conductance",
     "ring_probes",
     "ring_correlation_energy",
@@ -76,7 +76,7 @@ def ring_correlation_energy(ring) -> float:
     return HBAR * v_f / (2 * math.pi * geo.mean_radius) / ring.hopping
 
 
-def check_lphi(l_phi, lattice_spacing: float) -> float | None:
+def check_l_phi(l_phi, lattice_spacing: float) -> float | None:
     """Validate a phase-coherence length in m: None or +inf mean fully coherent (None returned).
 
     NaN, -inf, zero, negative values and lengths shorter than the lattice spacing (no probe
@@ -104,10 +104,10 @@ def check_lphi(l_phi, lattice_spacing: float) -> float | None:
 def ring_probes(ring, l_phi, energy_t: float, params: dict, n_probes: int, *, center=None):
     """Dephasing probes of ``ring`` for ``l_phi`` (m) at ``energy_t`` (units of t), or None.
 
-    ``l_phi`` is validated by :func:`check_lphi` (None or inf: no probes). ``center`` as in
+    ``l_phi`` is validated by :func:`check_l_phi` (None or inf: no probes). ``center`` as in
     :func:`ringkit.transport.probes.attach_probes`.
     """
-    l_phi = check_lphi(l_phi, ring.lattice_spacing)
+    l_phi = check_l_phi(l_phi, ring.lattice_spacing)
     if l_phi is None:
         return None
     return attach_probes(
@@ -133,7 +133,7 @@ def fast_field_conductance(
     n_probes: int = 100,
     thermal_tol: float = DEFAULT_TOL,
     thermal_method: str = "adaptive",
-    calibrate_lphi: bool = False,
+    calibrate_l_phi: bool = False,
 ) -> FastSweepResult:
     """Two-terminal conductance over a field sweep with the fast solvers.
 
@@ -157,7 +157,7 @@ def fast_field_conductance(
         Absolute error goal of the thermal average in e^2/h (default 1e-4), in [1e-10, 0.1].
     thermal_method : {"adaptive", "grid"}
         Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
-    calibrate_lphi : bool
+    calibrate_l_phi : bool
         Measure and adjust the L_phi the probes realise on this device
         (:func:`ringkit.transport.probe_calibration.calibrate_ring_probes`, about the cost of
         one 16-energy dephasing sweep). ``info`` then holds ``l_phi_realised_m`` and
@@ -173,8 +173,8 @@ def fast_field_conductance(
     e_t = ring.to_lattice_energy(energy)
     name = ring.field_param
     params = ring.params(gate=gate)
-    l_phi = check_lphi(l_phi, ring.lattice_spacing)
-    if l_phi is not None and calibrate_lphi:
+    l_phi = check_l_phi(l_phi, ring.lattice_spacing)
+    if l_phi is not None and calibrate_l_phi:
         from ringkit.transport.probe_calibration import calibrate_ring_probes
 
         probes = calibrate_ring_probes(ring, l_phi, energy, gate=gate, n_probes=int(n_probes))
@@ -224,14 +224,14 @@ def fast_field_conductance(
         "n_probes": 0 if probes is None else len(np.atleast_1d(probes.sites)),
         "probe_eta": 0.0 if probes is None else float(np.mean(probes.eta)),
         "n_fallbacks": fallbacks,
-        **_realised_lphi_info(probes),
+        **_realised_l_phi_info(probes),
     }
     return FastSweepResult(2.0 * g_spin, info)
 
 
-def _realised_lphi_info(probes) -> dict:
+def _realised_l_phi_info(probes) -> dict:
     """The L_phi the probes realise (m, NaN if not measured) and the path-length convention."""
-    from ringkit.conventions import LPHI_CONVENTION, LPHI_CONVENTION_KEY
+    from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
 
     if probes is None:
         real, err, status = math.inf, 0.0, "no dephasing"
@@ -245,7 +245,7 @@ def _realised_lphi_info(probes) -> dict:
         "l_phi_realised_m": real,
         "l_phi_realised_err_m": err,
         "l_phi_status": status,
-        LPHI_CONVENTION_KEY: LPHI_CONVENTION,
+        L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
     }
 
 

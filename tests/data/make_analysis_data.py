@@ -46,7 +46,7 @@ TRUTH: dict[str, dict] = {
         "path_length": np.pi * 0.63e-6,  # m, L = pi r (h/e pair of paths)
         "temperatures": (0.25, 0.4, 0.6, 0.9, 1.4, 2.0),  # K
         "amp0": 0.5,  # e^2/h, A(T) = amp0 F_T exp(-L/L_phi(T))
-        "lphi_1K": 2.0e-6,  # m, L_phi(T) = lphi_1K (T/1 K)^-p
+        "l_phi_1K": 2.0e-6,  # m, L_phi(T) = l_phi_1K (T/1 K)^-p
         "p": 1.0,
         "thermal_energy": K_B * 2.0,  # J, F_T = x/sinh(x), x = pi k_B T/E_c
         "g_mean": 4.0,  # e^2/h
@@ -72,9 +72,9 @@ def thermal_factor(temperature: float, energy: float) -> float:
 
 def amplitude_vs_temperature(temperature: float) -> float:
     t = TRUTH["ring_temperatures.csv"]
-    lphi = t["lphi_1K"] * temperature ** (-t["p"])
+    l_phi = t["l_phi_1K"] * temperature ** (-t["p"])
     ft = thermal_factor(temperature, t["thermal_energy"])
-    return t["amp0"] * ft * float(np.exp(-t["path_length"] / lphi))
+    return t["amp0"] * ft * float(np.exp(-t["path_length"] / l_phi))
 
 
 def make_ring_updown() -> str:

@@ -20,7 +20,7 @@ Compute functions (no widgets; importable without ipywidgets)
 -------------------------------------------------------------
 explorer: ExplorerParams, explorer_preview; explorer_full: explorer_full, FullResult;
 explorer_live: LiveLattice; explorer_derived: derived_quantities; explorer_study: study_toml,
-params_from_study; measured_series: series_lphi;
+params_from_study; measured_series: series_l_phi;
 scaling: ScalingParams, scaling_curves, simulate_points, calibrated_prefactors;
 measured: LoadOptions, AnalysisOptions, load_trace_file, load_trace_bytes, analyze_trace,
 demo_trace_text.

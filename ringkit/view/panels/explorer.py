@@ -78,7 +78,7 @@ class ExplorerParams:
     mobility : float or None
         Mobility in m^2/(V s) (sets the elastic mean free path); None = preset value,
         ``inf`` = clean (no disorder).
-    phase_coherence_length : float or None
+    l_phi : float or None
         L_phi in m; None = fully coherent.
     temperature : float
         Temperature in K.
@@ -115,7 +115,7 @@ class ExplorerParams:
     fermi_energy: float | None = None
     density: float | None = None
     mobility: float | None = None
-    phase_coherence_length: float | None = 2e-6
+    l_phi: float | None = 2e-6
     temperature: float = 0.1
     field_min: float = -0.02
     field_max: float = 0.02
@@ -166,11 +166,11 @@ class ExplorerParams:
             over["fermi_energy"] = self.fermi_energy
         if self.mobility is not None:
             over["mobility"] = None if math.isinf(self.mobility) else self.mobility
-        if self.phase_coherence_length is not None:
-            over["phase_coherence_length"] = self.phase_coherence_length
+        if self.l_phi is not None:
+            over["l_phi"] = self.l_phi
         mat = Material.preset(self.material, **over)
-        if self.phase_coherence_length is None and mat.phase_coherence_length is not None:
-            mat = replace(mat, phase_coherence_length=None)
+        if self.l_phi is None and mat.l_phi is not None:
+            mat = replace(mat, l_phi=None)
         return mat
 
     def geometry(self):
@@ -209,7 +209,7 @@ class ExplorerParams:
             gate_arm=self.gate_arm,
             mean_free_path=mat.elastic_mean_free_path,
             temperature=self.temperature,
-            phase_coherence_length=self.phase_coherence_length,
+            l_phi=self.l_phi,
         )
 
 

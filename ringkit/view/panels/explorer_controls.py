@@ -39,7 +39,7 @@ MEV = 1e-3 * EV
 DENSITY_UNIT = 1e15  # m^-2 per displayed unit (1e11 cm^-2)
 _CM2 = 1e-4  # 1 cm^2/(V s) in m^2/(V s)
 _CLEAN_MOBILITY = 10**7.45  # cm^2/(V s): the slider's top end means "no disorder"
-_COHERENT_LPHI = 999.0  # µm: the L_phi slider's top end means "fully coherent"
+_COHERENT_L_PHI = 999.0  # µm: the L_phi slider's top end means "fully coherent"
 STYLE = {"description_width": "210px"}
 WIDTH = "470px"
 
@@ -95,7 +95,7 @@ def make_controls(p: ExplorerParams) -> tuple[dict[str, widgets.Widget], str]:
         mob = 10**7.5 if math.isinf(p.mobility) else p.mobility / _CM2
     lay = widgets.Layout(width=WIDTH)
     kw = dict(continuous_update=False, style=STYLE, layout=lay)
-    lphi_um = 1e3 if p.phase_coherence_length is None else p.phase_coherence_length * 1e6
+    l_phi_um = 1e3 if p.l_phi is None else p.l_phi * 1e6
     controls = {
         "material": widgets.Dropdown(
             options=["GaAs", "InAs", "Au"], value=p.material, description="material",
@@ -126,8 +126,8 @@ def make_controls(p: ExplorerParams) -> tuple[dict[str, widgets.Widget], str]:
             value=mob, base=10, min=0, max=7.5, step=0.05,
             description="mobility (cm²/Vs; max = clean)", readout_format=".3g", **kw,
         ),
-        "lphi": widgets.FloatLogSlider(
-            value=lphi_um, base=10, min=-1.5, max=3, step=0.05,
+        "l_phi": widgets.FloatLogSlider(
+            value=l_phi_um, base=10, min=-1.5, max=3, step=0.05,
             description="L_phi (µm; max = ∞)", readout_format=".3g", **kw,
         ),
         "temperature": widgets.FloatSlider(
@@ -168,7 +168,7 @@ def make_controls(p: ExplorerParams) -> tuple[dict[str, widgets.Widget], str]:
 def params_from_controls(c: dict[str, widgets.Widget], fermi_source: str) -> ExplorerParams:
     """Current control values as :class:`ExplorerParams` (raises ParameterError)."""
     b0, b1 = c["field"].value
-    lphi = c["lphi"].value
+    l_phi = c["l_phi"].value
     mob = c["mobility"].value
     carriers = (
         {"density": c["density"].value * DENSITY_UNIT}
@@ -183,7 +183,7 @@ def params_from_controls(c: dict[str, widgets.Widget], fermi_source: str) -> Exp
         lead_angle=math.radians(c["lead_angle"].value),
         **carriers,
         mobility=math.inf if mob >= _CLEAN_MOBILITY else mob * _CM2,
-        phase_coherence_length=None if lphi >= _COHERENT_LPHI else lphi * 1e-6,
+        l_phi=None if l_phi >= _COHERENT_L_PHI else l_phi * 1e-6,
         temperature=c["temperature"].value,
         field_min=b0 * 1e-3,
         field_max=b1 * 1e-3,

@@ -242,7 +242,7 @@ class ExplorerDrawing:
                 "sketch",
                 p and p.geometry(),
                 p and (p.gate_arm if p.gate_potential != 0 else None),
-                N_PROBES if p and p.phase_coherence_length is not None else 0,
+                N_PROBES if p and p.l_phi is not None else 0,
             )
         )
         if key == self._ring_key:

@@ -150,7 +150,7 @@ def explorer_full(
         Error goal of the thermal average in e^2/h (thermal policy,
         :mod:`ringkit.thermal_policy`); the estimate is reported in the notes.
     n_probes : int
-        Dephasing probes spread along both arms when ``phase_coherence_length`` is set
+        Dephasing probes spread along both arms when ``l_phi`` is set
         (:func:`ringkit.transport.probes.attach_probes`, coupling mapped from L_phi at E_F).
 
     Returns
@@ -193,13 +193,13 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int, tol:
     field = preview_field_grid(params, period)
     notes: list[str] = []
     probes = None
-    if params.phase_coherence_length is not None:
+    if params.l_phi is not None:
         from ringkit.transport.probes import attach_probes
 
         say(0.05, f"{ring.n_sites} sites; attaching {n_probes} dephasing probes")
         zero = ring.params(B=0.0) if params.field_mode == "uniform" else ring.params(flux=0.0)
         probes = attach_probes(
-            ring.fsyst, l_phi=params.phase_coherence_length, energy=ring.fermi_energy_lattice,
+            ring.fsyst, l_phi=params.l_phi, energy=ring.fermi_energy_lattice,
             n_probes=n_probes, lattice_spacing=ring.lattice_spacing, params=zero,
         )  # fmt: skip
         notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")

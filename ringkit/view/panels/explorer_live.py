@@ -376,9 +376,9 @@ class LiveLattice:
         The zero-field LDOS behind the weights comes from the probe-free model ``base`` (same
         parameters, flux 0; its MUMPS analysis is then shared with the sweepers).
         """
-        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_lphi
+        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_l_phi
 
-        l_phi = params.phase_coherence_length
+        l_phi = params.l_phi
         if l_phi is None:
             return None
         zero = ring.params(flux=0.0)
@@ -397,7 +397,7 @@ class LiveLattice:
         if made or probes.l_phi == l_phi:
             return probes
         info = probes.info  # the mapping of attach_probes with the cached weights
-        eta = coupling_from_lphi(
+        eta = coupling_from_l_phi(
             l_phi / info["lattice_spacing"], velocity=info["velocity"],
             probe_fraction=info["probe_fraction"], diffusion_constant=info["diffusion_constant"],
             calibration=info["calibration"],

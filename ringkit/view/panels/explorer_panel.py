@@ -195,7 +195,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
                             "density", "fermi_energy", "mobility")]
         )  # fmt: skip
         physics = widgets.VBox(
-            [c[k] for k in ("lphi", "temperature", "field", "gate", "gate_arm", "coupling")]
+            [c[k] for k in ("l_phi", "temperature", "field", "gate", "gate_arm", "coupling")]
         )
         full = widgets.VBox(
             [

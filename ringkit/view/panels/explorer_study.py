@@ -111,8 +111,8 @@ def study_toml(
         n = params.n_field or 401
         field = ["[field]", 'mode = "uniform"', f"start = {_q(params.field_min, 'mT', 1e-3)}",
                  f"stop = {_q(params.field_max, 'mT', 1e-3)}", f"points = {n}"]  # fmt: skip
-    lphi = params.phase_coherence_length
-    lphi_text = '"inf"' if lphi is None else _q(lphi, "nm", 1e-9)
+    l_phi = params.l_phi
+    l_phi_text = '"inf"' if l_phi is None else _q(l_phi, "nm", 1e-9)
     lines += [
         *field,
         "",
@@ -120,7 +120,7 @@ def study_toml(
         f'gate_arm = "{params.gate_arm}"',
         f"gate_potential = [{_q(params.gate_potential, 'meV', 1.602176634e-22)}]",
         f"temperature = [{_q(params.temperature, 'K', 1.0)}]",
-        f"dephasing_length = [{lphi_text}]",
+        f"l_phi = [{l_phi_text}]",
         "",
         "[dephasing]",
         f"probes = {N_PROBES}",
@@ -172,7 +172,7 @@ def params_from_study(text: str, *, source: str = "<study>") -> tuple[ExplorerPa
 
     r_in, r_out = g["r_in"], g["r_out"]
     width = r_out - r_in
-    lphi = first("dephasing_length")
+    l_phi = first("l_phi")
     temperature = first("temperature")
     gate = first("gate_potential")
     e_f = first("fermi_energy") if "fermi_energy" in sw else None
@@ -194,7 +194,7 @@ def params_from_study(text: str, *, source: str = "<study>") -> tuple[ExplorerPa
         density=None if (e_f is not None or m.get("fermi_energy") is not None)
         else m.get("density"),
         mobility=mobility,
-        phase_coherence_length=None if lphi is None or math.isinf(lphi) else lphi,
+        l_phi=None if l_phi is None or math.isinf(l_phi) else l_phi,
         temperature=0.0 if temperature is None else float(temperature),
         field_min=field_min,
         field_max=field_max,

@@ -145,7 +145,7 @@ class AnalysisOptions:
         Material preset of the simulated ring ("GaAs", "InAs", "Au").
     temperature : float or None
         Temperature in K of the simulation (None: the trace's, else 0.1 K).
-    phase_coherence_length : float or None
+    l_phi : float or None
         L_phi in m of the simulation.
     coupling : float
         Junction coupling of the simulated single-channel ring.
@@ -160,7 +160,7 @@ class AnalysisOptions:
     r_out: float | None = None
     material: str = "GaAs"
     temperature: float | None = None
-    phase_coherence_length: float | None = None
+    l_phi: float | None = None
     coupling: float = 0.3
 
     def __post_init__(self) -> None:
@@ -276,7 +276,7 @@ def analyze_trace(trace: Trace, options: AnalysisOptions | None = None) -> Measu
         fermi_energy=mat.fermi_energy_J,
         coupling=opts.coupling,
         temperature=temp,
-        phase_coherence_length=opts.phase_coherence_length,
+        l_phi=opts.l_phi,
     )
     with warnings.catch_warnings(record=True) as sim_caught:
         warnings.simplefilter("always")
@@ -322,7 +322,7 @@ def demo_trace_text(seed: int = 1) -> str:
     mat = Material.preset("GaAs")
     ring = NetworkRing(
         radius=0.65e-6, effective_mass=mat.effective_mass, fermi_energy=mat.fermi_energy_J,
-        coupling=0.5, arm_fraction=0.47, temperature=0.3, phase_coherence_length=1.5e-6,
+        coupling=0.5, arm_fraction=0.47, temperature=0.3, l_phi=1.5e-6,
     )  # fmt: skip
     osc = ring.conductance(b)
     osc = 0.15 * (osc - osc.mean()) / osc.std()

@@ -50,7 +50,7 @@ from ringkit.view.panels.measured_lab import (
     lab_rows,
     parse_lab_inputs,
 )
-from ringkit.view.panels.measured_series import series_lphi, trace_caption
+from ringkit.view.panels.measured_series import series_l_phi, trace_caption
 from ringkit.view.style import DELTA_G_LABEL, field_scale, field_unit_for, new_figure
 
 _STYLE = {"description_width": "170px"}
@@ -147,7 +147,7 @@ class MeasuredDataPanel(PanelBase):
             "symmetrize": widgets.Dropdown(options=["none", "even", "odd"],
                                            description="4-terminal: analyse", style=style,
                                            layout=lay),
-            "lphi": widgets.FloatLogSlider(value=2.0, base=10, min=-1.5, max=2, step=0.05,
+            "l_phi": widgets.FloatLogSlider(value=2.0, base=10, min=-1.5, max=2, step=0.05,
                                            description="sim. L_phi (µm)", readout_format=".3g",
                                            **kw),
             "current": widgets.Text(description="current (nA)", placeholder="e.g. 10", **kw),
@@ -352,7 +352,7 @@ class MeasuredDataPanel(PanelBase):
             r_in=radii[0],
             r_out=radii[1],
             material=c["material"].value,
-            phase_coherence_length=c["lphi"].value * 1e-6,
+            l_phi=c["l_phi"].value * 1e-6,
         )
 
     def update(self) -> bool:
@@ -447,7 +447,7 @@ class MeasuredDataPanel(PanelBase):
             return False
         try:
             opts = self.analysis_options()
-            fit = series_lphi(self.traces, opts)
+            fit = series_l_phi(self.traces, opts)
         except ValueError as exc:
             self.show_message(f"L_phi(T) fit: {exc}")
             return False
@@ -460,7 +460,7 @@ class MeasuredDataPanel(PanelBase):
                 f"{1e6 * dlp:.2g} µm",
             )
             for t, a, da, lp, dlp in zip(fit.temperatures, fit.amplitudes,
-                                         fit.amplitude_errors, fit.lphi, fit.lphi_errors,
+                                         fit.amplitude_errors, fit.l_phi, fit.l_phi_errors,
                                          strict=True)
         ]  # fmt: skip
         params = "; ".join(_param(k, v, f["errors"].get(k, math.nan), f["units"].get(k, ""))

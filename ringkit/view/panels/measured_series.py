@@ -1,10 +1,10 @@
 """Temperature series of the measured-data panel: L_phi(T) from every loaded trace (no widgets).
 
-series_lphi(traces, options) -> SeriesFit
+series_l_phi(traces, options) -> SeriesFit
     Analyses each trace over its whole field range with the panel's analysis options
     (:func:`ringkit.view.panels.measured.analyze_trace`), then averages per temperature and fits
-    L_phi(T) with :func:`ringkit.analysis.tseries.lphi_from_series` (which uses
-    :func:`ringkit.analysis.fitting.fit_lphi_temperature`; errors are the fit's 1-sigma
+    L_phi(T) with :func:`ringkit.analysis.tseries.l_phi_from_series` (which uses
+    :func:`ringkit.analysis.fitting.fit_l_phi_temperature`; errors are the fit's 1-sigma
     errors). The path length follows :mod:`ringkit.conventions` (h/e: ``L = pi r``) with the
     radius given in the options, else the median of the extracted effective radii.
 trace_caption(index, trace) -> str
@@ -23,7 +23,7 @@ import numpy as np
 from ringkit._validation import ParameterError
 from ringkit.view.panels.measured import AnalysisOptions, analyze_trace
 
-__all__ = ["SeriesFit", "series_lphi", "trace_caption"]
+__all__ = ["SeriesFit", "series_l_phi", "trace_caption"]
 
 
 def trace_caption(index: int, trace) -> str:
@@ -46,12 +46,12 @@ class SeriesFit:
         Distinct temperatures in K (sorted).
     amplitudes, amplitude_errors : ndarray
         h/e cosine amplitude per temperature and its 1-sigma error, in e^2/h.
-    lphi, lphi_errors : ndarray
+    l_phi, l_phi_errors : ndarray
         Fitted L_phi at those temperatures and 1-sigma errors, in m.
     radius : float
         Radius of the path length in m.
     fit : dict
-        What :func:`ringkit.analysis.tseries.lphi_from_series` returned.
+        What :func:`ringkit.analysis.tseries.l_phi_from_series` returned.
     skipped : tuple of str
         Traces left out and why.
     """
@@ -59,14 +59,14 @@ class SeriesFit:
     temperatures: np.ndarray
     amplitudes: np.ndarray
     amplitude_errors: np.ndarray
-    lphi: np.ndarray
-    lphi_errors: np.ndarray
+    l_phi: np.ndarray
+    l_phi_errors: np.ndarray
     radius: float
     fit: dict
     skipped: tuple[str, ...] = ()
 
 
-def series_lphi(traces, options: AnalysisOptions | None = None) -> SeriesFit:
+def series_l_phi(traces, options: AnalysisOptions | None = None) -> SeriesFit:
     """Fit L_phi(T) to the h/e amplitudes of ``traces`` (module docstring).
 
     Raises
@@ -74,7 +74,7 @@ def series_lphi(traces, options: AnalysisOptions | None = None) -> SeriesFit:
     ParameterError
         Fewer than 3 temperatures with an h/e amplitude (message says how to get them).
     """
-    from ringkit.analysis.tseries import lphi_from_series
+    from ringkit.analysis.tseries import l_phi_from_series
 
     opts = replace(options or AnalysisOptions(), field_min=None, field_max=None)
     temps, amps, noise, radii, skipped = [], [], [], [], []
@@ -99,14 +99,14 @@ def series_lphi(traces, options: AnalysisOptions | None = None) -> SeriesFit:
         raise ParameterError(
             "temperature series", 0, "no trace with a temperature could be analysed", ""
         )
-    out = lphi_from_series(temps, amps, noise, radius=radius)
+    out = l_phi_from_series(temps, amps, noise, radius=radius)
     pts = out["points"]
     return SeriesFit(
         temperatures=np.array([q["temperature_K"] for q in pts]),
         amplitudes=np.array([q["amplitude_e2h"] for q in pts]),
         amplitude_errors=np.array([q["amplitude_err_e2h"] for q in pts]),
-        lphi=np.asarray(out["lphi_at_points_m"], dtype=float),
-        lphi_errors=np.asarray(out["lphi_err_at_points_m"], dtype=float),
+        l_phi=np.asarray(out["l_phi_at_points_m"], dtype=float),
+        l_phi_errors=np.asarray(out["l_phi_err_at_points_m"], dtype=float),
         radius=radius,
         fit=out,
         skipped=tuple(skipped),

@@ -40,7 +40,7 @@ class ScalingParams:
     ----------
     material : {"GaAs", "InAs", "Au"}
         Preset giving the Fermi velocity (and mobility unless overridden).
-    lphi : float
+    l_phi : float
         Phase-coherence length in m (``inf`` allowed).
     temperature : float
         Temperature in K.
@@ -59,7 +59,7 @@ class ScalingParams:
     """
 
     material: str = "GaAs"
-    lphi: float = 2e-6
+    l_phi: float = 2e-6
     temperature: float = 0.1
     mean_free_path: float | None = None
     r_min: float = 0.1e-6
@@ -72,7 +72,7 @@ class ScalingParams:
 
     def __post_init__(self) -> None:
         check_choice("material", self.material, ("GaAs", "InAs", "Au"))
-        check_range("lphi", self.lphi, 0.0, None, "m", inclusive=(False, True))
+        check_range("l_phi", self.l_phi, 0.0, None, "m", inclusive=(False, True))
         check_positive("temperature", self.temperature, "K", allow_zero=True)
         if self.mean_free_path is not None:
             check_positive("mean_free_path", self.mean_free_path, "m")
@@ -91,8 +91,8 @@ class ScalingParams:
         from ringkit.device import Material
 
         over: dict[str, Any] = {"temperature": self.temperature}
-        if math.isfinite(self.lphi):
-            over["phase_coherence_length"] = self.lphi
+        if math.isfinite(self.l_phi):
+            over["l_phi"] = self.l_phi
         if self.mean_free_path is not None:
             over["mean_free_path"] = self.mean_free_path
         mat = Material.preset(self.material, **over)
@@ -118,7 +118,7 @@ def scaling_curves(params: ScalingParams, simulated: Any = None):
     mat = params.material_obj()
     return predict_amplitudes(
         params.radii,
-        lphi=params.lphi,
+        l_phi=params.l_phi,
         temperature=params.temperature,
         mean_free_path=mat.elastic_mean_free_path,
         fermi_velocity=mat.fermi_velocity,
@@ -143,11 +143,11 @@ def _sample(device, seed: int, params: ScalingParams, n_flux: int, n_probes: int
     fluxes = PHI0 * np.arange(n_flux) / n_flux
     p0 = ring.params(flux=0.0)
     probes_kw: dict[str, Any] = {}
-    if math.isfinite(params.lphi):
+    if math.isfinite(params.l_phi):
         from ringkit.transport.probes import attach_probes
 
         pr = attach_probes(
-            ring.fsyst, l_phi=params.lphi, energy=ring.fermi_energy_lattice,
+            ring.fsyst, l_phi=params.l_phi, energy=ring.fermi_energy_lattice,
             n_probes=n_probes, lattice_spacing=ring.lattice_spacing, params=p0,
         )  # fmt: skip
         probes_kw = {"probe_sites": pr.sites, "probe_eta": pr.eta}

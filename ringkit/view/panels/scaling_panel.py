@@ -65,11 +65,11 @@ class SizeScalingPanel(PanelBase):
         style = {"description_width": "220px"}
         lay = widgets.Layout(width="440px")
         kw = dict(continuous_update=False, style=style, layout=lay)
-        lphi_um = 1e3 if not math.isfinite(p.lphi) else p.lphi * 1e6
+        l_phi_um = 1e3 if not math.isfinite(p.l_phi) else p.l_phi * 1e6
         self.controls = {
             "material": widgets.Dropdown(options=["GaAs", "InAs", "Au"], value=p.material,
                                          description="material", style=style, layout=lay),
-            "lphi": widgets.FloatLogSlider(value=lphi_um, base=10, min=-1.5, max=3, step=0.05,
+            "l_phi": widgets.FloatLogSlider(value=l_phi_um, base=10, min=-1.5, max=3, step=0.05,
                                            description="L_phi (µm)", readout_format=".3g", **kw),
             "temperature": widgets.FloatLogSlider(value=max(p.temperature, 1e-3), base=10,
                                                   min=-3, max=1.5, step=0.05,
@@ -137,12 +137,12 @@ class SizeScalingPanel(PanelBase):
     def params_from_controls(self) -> ScalingParams:
         """Current settings (raises ParameterError)."""
         c = self.controls
-        lphi = c["lphi"].value
+        l_phi = c["l_phi"].value
         r0, r1 = c["radius"].value
         mfp = c["mean_free_path"].value
         return ScalingParams(
             material=c["material"].value,
-            lphi=math.inf if lphi >= 999.0 else lphi * 1e-6,
+            l_phi=math.inf if l_phi >= 999.0 else l_phi * 1e-6,
             temperature=c["temperature"].value,
             mean_free_path=mfp * 1e-6 if mfp > 0 else None,
             r_min=r0 * 1e-6,
@@ -249,7 +249,7 @@ class SizeScalingPanel(PanelBase):
         if self.points is not None and self.points_params is not None:
             q = self.points_params
             n = int(self.points["n_samples"][0])
-            rows.append(("simulated points", f"{q.material}, L_phi {q.lphi * 1e6:.3g} µm, "
+            rows.append(("simulated points", f"{q.material}, L_phi {q.l_phi * 1e6:.3g} µm, "
                          f"T {q.temperature:.3g} K, {n} samples per radius"))  # fmt: skip
             for note in self.points.get("notes", ()):
                 rows.append(("simulation note", note))
