@@ -530,9 +530,11 @@ def test_field_sweep_results_report_the_realised_l_phi():
     ring = build_ring(dev, seed=5)
     flux = np.linspace(0, 2, 17) * PHI0
     kw = dict(energy=ring.fermi_energy, l_phi=0.25e-6, n_probes=24)
-    res = fast_field_conductance(ring, flux, calibrate_l_phi=True, **kw)
+    res = fast_field_conductance(ring, flux, **kw)  # calibrated by default
     assert res.info["l_phi_realised_m"] == pytest.approx(0.25e-6, rel=0.031)
     assert 0 < res.info["l_phi_realised_err_m"] < 0.5e-6
+    assert res.info["l_phi_status"].startswith("measured on this device")
     assert res.info["l_phi_convention"] == L_PHI_CONVENTION
-    plain = fast_field_conductance(ring, flux, **kw)
+    plain = fast_field_conductance(ring, flux, calibrate_l_phi=False, **kw)  # the opt-out
     assert np.isnan(plain.info["l_phi_realised_m"]) and "not measured" in plain.info["l_phi_status"]
+    assert np.isnan(plain.info["l_phi_realised_err_m"])

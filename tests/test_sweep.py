@@ -133,3 +133,107 @@ def test_method_choices_and_errors():
     # the engine is used by default and agrees with its own smatrix on this ring
     sw = FieldSweeper(ring.fsyst, field_param="B", params=ring.params(), energy=0.5)
     assert sw.n_leads == 2
+
+
+# --------------------------------------------------------------------------------------------
+# Realised L_phi by default (issue 15.1; docs/probes.md "Realised L_phi") and the explicit
+# field/flux keywords (issue 15.9; docs/conventions.md "Field or flux").
+
+
+def _gaas(mode: str, seed: int = 5):
+    dev = RingDevice(
+        Material.preset("GaAs", temperature=0.3),
+        RingGeometry.from_mean_radius(0.1e-6, 0.03e-6),
+        field_mode=mode,
+    )
+    return build_ring(dev, seed=seed)
+
+
+L_PHI = 0.25e-6  # pi r/L_phi = 1.26, inside the validated range (VALIDATED_DAMPING)
+
+
+def test_default_sweeps_report_the_realised_l_phi_and_calibrate_once():
+    # Every dephasing result carries the L_phi its probes realise, with an error. The probes
+    # are those of calibrate_ring_probes (checked by recomputing G with them through the
+    # independent FluxTubeSweeper path), and one device is calibrated once per process: the
+    # uniform-field ring reuses its flux-tube twin's calibration, a finite-T sweep reuses the
+    # probes of the T = 0 sweep.
+    from ringkit.transport.lowrank import FluxTubeSweeper
+    from ringkit.transport.probe_calibration import calibrate_ring_probes
+    from ringkit.transport.realised_l_phi import cache_info, clear_calibration_cache
+
+    clear_calibration_cache()
+    tube, uni = _gaas("flux_tube"), _gaas("uniform")
+    flux = np.linspace(0, 1, 12, endpoint=False) * PHI0
+    ds = field_sweep(tube, fluxes=flux, l_phi=L_PHI, n_probes=24)
+    assert cache_info()["setups"] == 1 and cache_info()["calibrations"] == 1
+    for key in ("l_phi_realised_m", "l_phi_realised_err_m"):
+        assert math.isfinite(ds.attrs[key]) and ds.attrs[key] > 0
+    assert ds.attrs["l_phi_realised_m"] == pytest.approx(L_PHI, rel=0.031)  # secant tol 3 %
+    assert ds.attrs["l_phi_realised_err_m"] < 0.5 * L_PHI
+    assert ds.attrs["l_phi_status"].startswith("measured on this device")
+    pr = calibrate_ring_probes(tube, L_PHI, tube.fermi_energy, n_probes=24)  # from the cache
+    assert cache_info()["setups"] == 1 and cache_info()["calibrations"] == 1
+    assert cache_info()["reused"] >= 1
+    ref = FluxTubeSweeper(
+        tube.fsyst, energy=tube.fermi_energy_lattice, params=tube.params(), probes=pr
+    ).conductance(flux)
+    assert np.max(np.abs(ds["G"].values - 2 * np.asarray(ref))) < 1e-10
+    period = PHI0 / uni.device.geometry.area_mean
+    b = np.linspace(0, period, 12, endpoint=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # field-regime hints are not the subject
+        du = field_sweep(uni, fields=b, l_phi=L_PHI, n_probes=24)
+    warm = field_sweep(
+        tube, fluxes=flux[:2], l_phi=L_PHI, n_probes=24, temperature=0.05, thermal_tol=1e-2
+    )
+    assert cache_info()["setups"] == 1 and cache_info()["calibrations"] == 1  # no recalibration
+    for d in (du, warm):
+        assert d.attrs["l_phi_realised_m"] == ds.attrs["l_phi_realised_m"]
+        assert d.attrs["l_phi_realised_err_m"] == ds.attrs["l_phi_realised_err_m"]
+        assert d.attrs["l_phi_status"].startswith("measured on this device")
+    assert warm.attrs["n_energies"] > 1 and warm.attrs["temperature_K"] == 0.05
+
+
+def test_opt_out_says_not_measured_and_coherent_results_say_no_dephasing():
+    ring = _gaas("flux_tube")
+    flux = np.linspace(0, 1, 8, endpoint=False) * PHI0
+    fast = field_sweep(ring, fluxes=flux, l_phi=L_PHI, n_probes=24, calibrate_l_phi=False)
+    assert math.isnan(fast.attrs["l_phi_realised_m"])
+    assert math.isnan(fast.attrs["l_phi_realised_err_m"])
+    assert fast.attrs["l_phi_status"].startswith("not measured (calibrate_l_phi=False)")
+    coherent = field_sweep(ring, fluxes=flux)
+    assert coherent.attrs["l_phi_realised_m"] == math.inf
+    assert coherent.attrs["l_phi_status"] == "no dephasing"
+
+
+def test_out_of_range_l_phi_warns_with_the_range_every_time():
+    from ringkit.transport.probe_calibration import CalibrationRangeWarning
+
+    ring = _gaas("flux_tube")
+    flux = np.linspace(0, 1, 8, endpoint=False) * PHI0
+    for _ in range(2):  # the second call is served from the cache and still warns
+        with pytest.warns(CalibrationRangeWarning, match=r"validated range 0.25 <= pi r/L_phi"):
+            ds = field_sweep(ring, fluxes=flux, l_phi=20e-6, n_probes=24)
+    assert ds.attrs["l_phi_realised_m"] == pytest.approx(20e-6, rel=0.1)
+
+
+def test_field_or_flux_keywords_name_the_mode():
+    tube, uni = _gaas("flux_tube"), _gaas("uniform")
+    flux = np.array([0.0, 0.3]) * PHI0
+    with pytest.raises(ValueError, match=r"fields.*field_mode 'flux_tube'.*fluxes="):
+        field_sweep(tube, fields=[0.0, 0.01])
+    with pytest.raises(ValueError, match=r"fluxes.*field_mode 'uniform'.*fields="):
+        field_sweep(uni, fluxes=flux)
+    with pytest.raises(ValueError, match="exactly one"):
+        field_sweep(tube, flux, fluxes=flux)
+    with pytest.raises(ValueError, match="exactly one"):
+        field_sweep(tube)
+    # the positional form takes the ring's unit and refuses values that cannot be meant so
+    with pytest.raises(ValueError, match=r"flux in Wb in field_mode 'flux_tube'"):
+        field_sweep(tube, [0.0, 0.01])  # tesla given to a flux-tube ring
+    with pytest.raises(ValueError, match=r"field B in T in field_mode 'uniform'"):
+        field_sweep(uni, flux)  # webers given to a uniform-field ring
+    keyword = field_sweep(tube, fluxes=flux)
+    assert np.array_equal(field_sweep(tube, flux)["G"].values, keyword["G"].values)
+    assert "flux" in keyword.coords and keyword["flux"].attrs["units"] == "Wb"

@@ -7,7 +7,10 @@ transmission(ring, *, B=0.0, flux=0.0, energy=None, gate=None) -> float
 conductance(ring, *, B=0.0, flux=0.0, energy=None, gate=None, spin_resolved=False, zeeman=False)
     G in units of e^2/h: spin-degenerate ``G = 2T`` by default; ``G = T_up + T_down`` with
     ``zeeman=True``; the pair ``[G_up, G_down]`` with ``spin_resolved=True``.
-field_sweep(ring, fields, *, energy=None, gate=None, spin_resolved=False, zeeman=False)
+field_sweep(ring, *, fields=B_in_T | fluxes=flux_in_Wb, energy=None, gate=None, temperature=0.0,
+            l_phi=None, calibrate_l_phi=True, ...)
+    ``fields=`` (T) for uniform-field rings, ``fluxes=`` (Wb) for flux-tube rings; the old
+    positional form ``field_sweep(ring, values)`` takes the ring's field unit (checked).
 energy_sweep(ring, energies, *, B=0.0, flux=0.0, gate=None, spin_resolved=False, zeeman=False)
 gate_sweep(ring, potentials, *, B=0.0, flux=0.0, energy=None, spin_resolved=False, zeeman=False)
     Labelled datasets (data variable ``G`` [e^2/h], SI coordinates, full parameter attrs).
@@ -42,6 +45,7 @@ __all__ = [
     "transmission",
     "conductance",
     "field_sweep",
+    "field_values",
     "energy_sweep",
     "gate_sweep",
 ]
@@ -178,10 +182,77 @@ def _sweep(ring, name, values, point, spin_resolved, extra_attrs) -> xr.Dataset:
     return make_dataset(ring, name, values, out, spin_resolved=spin_resolved, attrs=extra_attrs)
 
 
+def field_values(ring: TightBindingRing, values=None, *, fields=None, fluxes=None) -> np.ndarray:
+    """The sweep values of ``ring``'s field parameter, from exactly one of three spellings.
+
+    Parameters
+    ----------
+    ring : TightBindingRing
+    values : array_like, optional
+        Positional form: in the unit of the ring's field mode (T for ``"uniform"``, Wb for
+        ``"flux_tube"``). Values that cannot be meant in that unit (a flux-tube sweep beyond
+        1e-6 Wb, i.e. 2.4e8 flux quanta, or a uniform sweep whose largest nonzero |B| is below
+        1e-9 T) raise :class:`ParameterError`.
+    fields : array_like, optional
+        Magnetic field B in T; only for ``field_mode="uniform"``.
+    fluxes : array_like, optional
+        Flux through the hole in Wb; only for ``field_mode="flux_tube"``.
+
+    Returns
+    -------
+    ndarray
+        1-D array in the unit of the ring's field parameter (``ring.field_param``).
+    """
+    given = [
+        n for n, v in (("values", values), ("fields", fields), ("fluxes", fluxes)) if v is not None
+    ]
+    if len(given) != 1:
+        raise ParameterError(
+            "fields/fluxes",
+            ", ".join(given) or "none",
+            "give exactly one: fields= (T, uniform mode), fluxes= (Wb, flux-tube mode) or the "
+            "values positionally in the ring's field unit",
+        )
+    mode = ring.field_mode
+    if fields is not None and mode != "uniform":
+        raise ParameterError(
+            "fields",
+            "B in T",
+            f"applies to field_mode 'uniform'; this ring is in field_mode '{mode}': "
+            "pass the flux through the hole as fluxes= (Wb)",
+        )
+    if fluxes is not None and mode != "flux_tube":
+        raise ParameterError(
+            "fluxes",
+            "flux in Wb",
+            f"applies to field_mode 'flux_tube'; this ring is in field_mode '{mode}': "
+            "pass the magnetic field as fields= (T)",
+        )
+    name = given[0] if given[0] != "values" else ring.field_param
+    arr = np.asarray(next(v for v in (values, fields, fluxes) if v is not None), dtype=float)
+    if arr.ndim != 1 or arr.size == 0 or not np.all(np.isfinite(arr)):
+        raise ParameterError(name, arr.shape, "must be a non-empty 1D array of finite values")
+    peak = float(np.max(np.abs(arr)))
+    if mode == "flux_tube" and peak > 1e-6:
+        raise ParameterError(
+            name, peak, "is a flux in Wb in field_mode 'flux_tube' (|flux| <= 1e-6 Wb); "
+            "tesla values belong to a uniform-field ring (fields=)", "Wb",
+        )  # fmt: skip
+    if mode == "uniform" and 0 < peak < 1e-9:
+        raise ParameterError(
+            name, peak, "is a field B in T in field_mode 'uniform' (largest |B| >= 1e-9 T "
+            "or all zero); fluxes in Wb belong to a flux-tube ring (fluxes=)", "T",
+        )  # fmt: skip
+    return arr
+
+
 def field_sweep(
     ring: TightBindingRing,
-    fields: Sequence[float] | np.ndarray,
+    values: Sequence[float] | np.ndarray | None = None,
+    /,
     *,
+    fields: Sequence[float] | np.ndarray | None = None,
+    fluxes: Sequence[float] | np.ndarray | None = None,
     energy: float | None = None,
     gate: float | None = None,
     spin_resolved: bool = False,
@@ -192,14 +263,23 @@ def field_sweep(
     method: str = "auto",
     thermal_tol: float = 1e-4,
     thermal_method: str = "adaptive",
+    calibrate_l_phi: bool = True,
 ) -> xr.Dataset:
     """Conductance versus field: coordinate ``B`` [T] (uniform) or ``flux`` [Wb] (flux tube).
 
     Parameters
     ----------
     ring : TightBindingRing
-    fields : array_like
-        In T for a uniform-field device, in Wb (flux through the hole) for a flux-tube device.
+    values : array_like, optional
+        Positional form, in the unit of the ring's field mode: T for a uniform-field device,
+        Wb (flux through the hole) for a flux-tube device (checked by :func:`field_values`).
+        Prefer the explicit keywords.
+    fields : array_like, optional
+        Magnetic field B in T (``field_mode="uniform"`` only; a flux-tube ring raises
+        :class:`ParameterError` naming ``fields``).
+    fluxes : array_like, optional
+        Flux through the hole in Wb (``field_mode="flux_tube"`` only; a uniform-field ring
+        raises :class:`ParameterError` naming ``fluxes``).
     energy : float, optional
         Fermi energy in J above the band bottom (default: the material's).
     gate : float, optional
@@ -213,7 +293,8 @@ def field_sweep(
         ``thermal_error_estimate``, ``thermal_tol`` and ``thermal_method``.
     l_phi : float, optional
         Phase-coherence length in m, realised by ``n_probes`` floating Büttiker probes along
-        both arms (None: fully coherent).
+        both arms (None: fully coherent). The attrs hold the L_phi the probes realise on this
+        device, ``l_phi_realised_m`` ± ``l_phi_realised_err_m``, and ``l_phi_status``.
     n_probes : int
         Number of dephasing probes when ``l_phi`` is given.
     method : {"auto", "fast", "kwant"}
@@ -225,18 +306,18 @@ def field_sweep(
         Absolute error goal of the thermal average in e^2/h (default 1e-4).
     thermal_method : {"adaptive", "grid"}
         Rule of the thermal average ("grid": the dense uniform reference).
+    calibrate_l_phi : bool
+        Default True: calibrate the probe coupling on the device (cached per process; see
+        :func:`ringkit.transport.sweep.fast_field_conductance`). False: analytic coupling,
+        faster, and the attrs say the realised L_phi is "not measured".
 
     Warns once for the largest |B| (see :func:`conductance`).
     """
     ring = _check_ring(ring)
-    fields = np.asarray(fields, dtype=float)
+    fields = field_values(ring, values, fields=fields, fluxes=fluxes)
     e = _energy_or_default(ring, energy)
     uniform = ring.field_mode == "uniform"
     check_choice("method", method, ("auto", "fast", "kwant"))
-    if fields.ndim != 1 or fields.size == 0 or not np.all(np.isfinite(fields)):
-        raise ParameterError(
-            ring.field_param, fields.shape, "must be a non-empty 1D array of finite values"
-        )
     if uniform:
         ring.check_field(float(np.max(np.abs(fields))), stacklevel=2)
     from ringkit.transport.sweep import check_l_phi
@@ -266,6 +347,7 @@ def field_sweep(
             n_probes=n_probes,
             thermal_tol=thermal_tol,
             thermal_method=thermal_method,
+            calibrate_l_phi=calibrate_l_phi,
         )
         info = dict(res.info)
         attrs.update(

@@ -115,7 +115,8 @@ class LPhiCalibrator:
 
     The set-up (probe sites, calibration energies, one factorization per energy, probe-free
     h/e amplitudes) is done once; every :meth:`probes` call only costs dense solves (secant
-    steps). Parameters as in :func:`calibrate_probes`.
+    steps). Parameters as in :func:`calibrate_probes`; ``center`` (position units) as in
+    :func:`ringkit.transport.probes.ring_probe_sites` (rings with more than two leads).
     """
 
     def __init__(
@@ -129,6 +130,7 @@ class LPhiCalibrator:
         n_energies: int = 16,
         n_flux: int = 16,
         seed: int = 0,
+        center: tuple[float, float] | None = None,
     ) -> None:
         from ringkit.transport.lowrank import FluxTubeModel
 
@@ -142,7 +144,7 @@ class LPhiCalibrator:
             _estimate_radius(fsyst) if radius is None else check_positive("radius", radius)
         )
         self.length = path_length(self.radius, 1)
-        self.sites = ring_probe_sites(fsyst, n_probes, across=True)
+        self.sites = ring_probe_sites(fsyst, n_probes, center=center, across=True)
         prop, _ = fsyst.leads[0].modes(self.energy, params=model.params)
         self.velocity = float(np.mean(np.abs(prop.velocities)))
         if energies is None:
@@ -340,46 +342,25 @@ def calibrate_ring_probes(
     gate : float, optional
         Arm-gate potential in J.
     **kwargs
-        Passed to :func:`calibrate_probes` (``n_energies``, ``tol``, ...).
+        ``n_energies``, ``n_flux``, ``energies``, ``seed``, ``tol``, ``max_steps`` as in
+        :func:`calibrate_probes`.
 
     Returns
     -------
     DephasingProbes
         Sites of ``ring.fsyst``; ``info`` lengths in m (``l_phi_realised``,
         ``l_phi_realised_err``, ``path_length``, ``radius``, ``l_phi_requested``).
+        The set-up is cached per process (:mod:`ringkit.transport.realised_l_phi`).
     """
-    import dataclasses
+    from ringkit.transport.realised_l_phi import realised_ring_probes
 
-    from ringkit.tightbinding import build_ring
-    from ringkit.transport.lowrank import FluxTubeModel
-
-    a = ring.lattice_spacing
-    twin = ring
-    if ring.field_mode != "flux_tube":
-        twin = build_ring(dataclasses.replace(ring.device, field_mode="flux_tube"), seed=ring.seed)
-    model = FluxTubeModel(twin.fsyst, params=twin.params(gate=gate))
-    l_lat = l_phi if math.isinf(l_phi) else check_positive("l_phi", l_phi, "m") / a
-    pr = calibrate_probes(
-        model,
-        l_lat,
+    if not math.isinf(l_phi):
+        check_positive("l_phi", l_phi, "m")
+    return realised_ring_probes(
+        ring,
+        float(l_phi),
         ring.to_lattice_energy(energy),
-        n_probes=n_probes,
-        radius=ring.device.geometry.mean_radius / a,
+        ring.params(gate=gate),
+        int(n_probes),
         **kwargs,
     )
-    sites = pr.sites
-    if twin is not ring:
-        index = {tuple(t): i for i, t in enumerate(np.asarray(ring.tags).tolist())}
-        try:
-            sites = np.array([index[tuple(twin.tags[s].tolist())] for s in pr.sites])
-        except KeyError:
-            raise ParameterError(
-                "ring", "uniform-field ring", "its flux-tube twin has other sites"
-            ) from None
-    info = dict(pr.info)
-    for key in ("l_phi_requested", "l_phi_realised", "l_phi_realised_err", "path_length", "radius"):
-        if key in info and info[key] is not None:
-            info[key] = float(info[key]) * a
-    info["lattice_spacing"] = a
-    info["calibrated_on"] = "flux-tube twin" if twin is not ring else "this ring"
-    return DephasingProbes(sites, pr.eta, float(l_phi), info)

@@ -20,8 +20,10 @@ Finite temperature uses the one thermal policy (:mod:`ringkit.thermal_policy` th
 error of G at every field point, and of the h/e and h/2e band projections of G over the field
 axis (uniformly spaced sweeps), is below ``thermal_tol`` (e^2/h). The number of energies, the
 error estimate, the tolerance and the method are returned in ``info`` (dataset attrs).
-Dephasing adds floating Büttiker probes along both arms
-(:func:`ringkit.transport.probes.attach_probes`) coupled for the requested ``l_phi``.
+Dephasing adds floating Büttiker probes along both arms whose coupling is calibrated on the
+device so that they realise the requested ``l_phi`` (:func:`ring_probes`,
+:mod:`ringkit.transport.realised_l_phi`); ``info`` reports the realised L_phi with its error
+(``calibrate_l_phi=False``: analytic coupling, status "not measured").
 """
 
 from __future__ import annotations
@@ -36,6 +38,7 @@ from ringkit.thermal_policy import DEFAULT_TOL, thermal_window
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes
+from ringkit.transport.realised_l_phi import STATUS_NOT_MEASURED, realised_l_phi_info
 from ringkit.transport.thermal import thermal_conductance
 from ringkit.units import HBAR, K_B, PHI0
 
@@ -43,6 +46,7 @@ __all__ = [
     "FastSweepResult",
     "check_l_phi",
     "fast_field_conductance",
+    "realised_l_phi_info",
     "ring_probes",
     "ring_correlation_energy",
     "transmission_bound",
@@ -101,16 +105,34 @@ def check_l_phi(l_phi, lattice_spacing: float) -> float | None:
     return v
 
 
-def ring_probes(ring, l_phi, energy_t: float, params: dict, n_probes: int, *, center=None):
+def ring_probes(
+    ring,
+    l_phi,
+    energy_t: float,
+    params: dict,
+    n_probes: int,
+    *,
+    center=None,
+    calibrate: bool = True,
+):
     """Dephasing probes of ``ring`` for ``l_phi`` (m) at ``energy_t`` (units of t), or None.
 
-    ``l_phi`` is validated by :func:`check_l_phi` (None or inf: no probes). ``center`` as in
-    :func:`ringkit.transport.probes.attach_probes`.
+    ``l_phi`` is validated by :func:`check_l_phi` (None or inf: no probes). With ``calibrate``
+    (default) the coupling is calibrated on the device so that the probes realise ``l_phi``,
+    and ``info`` carries the realised value and its error
+    (:func:`ringkit.transport.realised_l_phi.realised_ring_probes`, cached per process);
+    ``calibrate=False`` gives the analytic estimate
+    (:func:`ringkit.transport.probes.attach_probes`), whose realised L_phi is not measured.
+    ``center`` (lattice units) as in :func:`ringkit.transport.probes.ring_probe_sites`.
     """
     l_phi = check_l_phi(l_phi, ring.lattice_spacing)
     if l_phi is None:
         return None
-    return attach_probes(
+    if calibrate:
+        from ringkit.transport.realised_l_phi import realised_ring_probes
+
+        return realised_ring_probes(ring, l_phi, energy_t, params, int(n_probes), center=center)
+    probes = attach_probes(
         ring.fsyst,
         l_phi=l_phi,
         energy=energy_t,
@@ -120,6 +142,8 @@ def ring_probes(ring, l_phi, energy_t: float, params: dict, n_probes: int, *, ce
         zero_field={ring.field_param: 0.0},
         center=center,
     )
+    probes.info["l_phi_status"] = STATUS_NOT_MEASURED
+    return probes
 
 
 def fast_field_conductance(
@@ -133,7 +157,7 @@ def fast_field_conductance(
     n_probes: int = 100,
     thermal_tol: float = DEFAULT_TOL,
     thermal_method: str = "adaptive",
-    calibrate_l_phi: bool = False,
+    calibrate_l_phi: bool = True,
 ) -> FastSweepResult:
     """Two-terminal conductance over a field sweep with the fast solvers.
 
@@ -158,11 +182,11 @@ def fast_field_conductance(
     thermal_method : {"adaptive", "grid"}
         Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
     calibrate_l_phi : bool
-        Measure and adjust the L_phi the probes realise on this device
-        (:func:`ringkit.transport.probe_calibration.calibrate_ring_probes`, about the cost of
-        one 16-energy dephasing sweep). ``info`` then holds ``l_phi_realised_m`` and
-        ``l_phi_realised_err_m``; otherwise they are NaN and ``l_phi_status`` says that the
-        coupling is the analytic estimate (docs/probes.md).
+        Default True: the probe coupling is calibrated on this device so that the probes
+        realise ``l_phi`` (:func:`ringkit.transport.realised_l_phi.realised_ring_probes`; set-up
+        cached per process and device, docs/probes.md "Realised L_phi"), and ``info`` holds
+        ``l_phi_realised_m`` and ``l_phi_realised_err_m`` (m). False (faster): the analytic
+        coupling; both are NaN and ``l_phi_status`` says "not measured".
 
     Returns
     -------
@@ -174,12 +198,7 @@ def fast_field_conductance(
     name = ring.field_param
     params = ring.params(gate=gate)
     l_phi = check_l_phi(l_phi, ring.lattice_spacing)
-    if l_phi is not None and calibrate_l_phi:
-        from ringkit.transport.probe_calibration import calibrate_ring_probes
-
-        probes = calibrate_ring_probes(ring, l_phi, energy, gate=gate, n_probes=int(n_probes))
-    else:
-        probes = ring_probes(ring, l_phi, e_t, params, n_probes)
+    probes = ring_probes(ring, l_phi, e_t, params, n_probes, calibrate=calibrate_l_phi)
     if name == "flux":
         sweeper = FluxTubeSweeper(ring.fsyst, energy=e_t, params=params, probes=probes)
         solver = "low-rank flux-tube update (ringkit.transport.lowrank)"
@@ -224,29 +243,9 @@ def fast_field_conductance(
         "n_probes": 0 if probes is None else len(np.atleast_1d(probes.sites)),
         "probe_eta": 0.0 if probes is None else float(np.mean(probes.eta)),
         "n_fallbacks": fallbacks,
-        **_realised_l_phi_info(probes),
+        **realised_l_phi_info(probes),
     }
     return FastSweepResult(2.0 * g_spin, info)
-
-
-def _realised_l_phi_info(probes) -> dict:
-    """The L_phi the probes realise (m, NaN if not measured) and the path-length convention."""
-    from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
-
-    if probes is None:
-        real, err, status = math.inf, 0.0, "no dephasing"
-    elif probes.info.get("l_phi_realised") is None:
-        real, err = math.nan, math.nan
-        status = str(probes.info.get("l_phi_status", "analytic estimate, not measured"))
-    else:
-        real, err = float(probes.info["l_phi_realised"]), float(probes.info["l_phi_realised_err"])
-        status = "measured on this device (h/e damping, docs/probes.md)"
-    return {
-        "l_phi_realised_m": real,
-        "l_phi_realised_err_m": err,
-        "l_phi_status": status,
-        L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,
-    }
 
 
 def transmission_bound(ring, e_t: float, temperature: float, tol: float, params) -> float:
