@@ -50,7 +50,7 @@ from ringkit.tightbinding.builder import TightBindingRing
 from ringkit.transport.dataset import COORD_META, ring_attrs
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
-from ringkit.transport.sweep import ring_probes, transmission_bound
+from ringkit.transport.sweep import realised_l_phi_info, ring_probes, transmission_bound
 from ringkit.units import E2H, K_B
 
 __all__ = [
@@ -124,6 +124,7 @@ def conductance_matrices(
     n_probes: int = 100,
     thermal_tol: float = DEFAULT_TOL,
     thermal_method: str = "adaptive",
+    calibrate_l_phi: bool = True,
 ) -> tuple[np.ndarray, dict]:
     """Conductance matrices between the real leads over a field sweep.
 
@@ -140,13 +141,17 @@ def conductance_matrices(
     temperature : float
         K; 0 gives one energy.
     l_phi : float, optional
-        Phase-coherence length in m (floating dephasing probes along the arms).
+        Phase-coherence length in m (floating dephasing probes along the arms, coupling
+        calibrated on the device; ``info`` holds the realised ``l_phi_realised_m`` ±
+        ``l_phi_realised_err_m`` and ``l_phi_status``, docs/probes.md "Realised L_phi").
     n_probes : int
         Number of probes when ``l_phi`` is finite.
     thermal_tol : float
         Absolute error goal of every thermally averaged element in e^2/h (default 1e-4).
     thermal_method : {"adaptive", "grid"}
         Rule of :func:`ringkit.thermal_policy.energy_average` ("grid": dense reference).
+    calibrate_l_phi : bool
+        False: analytic probe coupling (faster; the realised L_phi is "not measured").
 
     Returns
     -------
@@ -170,7 +175,9 @@ def conductance_matrices(
     # two leads: the default centre (as field_sweep); more leads: the ring's centre, since
     # the interfaces of leads 0 and 1 may sit at any height
     center = None if ring.n_leads == 2 else (0.0, 0.0)
-    probes = ring_probes(ring, l_phi, e_t, params, n_probes, center=center)
+    probes = ring_probes(
+        ring, l_phi, e_t, params, n_probes, center=center, calibrate=calibrate_l_phi
+    )
     sweeper = _sweeper(ring, e_t, params, probes)
     n_leads = ring.n_leads
     shape = (values.size, n_leads, n_leads)
@@ -201,6 +208,7 @@ def conductance_matrices(
         "n_probes": 0 if probes is None else int(np.size(probes.sites)),
         "probe_eta": 0.0 if probes is None else float(np.mean(probes.eta)),
         "energy_J": e_j,
+        **realised_l_phi_info(probes),  # the L_phi the probes realise (docs/probes.md)
     }
     return 2.0 * total, info
 
