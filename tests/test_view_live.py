@@ -34,9 +34,9 @@ from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes, ring_probe_sites
 from ringkit.view.panels import DeviceExplorer
 from ringkit.view.panels.explorer import ExplorerParams
-from ringkit.view.panels.explorer_full import thermal_grid
 from ringkit.view.panels.explorer_live import (
     LIVE_MAX_ENERGIES,
+    LIVE_TOL,
     LiveLattice,
     live_device,
     live_flux_grid,
@@ -169,7 +169,8 @@ def test_live_with_probes_and_temperature_equals_engine():
     assert abs(info["probe_fraction"] - ldos[live.probe_sites].sum() / ldos.sum()) < 1e-12
     _, g = _live_line(ex)
     # T = 0: the engine's field_sweep with the same L_phi and probe count
-    ds = field_sweep(ring, live.flux, energy=ring.fermi_energy, l_phi=1.0e-6, n_probes=8)
+    ds = field_sweep(ring, live.flux, energy=ring.fermi_energy, l_phi=1.0e-6, n_probes=8,
+                     calibrate_l_phi=False)  # fmt: skip
     np.testing.assert_allclose(g, ds["G"].values, rtol=0, atol=TOL)
     # independent reference at two fluxes: greens_function + floating-probe Kron reduction
     ref = _reference_fsyst(ex)
@@ -182,20 +183,24 @@ def test_live_with_probes_and_temperature_equals_engine():
     ex.controls["l_phi"].value = 0.5  # µm
     l_phi = ex.params.l_phi
     assert l_phi == pytest.approx(0.5e-6, rel=0.02)
-    ds = field_sweep(ring, ex.live.flux, energy=ring.fermi_energy, l_phi=l_phi, n_probes=8)
+    ds = field_sweep(ring, ex.live.flux, energy=ring.fermi_energy, l_phi=l_phi, n_probes=8,
+                     calibrate_l_phi=False)  # fmt: skip
     np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
-    # finite temperature: the explorer's thermal grid, one FluxTubeSweeper per energy
+    # finite temperature: the thermal policy at the live tolerance (docs/panels.md, "Live
+    # lattice view"), here re-done with fresh engine sweepers at the live energies
     ex.controls["temperature"].value = 2.0
     live = ex.live
-    energies, weights, _ = thermal_grid(ring, 2.0, LIVE_MAX_ENERGIES)
-    assert 1 < live.energies.size <= LIVE_MAX_ENERGIES
-    np.testing.assert_allclose(live.energies, energies, rtol=1e-15)
+    assert 1 < live.n_energies <= LIVE_MAX_ENERGIES and live.thermal_tol == LIVE_TOL
+    assert live.thermal_converged and 0 < live.thermal_error <= LIVE_TOL
+    np.testing.assert_allclose(live.weights.sum(), 1.0, rtol=1e-12)
     probes = attach_probes(
         ring.fsyst, l_phi=l_phi, energy=ring.fermi_energy_lattice, n_probes=8,
         lattice_spacing=ring.lattice_spacing, params=ring.params(flux=0.0),
     )  # fmt: skip
     expect = np.zeros(live.flux.size)
-    for e_j, w in zip(energies, weights, strict=True):
+    for e_j, w in zip(live.energies, live.weights, strict=True):
+        if w == 0.0:  # energy of a superseded coarse rule
+            continue
         sw = FluxTubeSweeper(
             ring.fsyst, energy=ring.to_lattice_energy(e_j), params=ring.params(flux=0.0),
             probes=probes,
@@ -203,6 +208,52 @@ def test_live_with_probes_and_temperature_equals_engine():
         expect += w * sw.conductance(live.flux)
     np.testing.assert_allclose(_live_line(ex)[1], 2 * expect, rtol=0, atol=TOL)
     assert "lattice (live): mean G" in ex.summary.value
+    # the error estimate and the number of energies are shown (numbers table and banner)
+    table = ex.summary.value
+    assert f"{live.n_energies} energies, estimated error {live.thermal_error:.2g} e²/h" in table
+    assert f"goal {LIVE_TOL:g}, converged" in table
+    assert f"{live.n_energies} energies, thermal error ≤ {live.thermal_error:.1g}" in (
+        ex.banner_text()
+    )
+    assert "requested 0.5 µm; realised: not measured" in table
+
+
+def test_live_thermal_equals_field_sweep_at_same_tolerance():
+    # the live thermal average is the policy call of field_sweep (same bound, band functionals
+    # and per-spin tol/2): with the same goal and budget both choose the same energies
+    live_view = LiveLattice(tol=3e-3, max_energies=2000)
+    ex = _explorer(live=live_view, radius=70e-9, width=20e-9, temperature=1.5, l_phi=None,
+                   gate_potential=0.4 * MEV)  # fmt: skip
+    assert live_view.ring.n_sites < 1000  # ~150 energies twice: keep the lattice small
+    live = ex.live
+    ring = live_view.ring
+    ds = field_sweep(ring, live.flux, energy=ring.fermi_energy, temperature=1.5,
+                     gate=0.4 * MEV, thermal_tol=3e-3)  # fmt: skip
+    assert ds.attrs["n_energies"] == live.n_energies > 1
+    assert live.thermal_error == pytest.approx(ds.attrs["thermal_error_estimate"], rel=1e-6)
+    assert live.thermal_converged and live.thermal_error <= 3e-3
+    np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
+
+
+def test_superseded_update_is_cancelled_and_its_energies_kept():
+    from ringkit.view.panels.explorer_live import LiveCancelled
+
+    view = LiveLattice()
+    params = ExplorerParams(**SMALL, temperature=1.0, l_phi=None)
+    polls = []
+
+    def cancelled() -> bool:  # newer settings arrive after three energies
+        polls.append(1)
+        return len(polls) > 4
+
+    with pytest.raises(LiveCancelled):
+        view.compute(params, cancelled=cancelled)
+    done = view.factorizations
+    assert 0 < view.builds and len(view._rows) == 3  # finished energies stay cached
+    full = view.compute(params)
+    assert full.factorizations == full.n_energies - 3 and view.factorizations > done
+    fresh = LiveLattice().compute(params)
+    np.testing.assert_allclose(full.conductance, fresh.conductance, rtol=0, atol=TOL)
 
 
 # --------------------------------------------------------------------------- caching
@@ -211,21 +262,24 @@ def test_cache_no_rebuild_for_gate_temperature_l_phi_window():
     view = ex.live_view
     builds, ring = view.builds, view.ring
     c = ex.controls
-    for name, value in (("gate", 1.5), ("temperature", 0.05), ("l_phi", 1.0),
-                        ("field", (-40.0, 40.0)), ("gate", -0.5)):  # fmt: skip
+    for name, value in (("gate", 1.5), ("l_phi", 1.0), ("field", (-40.0, 40.0)),
+                        ("gate", -0.5), ("temperature", 0.05)):  # fmt: skip
         c[name].value = value
         assert ex.live is not None and not ex.live.rebuilt, name
         assert view.builds == builds and view.ring.fsyst is ring.fsyst, name
-    # a field-window change needs no factorization; a temperature change keeps the lattice and
-    # factorizes at most once per energy of the thermal policy's grid
+    # a temperature change keeps the lattice and factorizes at most once per energy of the
+    # thermal policy; a new field window then needs no factorization (G per energy is kept
+    # over the whole h/e period)
+    assert ex.live.factorizations <= ex.live.n_energies
     c["field"].value = (-20.0, 60.0)
-    assert ex.live.factorizations == 0
-    c["temperature"].value = 0.02
-    assert not ex.live.rebuilt and ex.live.factorizations <= ex.live.energies.size
-    # the reused lattice is exact for the new settings: compare with a fresh build
+    assert ex.live.factorizations == 0 and ex.live.n_energies > 1
+    # the reused lattice is exact for the new settings: compare with a fresh build (T = 0)
+    c["temperature"].value = 0.0
+    assert not ex.live.rebuilt
     fresh = build_ring(live_device(ex.params), seed=0)
     ds = field_sweep(fresh, ex.live.flux, energy=fresh.fermi_energy, gate=-0.5 * MEV,
-                     l_phi=ex.params.l_phi, n_probes=view.n_probes)  # fmt: skip
+                     l_phi=ex.params.l_phi, n_probes=view.n_probes,
+                     calibrate_l_phi=False)  # fmt: skip
     np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
     # geometry and disorder seed rebuild
     c["radius"].value = 130.0

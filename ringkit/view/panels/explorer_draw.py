@@ -10,6 +10,7 @@ computing, or off and why. Only the artists' data move when the layout is unchan
 from __future__ import annotations
 
 import html
+import math
 from typing import Any
 
 import numpy as np
@@ -92,7 +93,10 @@ class ExplorerDrawing:
             parts.append(f"{PREVIEW} model (1 mode, instant)")
         live = self.live
         if live is not None:
-            parts.append(f"exact lattice, {self._modes_text()} per arm, {live.n_sites:,} sites")
+            parts.append(
+                f"exact lattice, {self._modes_text()} per arm, {live.n_sites:,} sites"
+                + _thermal_text(live)
+            )
         elif self.live_lattice.value and self.live_pending:
             old = " (dashed: previous settings)" if self._live_line() is not None else ""
             parts.append(f"exact lattice ({self._modes_text()} per arm): computing…{old}")
@@ -304,6 +308,9 @@ class ExplorerDrawing:
                     f"factorization(s), {live.n_solved} flux values per energy)",
                 )
             )
+            rows.append(("lattice (live): thermal average", _thermal_row(live)))
+            if live.n_probes:
+                rows.append(("lattice (live): L_phi", _l_phi_row(live)))
             rows.append(("lattice (live): model", "; ".join(live.notes)))
         elif self.live_lattice.value and self.live_pending:
             rows.append(("lattice (live)", "computing…"))
@@ -317,6 +324,35 @@ class ExplorerDrawing:
             rows.append((f"tight-binding: h/e rms{tag}", _fmt(self.full.amplitude_he, "e²/h")))
         derived = [(q.label, q.text) for q in self.derived]
         self.summary.value = _table(derived, "ringkit-derived") + _table(rows, "ringkit-numbers")
+
+
+def _thermal_text(live) -> str:
+    """Banner part for the live thermal average ("" at T = 0)."""
+    if live.thermal_tol == 0.0:
+        return ""
+    state = "" if live.thermal_converged else ", not converged"
+    return f", {live.n_energies} energies, thermal error ≤ {live.thermal_error:.1g} e²/h{state}"
+
+
+def _thermal_row(live) -> str:
+    """Numbers-table entry: energies, error estimate and goal of the live thermal average."""
+    if live.thermal_tol == 0.0:
+        return "T = 0: single energy (exact)"
+    state = "converged" if live.thermal_converged else "NOT converged (energy budget)"
+    return (
+        f"{live.n_energies} energies, estimated error {live.thermal_error:.2g} e²/h "
+        f"(goal {live.thermal_tol:g}, {state}; the full computation uses 1e-4)"
+    )
+
+
+def _l_phi_row(live) -> str:
+    """Requested and realised L_phi of the live view's dephasing probes."""
+    asked = f"requested {live.l_phi * 1e6:.3g} µm"
+    if math.isfinite(live.l_phi_realised):
+        err = live.l_phi_realised_err
+        pm = f" ± {err * 1e6:.2g}" if math.isfinite(err) else ""
+        return f"{asked}; realised {live.l_phi_realised * 1e6:.3g}{pm} µm ({live.l_phi_status})"
+    return f"{asked}; realised: not measured ({live.l_phi_status})"
 
 
 def _table(rows: list[tuple[str, str]], cls: str) -> str:

@@ -51,9 +51,10 @@ from __future__ import annotations
 import contextlib
 import math
 import time
+import warnings
 from collections import OrderedDict
 from dataclasses import dataclass, replace
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 
@@ -65,6 +66,8 @@ from ringkit.view.panels.explorer import N_PROBES, ExplorerParams, _band_rms
 __all__ = [
     "LIVE_MAX_SITES",
     "LIVE_MAX_ENERGIES",
+    "LIVE_TOL",
+    "LiveCancelled",
     "LiveLattice",
     "LiveResult",
     "live_device",
@@ -77,13 +80,46 @@ LIVE_MAX_SITES = 40_000
 """Largest site estimate for which the live view computes (the explorer's default 0.5 µm
 ring has ~24 000 sites; timings: benchmarks/bench_live_preview.py)."""
 
-LIVE_MAX_ENERGIES = 3
-"""Energies of the thermal average in the live view (one factorization each)."""
+LIVE_TOL = 1e-2
+"""Error goal (e^2/h) of the live view's thermal average (the library default is 1e-4; the
+full computation uses it). The estimate reached is shown with every update."""
+
+LIVE_MAX_ENERGIES = 31
+"""Budget of energies (one factorization each) of one live thermal average: the smallest
+budget :func:`ringkit.thermal_policy.energy_average` accepts. When the policy needs more, the
+update shows the error reached and says it is not converged."""
 
 _MAX_MODELS = 6  # probe-free base models and models with probes
-_MAX_SWEEPERS = 12
+_MAX_SWEEPERS = 4  # one sparse factorization each (~10 MB at 24k sites)
+_MAX_ROWS = 4096  # G at the flux residues per (model, energy): a few hundred bytes each
 _MAX_PROBE_SETS = 8
 _BLAS: list = []  # lazily created threadpoolctl controller (empty: not looked up yet)
+
+
+class LiveCancelled(Exception):
+    """A live update stopped because newer settings superseded it."""
+
+
+class _Thermal(NamedTuple):
+    value: np.ndarray  # spinless G over the plotted grid
+    energies: np.ndarray  # lattice units
+    weights: np.ndarray
+    error: float  # e^2/h (spin included)
+    converged: bool
+    note: str
+
+
+def _realised(probes) -> tuple[float, float, str]:
+    """Realised L_phi (m), its error and the status carried by the probes' ``info``."""
+    if probes is None:
+        return math.inf, 0.0, "no dephasing"
+    info = probes.info
+    real = info.get("l_phi_realised")
+    if real is None or not np.isfinite(real):
+        status = str(info.get("l_phi_status", "analytic estimate, not measured on this device"))
+        return math.nan, math.nan, status
+    status = str(info.get("l_phi_status", "measured on this device"))
+    return float(real), float(info.get("l_phi_realised_err", math.nan)), status
 
 
 def single_thread_blas() -> contextlib.AbstractContextManager:
@@ -125,7 +161,14 @@ class LiveResult:
     mean_conductance, amplitude_he, amplitude_h2e : float
         Mean G and rms of the h/e and h/2e band contents in e^2/h.
     energies, weights : ndarray
-        Energies (J) and weights of the thermal average.
+        Energies (J) and weights of the thermal average (:mod:`ringkit.thermal_policy`).
+    thermal_error : float
+        Estimated error of the thermal average in e^2/h (largest over the plotted points and
+        the h/e, h/2e band projections; 0 at T = 0).
+    thermal_tol : float
+        Its goal in e^2/h (0 at T = 0).
+    thermal_converged : bool
+        Whether the estimate is below ``thermal_tol`` within the energy budget.
     n_sites : int
     lattice_spacing : float
         m.
@@ -135,6 +178,12 @@ class LiveResult:
         Their site indices in the lattice's kwant order (empty when coherent).
     probe_eta : float
         Probe coupling in units of t (0 without probes).
+    l_phi : float or None
+        Requested L_phi in m.
+    l_phi_realised, l_phi_realised_err : float
+        L_phi the probes realise on this device and its error in m (NaN: not measured, the
+        coupling is the analytic estimate; inf: coherent).
+    l_phi_status : str
     points_per_period : int
     n_solved : int
         Distinct flux values solved per energy (residues modulo h/e).
@@ -157,17 +206,29 @@ class LiveResult:
     amplitude_h2e: float
     energies: np.ndarray
     weights: np.ndarray
+    thermal_error: float
+    thermal_tol: float
+    thermal_converged: bool
     n_sites: int
     lattice_spacing: float
     n_probes: int
     probe_sites: np.ndarray
     probe_eta: float
+    l_phi: float | None
+    l_phi_realised: float
+    l_phi_realised_err: float
+    l_phi_status: str
     points_per_period: int
     n_solved: int
     rebuilt: bool
     factorizations: int
     timings: dict
     notes: tuple[str, ...] = ()
+
+    @property
+    def n_energies(self) -> int:
+        """Energies of the thermal average (1 at T = 0)."""
+        return int(self.energies.size)
 
 
 def live_device(params: ExplorerParams):
@@ -276,7 +337,11 @@ class LiveLattice:
     max_sites : int
         Settings whose site estimate exceeds this are refused (:meth:`unavailable`).
     max_energies : int
-        Energies of the thermal average (the full computation uses 9).
+        Budget of energies of one thermal average (:func:`ringkit.thermal_policy.energy_average`
+        needs at least 31).
+    tol : float
+        Error goal of the thermal average in e^2/h (default :data:`LIVE_TOL`; the library
+        default 1e-4 is what the full computation uses), in [1e-10, 0.1].
     n_probes : int
         Dephasing probes when L_phi is finite (as the full computation).
     points_per_period, min_points : int
@@ -297,11 +362,14 @@ class LiveLattice:
         *,
         max_sites: int = LIVE_MAX_SITES,
         max_energies: int = LIVE_MAX_ENERGIES,
+        tol: float = LIVE_TOL,
         n_probes: int = N_PROBES,
         points_per_period: int = 64,
         min_points: int = 161,
     ) -> None:
-        for name, value, low in (("max_sites", max_sites, 1), ("max_energies", max_energies, 1),
+        from ringkit.thermal_policy import check_tol
+
+        for name, value, low in (("max_sites", max_sites, 1), ("max_energies", max_energies, 31),
                                  ("n_probes", n_probes, 1),
                                  ("points_per_period", points_per_period, 4),
                                  ("min_points", min_points, 2)):  # fmt: skip
@@ -309,6 +377,8 @@ class LiveLattice:
                 raise ParameterError(name, value, f"must be an integer >= {low}")
         self.max_sites = int(max_sites)
         self.max_energies = int(max_energies)
+        self.tol = check_tol(tol)
+        self._fallbacks = 0
         self.n_probes = int(n_probes)
         self.points_per_period = int(points_per_period)
         self.min_points = int(min_points)
@@ -319,6 +389,7 @@ class LiveLattice:
         self._probes = _Lru(_MAX_PROBE_SETS)
         self._models = _Lru(_MAX_MODELS)
         self._sweepers = _Lru(_MAX_SWEEPERS)
+        self._rows: OrderedDict = OrderedDict()
 
     # ------------------------------------------------------------------ availability
     def unavailable(self, params: ExplorerParams) -> str | None:
@@ -354,6 +425,7 @@ class LiveLattice:
         self._probes.clear()
         self._models.clear()
         self._sweepers.clear()
+        self._rows.clear()
         self.builds += 1
         return ring, True
 
@@ -428,25 +500,53 @@ class LiveLattice:
         timings["factorize"] += time.perf_counter() - t1
         return sweeper, made
 
+    def _values(self, sweeper_of, mkey, e_t: float, m: int, residues: np.ndarray, probes,
+                timings: dict) -> np.ndarray:  # fmt: skip
+        """Spinless G at the flux residues ``residues (h/e)/m`` and lattice energy ``e_t``
+        (cached per model, energy and grid: a field-window change re-uses them)."""
+        from ringkit.view.panels.explorer_full import _two_terminal
+
+        key = (mkey, e_t, m, residues.tobytes())
+        if key in self._rows:
+            self._rows.move_to_end(key)
+            return self._rows[key]
+        sweeper, _ = sweeper_of(e_t)
+        before = sweeper.n_fallback
+        t0 = time.perf_counter()
+        row = _two_terminal(sweeper, residues * (PHI0 / m), probes)
+        timings["sweep"] += time.perf_counter() - t0
+        self._fallbacks += sweeper.n_fallback - before
+        self._rows[key] = row
+        while len(self._rows) > _MAX_ROWS:
+            self._rows.popitem(last=False)
+        return row
+
     # ------------------------------------------------------------------ computation
-    def compute(self, params: ExplorerParams) -> LiveResult:
+    def compute(self, params: ExplorerParams, *, cancelled=None) -> LiveResult:
         """Exact lattice G(B) for ``params`` (flux-tube mode), reusing cached pieces.
+
+        Parameters
+        ----------
+        params : ExplorerParams
+        cancelled : callable, optional
+            ``cancelled() -> bool``, polled before every energy; when it returns True the
+            update stops with :class:`LiveCancelled` (finished energies stay cached).
 
         Raises
         ------
         ParameterError
             Invalid settings, uniform-field mode or a lattice above ``max_sites``.
+        LiveCancelled
+            ``cancelled()`` became true.
         """
         t_start = time.perf_counter()
         why = self.unavailable(params)
         if why is not None:
             raise ParameterError("live lattice", params.field_mode, why)
         with single_thread_blas():
-            return self._compute(params, t_start)
+            return self._compute(params, t_start, cancelled or (lambda: False))
 
-    def _compute(self, params: ExplorerParams, t_start: float) -> LiveResult:
-        from ringkit.view.panels.explorer_full import _two_terminal, thermal_grid
-
+    def _compute(self, params: ExplorerParams, t_start: float, cancelled) -> LiveResult:
         timings = dict.fromkeys(("build", "probes", "model", "factorize", "sweep"), 0.0)
         t0 = time.perf_counter()
         ring, rebuilt = self._lattice(params)
@@ -459,36 +559,54 @@ class LiveLattice:
         )  # fmt: skip
         flux = k * (PHI0 / m)
         residues, where = np.unique(k % m, return_inverse=True)
-        solve_flux = residues * (PHI0 / m)
-        energies, weights, note = thermal_grid(ring, params.temperature, self.max_energies)
-        notes = [note]
-
+        where = where.reshape(-1)
+        if m <= 2 * residues.size:
+            # solve the whole period (at most twice the work): any later field window with
+            # the same grid is then served from the cache without a factorization
+            residues, where = np.arange(m), k % m
+        if cancelled():
+            raise LiveCancelled("superseded before the model")
         base = self._base_model(ring, timings)
         t0 = time.perf_counter()
         probes = self._dephasing(ring, params, base)
         timings["probes"] = time.perf_counter() - t0
+        pkey = None
+        if probes is not None:
+            pkey = (probes.sites.tobytes(), np.asarray(probes.eta, dtype=float).tobytes())
+        mkey = (tuple(sorted(ring.params(flux=0.0).items())), pkey)
+        made = [0]
+        self._fallbacks = 0
+
+        def sweeper_of(e_t: float):
+            sweeper, new = self._sweeper(ring, base, probes, e_t, timings)
+            made[0] += new
+            return sweeper, new
+
+        def rows(energies_t) -> np.ndarray:
+            out = []
+            for e_t in np.atleast_1d(energies_t):
+                if cancelled():
+                    raise LiveCancelled("superseded while computing energies")
+                g = self._values(sweeper_of, mkey, float(e_t), m, residues, probes, timings)
+                out.append(g[where])
+            return np.array(out)
+
+        thermal = self._thermal(ring, params.temperature, flux, rows)
+        self.factorizations += made[0]
+        notes = [thermal.note]
         if probes is not None:
             notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
-        total = np.zeros(residues.size)
-        n_fact = 0
-        fallbacks = 0
-        for e_j, w in zip(energies, weights, strict=True):
-            sweeper, made = self._sweeper(ring, base, probes, ring.to_lattice_energy(e_j), timings)
-            n_fact += made
-            before = sweeper.n_fallback
-            t0 = time.perf_counter()
-            total += w * _two_terminal(sweeper, solve_flux, probes)
-            timings["sweep"] += time.perf_counter() - t0
-            fallbacks += sweeper.n_fallback - before
-        if fallbacks:
-            notes.append(f"{fallbacks} flux point(s) solved directly (ill-conditioned update)")
-        self.factorizations += n_fact
-        g = 2.0 * total[where.reshape(-1)]
+        if self._fallbacks:
+            notes.append(
+                f"{self._fallbacks} flux point(s) solved directly (ill-conditioned update)"
+            )
+        g = 2.0 * thermal.value
         field = flux / area
         spec = oscillation_spectrum(field, g, window="hann", pad=4)
         geo = ring.device.geometry
         bands = ab_bands(math.sqrt(geo.area_inner / math.pi), math.sqrt(geo.area_outer / math.pi))
         timings["total"] = time.perf_counter() - t_start
+        real, real_err, status = _realised(probes)
         return LiveResult(
             field=field,
             flux=flux,
@@ -498,17 +616,53 @@ class LiveLattice:
             mean_conductance=float(np.mean(g)),
             amplitude_he=_band_rms(spec, bands[1]),
             amplitude_h2e=_band_rms(spec, bands[2]),
-            energies=np.asarray(energies, dtype=float),
-            weights=np.asarray(weights, dtype=float),
+            energies=thermal.energies * ring.hopping,
+            weights=thermal.weights,
+            thermal_error=thermal.error,
+            thermal_tol=self.tol if params.temperature > 0 else 0.0,
+            thermal_converged=thermal.converged,
             n_sites=ring.n_sites,
             lattice_spacing=ring.lattice_spacing,
             n_probes=0 if probes is None else probes.n,
             probe_sites=np.zeros(0, dtype=np.int64) if probes is None else probes.sites.copy(),
             probe_eta=0.0 if probes is None else float(np.mean(probes.eta)),
+            l_phi=params.l_phi,
+            l_phi_realised=real,
+            l_phi_realised_err=real_err,
+            l_phi_status=status,
             points_per_period=m,
             n_solved=int(residues.size),
             rebuilt=rebuilt,
-            factorizations=n_fact,
+            factorizations=made[0],
             timings=timings,
             notes=tuple(notes),
         )
+
+    def _thermal(self, ring, temperature: float, flux: np.ndarray, rows) -> _Thermal:
+        """Spinless G over ``flux``: one energy at T = 0, else the thermal policy at ``tol``.
+
+        The call is the one of :func:`ringkit.transport.field_sweep` (same bound, band
+        functionals over the plotted grid, per-spin tolerance ``tol/2``), so with the same
+        ``thermal_tol`` the live line equals ``field_sweep`` on the plotted fluxes.
+        """
+        e_t = ring.fermi_energy_lattice
+        if temperature == 0.0:
+            return _Thermal(rows([e_t])[0], np.array([e_t]), np.array([1.0]), 0.0, True,
+                            "T = 0: single energy")  # fmt: skip
+        from ringkit.transport.sweep import _band_projector, transmission_bound
+        from ringkit.transport.thermal import ThermalToleranceWarning, thermal_average
+
+        bound = transmission_bound(ring, e_t, temperature, self.tol, ring.params(flux=0.0))
+        with warnings.catch_warnings():
+            # a budget hit is reported through ``converged`` and the note, not as a warning
+            warnings.simplefilter("ignore", ThermalToleranceWarning)
+            avg = thermal_average(
+                rows, e_t, temperature, energy_unit=ring.hopping, tol=0.5 * self.tol,
+                bound=bound, functionals=_band_projector(ring, flux), batched=True,
+                max_energies=self.max_energies,
+            )  # fmt: skip
+        err = 2.0 * avg.error  # G = 2 T (spin)
+        state = "" if avg.converged else f", NOT converged within {self.max_energies} energies"
+        note = (f"thermal average over {avg.n_energies} energies, estimated error "
+                f"{err:.2g} e^2/h (tol {self.tol:g}{state})")  # fmt: skip
+        return _Thermal(avg.value, avg.energies, avg.weights, err, avg.converged, note)

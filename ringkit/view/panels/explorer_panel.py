@@ -47,7 +47,7 @@ from ringkit.view.panels.explorer_controls import (
 )
 from ringkit.view.panels.explorer_derived import Derived, derived_quantities
 from ringkit.view.panels.explorer_draw import PREVIEW, ExplorerDrawing
-from ringkit.view.panels.explorer_live import LiveLattice, LiveResult
+from ringkit.view.panels.explorer_live import LiveCancelled, LiveLattice, LiveResult
 from ringkit.view.style import new_figure, style_context
 
 __all__ = ["DeviceExplorer"]
@@ -313,7 +313,9 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         return None if why is None else f"off: {why}"
 
     def _live_compute(self, params: ExplorerParams) -> LiveResult:
-        return self.live_view.compute(params)
+        # newer settings cancel this update between energies (LiveCancelled, dropped by
+        # _live_failed): the wait is one update, never the sum of queued ones
+        return self.live_view.compute(params, cancelled=lambda: params != self.params)
 
     def _live_done(self, serial: int, params: ExplorerParams, result: LiveResult) -> None:
         with self.draw_lock:
@@ -327,7 +329,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
     def _live_failed(self, serial: int, params: ExplorerParams, exc: BaseException) -> None:
         with self.draw_lock:
             self._submitted.pop(serial, None)
-            if params != self.params:
+            if params != self.params or isinstance(exc, LiveCancelled):
                 return
             self.live_pending = False
             self.live_note = f"failed: {type(exc).__name__}: {exc}"
