@@ -154,7 +154,7 @@ def l_phi_from_series(
             p=p,
         )
     l_phi, l_phi_err = l_phi_at(fit, t)
-    ref_name = next(k for k in fit.values if k.replace("_", "") == "l_phiref")
+    ref_name = next(k for k in fit.values if k.replace("_", "") == "lphiref")
     out.update(
         {
             "l_phi_ref_m": float(fit.values[ref_name]),
