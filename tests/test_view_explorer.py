@@ -171,3 +171,22 @@ def test_figure_panes_png_size_and_canvas():
     canvas_pane = FigurePane(fig, interactive=True)
     assert canvas_pane.widget is canvas_pane.canvas and fig.canvas is canvas_pane.canvas
     canvas_pane.refresh()  # headless: only messages to a (missing) frontend
+
+
+def test_full_computation_reports_the_realised_l_phi():
+    # the full computation calibrates its probes on the device (docs/panels.md, "Live lattice
+    # view"; docs/probes.md "Realised L_phi") and reports what field_sweep reports for them
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport import field_sweep
+    from ringkit.view.panels.explorer_full import build_device, explorer_full
+
+    params = ExplorerParams(**{**SMALL, "l_phi": 1.0e-6, "field_min": -0.02, "field_max": 0.02})
+    full = explorer_full(params, n_probes=8)
+    ring = build_ring(build_device(params), seed=params.seed)
+    ds = field_sweep(ring, full.field[:3] * ring.loop_area, energy=ring.fermi_energy,
+                     l_phi=1.0e-6, n_probes=8)  # fmt: skip
+    real, err = ds.attrs["l_phi_realised_m"], ds.attrs["l_phi_realised_err_m"]
+    assert math.isfinite(real) and err > 0
+    note = next(n for n in full.notes if n.startswith("L_phi requested"))
+    assert f"requested 1 um, realised {real * 1e6:.3g} +- {err * 1e6:.2g} um" in note
+    assert "measured on this device" in note

@@ -352,7 +352,9 @@ def _l_phi_row(live) -> str:
         err = live.l_phi_realised_err
         pm = f" ± {err * 1e6:.2g}" if math.isfinite(err) else ""
         return f"{asked}; realised {live.l_phi_realised * 1e6:.3g}{pm} µm ({live.l_phi_status})"
-    return f"{asked}; realised: not measured ({live.l_phi_status})"
+    status = live.l_phi_status
+    return f"{asked}; realised: " + (status if status.startswith("not measured") else (
+        f"not measured ({status})"))  # fmt: skip
 
 
 def _table(rows: list[tuple[str, str]], cls: str) -> str:

@@ -194,15 +194,20 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int, tol:
     notes: list[str] = []
     probes = None
     if params.l_phi is not None:
-        from ringkit.transport.probes import attach_probes
+        from ringkit.transport.realised_l_phi import realised_l_phi_info
+        from ringkit.transport.sweep import ring_probes
 
-        say(0.05, f"{ring.n_sites} sites; attaching {n_probes} dephasing probes")
+        say(0.05, f"{ring.n_sites} sites; calibrating {n_probes} dephasing probes on the device")
         zero = ring.params(B=0.0) if params.field_mode == "uniform" else ring.params(flux=0.0)
-        probes = attach_probes(
-            ring.fsyst, l_phi=params.l_phi, energy=ring.fermi_energy_lattice,
-            n_probes=n_probes, lattice_spacing=ring.lattice_spacing, params=zero,
-        )  # fmt: skip
+        # coupling calibrated so that the probes realise l_phi on this device (docs/probes.md)
+        probes = ring_probes(ring, params.l_phi, ring.fermi_energy_lattice, zero, n_probes)
         notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
+        info = realised_l_phi_info(probes)
+        real, err = info["l_phi_realised_m"], info["l_phi_realised_err_m"]
+        notes.append(
+            f"L_phi requested {params.l_phi * 1e6:.3g} um, realised "
+            f"{real * 1e6:.3g} +- {err * 1e6:.2g} um ({info['l_phi_status']})"
+        )
     say(0.1, f"{ring.n_sites} sites; factorizing")
     count = [0]
 

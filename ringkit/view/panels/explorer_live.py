@@ -28,19 +28,31 @@ Flux grid: the flux-tube conductance is exactly periodic in the hole flux with p
 ``k mod M`` (at most M low-rank solves per energy, for any field window). The x axis is the
 equivalent field ``B = flux/A_mean`` as in :mod:`ringkit.view.panels.explorer_full`.
 
-Temperature and dephasing follow :func:`ringkit.view.panels.explorer_full.explorer_full`:
-``thermal_grid`` (single energy when k_B T < E_c/10, otherwise at most ``max_energies``
-energies) and ``n_probes`` floating Büttiker probes when L_phi is finite. With the same number
-of energies the live line therefore equals the full computation of the same settings.
+Temperature: the one thermal policy (:func:`ringkit.thermal_policy.energy_average` through
+:func:`ringkit.transport.thermal.thermal_average`), called exactly as
+:func:`ringkit.transport.field_sweep` calls it (bound from the open lead modes, h/e and h/2e
+band projections over the plotted grid as controlled functionals, per-spin tolerance
+``tol/2``), at the live goal ``LIVE_TOL`` = 1e-2 e^2/h (the library default 1e-4 is what the
+full computation uses) and a budget of ``LIVE_MAX_ENERGIES`` energies. Every result carries
+the number of energies, the error estimate reached and whether it is below the goal; the
+panel shows them. With the same goal and budget the live line equals ``field_sweep``.
+G per energy is kept over the whole h/e period, so a new field window costs no
+factorization. Dephasing: ``n_probes`` floating Büttiker probes when L_phi is finite, with the
+analytic coupling (the realised L_phi is not measured in the live view; the full computation
+calibrates it on the device and reports it). ``compute(params, cancelled=...)`` stops between
+energies when newer settings arrive (finished energies stay cached).
 
 API
 ---
-LiveLattice(*, max_sites=LIVE_MAX_SITES, max_energies=LIVE_MAX_ENERGIES, n_probes=N_PROBES,
-            points_per_period=64, min_points=161)
-    ``.unavailable(params)`` (reason or None), ``.compute(params) -> LiveResult``,
+LiveLattice(*, max_sites=LIVE_MAX_SITES, max_energies=LIVE_MAX_ENERGIES, tol=LIVE_TOL,
+            n_probes=N_PROBES, points_per_period=64, min_points=161)
+    ``.unavailable(params)`` (reason or None), ``.compute(params, cancelled=None)``,
     ``.ring``, ``.builds``, ``.factorizations``.
 LiveResult
-    Line data, spectrum, amplitudes, timings and cache facts of one update.
+    Line data, spectrum, amplitudes, thermal error estimate and energies, requested and
+    realised L_phi, timings and cache facts of one update.
+LiveCancelled
+    Raised by ``compute`` when ``cancelled()`` turns true.
 live_device(params), live_flux_grid(field_min, field_max, period, ...)
 single_thread_blas()
     Context limiting BLAS to one thread (threadpoolctl, optional) around each live update.
@@ -109,17 +121,20 @@ class _Thermal(NamedTuple):
     note: str
 
 
+LIVE_L_PHI_STATUS = (
+    "not measured: analytic probe coupling (its realised L_phi varies 0.7-2.1x between "
+    "devices, docs/probes.md); the full computation measures it on the device"
+)
+
+
 def _realised(probes) -> tuple[float, float, str]:
-    """Realised L_phi (m), its error and the status carried by the probes' ``info``."""
-    if probes is None:
-        return math.inf, 0.0, "no dephasing"
-    info = probes.info
-    real = info.get("l_phi_realised")
-    if real is None or not np.isfinite(real):
-        status = str(info.get("l_phi_status", "analytic estimate, not measured on this device"))
-        return math.nan, math.nan, status
-    status = str(info.get("l_phi_status", "measured on this device"))
-    return float(real), float(info.get("l_phi_realised_err", math.nan)), status
+    """Realised L_phi (m), its error and status (:func:`realised_l_phi_info` of the probes)."""
+    from ringkit.transport.realised_l_phi import realised_l_phi_info
+
+    info = realised_l_phi_info(probes)
+    real, err = info["l_phi_realised_m"], info["l_phi_realised_err_m"]
+    status = LIVE_L_PHI_STATUS if math.isnan(real) else info["l_phi_status"]
+    return float(real), float(err), status
 
 
 def single_thread_blas() -> contextlib.AbstractContextManager:
