@@ -295,3 +295,78 @@ def test_fit_prefactors_recovers_known_values():
     assert only_he["aas_amplitude"] is None and "aas_amplitude" in only_he["unconstrained"]
     with pytest.raises(ParameterError, match="amplitude_he"):
         fit_amplitude_prefactors(r, **kw)
+
+
+# ------------------------------------------------------- size law through simulated medians
+# (issue 13 pt 5; docs/amplitude-model.md, "Prefactors from simulations"). Invented data for
+# these tests: the law itself with known prefactors and L_phi plus log-normal noise of known
+# width (the real use is the ensemble medians of benchmarks/bench_amplitude_size.py).
+SIZE_R = np.array([0.3, 0.4, 0.5, 0.7, 1.0]) * 1e-6
+SIZE_KW = dict(temperature=0.0, mean_free_path=0.36e-6, fermi_velocity=2.37e5, n_modes=5)
+
+
+def _noisy_law(rel, seed, c_he=0.05, c_aas=0.05, l_phi=0.8e-6, extra=None):
+    true = predict_amplitudes(
+        SIZE_R, l_phi=l_phi, coherent_amplitude=c_he, aas_amplitude=c_aas, **SIZE_KW
+    )
+    rng = np.random.default_rng(seed)
+    he, h2e = true["amplitude_he_rms"].values, true["amplitude_h2e_rms"].values
+    if extra is not None:
+        he, h2e = he * extra, h2e * extra
+    noise = np.exp(rel * rng.standard_normal((2, SIZE_R.size)))
+    return dict(
+        amplitude_he=he * noise[0],
+        amplitude_he_err=rel * he * noise[0],
+        amplitude_h2e=h2e * noise[1],
+        amplitude_h2e_err=rel * h2e * noise[1],
+    )
+
+
+def test_size_law_fit_recovers_prefactors_and_l_phi_within_errors():
+    hits, pulls, loose = 0, [], 0
+    for seed in range(20):  # start L_phi at 2 um, truth 0.8 um
+        fit = fit_amplitude_prefactors(
+            SIZE_R, **_noisy_law(0.08, seed), l_phi=2e-6, fit_l_phi=True, **SIZE_KW
+        )
+        assert fit["dof"] == 10 - 3 and fit["space"] == "log"
+        loose += bool(fit["unconstrained"])
+        for name, val in (("coherent_amplitude", 0.05), ("aas_amplitude", 0.05),
+                          ("l_phi", 0.8e-6)):  # fmt: skip
+            if fit[name] is not None:
+                pulls.append((fit[name] - val) / fit[f"{name}_err"])
+        hits += fit["law_consistent"]
+    # c_aas is the smaller part of h/2e here: a noise set may leave it unconstrained
+    assert loose <= 2
+    pulls = np.abs(pulls)
+    # Gaussian errors: ~68 % of |pull| < 1 and nearly all < 3 (normal distribution)
+    assert 0.5 < np.mean(pulls < 1) < 0.85 and np.mean(pulls < 3) > 0.95
+    assert hits >= 16  # p >= 0.05 in ~95 % of 20 noise sets (chi-square law)
+
+
+def test_size_law_fit_reports_misfit_as_model_discrepancy():
+    # medians falling faster than the law can (an extra 1/r factor): the law is reported
+    # inconsistent, a relative model error is added until chi2/dof = 1 (Birge ratio) and the
+    # prefactor errors grow accordingly; without it the errors would be overconfident
+    data = _noisy_law(0.03, 1, extra=0.3e-6 / SIZE_R)
+    plain = fit_amplitude_prefactors(SIZE_R, **data, l_phi=0.8e-6, model_discrepancy=None,
+                                     **SIZE_KW)  # fmt: skip
+    fit = fit_amplitude_prefactors(SIZE_R, **data, l_phi=0.8e-6, **SIZE_KW)
+    assert not fit["law_consistent"] and fit["p_value_stat"] < 1e-3
+    assert fit["chi2_stat"] == pytest.approx(plain["chi2"], rel=1e-6)
+    assert fit["model_discrepancy"] > 0.1
+    assert fit["chi2"] / fit["dof"] == pytest.approx(1.0, abs=0.01)
+    assert fit["coherent_amplitude_err"] > 2 * plain["coherent_amplitude_err"]
+
+
+def test_size_law_fit_unconstrained_prefactor_is_none():
+    data = _noisy_law(0.05, 2)
+    data["amplitude_h2e_err"] = 50 * data["amplitude_h2e"]  # h/2e medians carry no information
+    fit = fit_amplitude_prefactors(SIZE_R, **data, l_phi=0.8e-6, **SIZE_KW)
+    assert fit["aas_amplitude"] is None and fit["aas_amplitude_err"] is None
+    assert fit["unconstrained"] == ["aas_amplitude"]
+    assert fit["coherent_amplitude"] == pytest.approx(0.05, rel=0.1)
+    with pytest.raises(ParameterError, match="space"):
+        fit_amplitude_prefactors(SIZE_R, **data, space="sqrt", **SIZE_KW, l_phi=1e-6)
+    data["amplitude_he"][0] = 0.0
+    with pytest.raises(ParameterError, match="amplitude_he_rms"):
+        fit_amplitude_prefactors(SIZE_R, **data, **SIZE_KW, l_phi=1e-6)

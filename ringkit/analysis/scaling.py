@@ -361,6 +361,20 @@ def predict_amplitudes(
     return xr.Dataset(data, coords=coords, attrs=attrs)
 
 
+def model_arrays(radius: np.ndarray, **kwargs: Any) -> dict[str, np.ndarray]:
+    """The variables of :func:`predict_amplitudes` as numpy arrays (same keywords; no xarray,
+    no validation of ``radius``: for fits that evaluate the model many times)."""
+    import inspect
+
+    sig = inspect.signature(predict_amplitudes).parameters
+    kw = {k: v.default for k, v in sig.items() if k not in ("radius", "simulated")}
+    unknown = set(kwargs) - set(kw)
+    if unknown:
+        raise ParameterError(sorted(unknown)[0], "given", "is not a keyword of the model")
+    kw.update(kwargs)
+    return _model(np.asarray(radius, dtype=float), _parameters(**kw))
+
+
 def _add_simulated(data: dict, coords: dict, simulated, p: dict) -> None:
     if hasattr(simulated, "data_vars"):
         keys = set(simulated.data_vars) | set(simulated.coords)

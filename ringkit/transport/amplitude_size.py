@@ -9,16 +9,25 @@ carry uncertainties (docs/amplitude-statistics.md, "Amplitude versus radius").
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 
 from ringkit._validation import ParameterError
 from ringkit.analysis.ensemble_stats import DEFAULT_QUANTILES
 from ringkit.transport.amplitude_stats import amplitude_statistics
 
-__all__ = ["amplitude_vs_radius"]
+__all__ = ["amplitude_vs_radius", "family_vs_radius", "radius_checkpoint"]
 
 
-def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **kwargs) -> dict:
+def radius_checkpoint(checkpoint, radius: float) -> Path:
+    """Checkpoint directory of one radius inside ``checkpoint`` (``r_<nm>nm``)."""
+    return Path(checkpoint) / f"r_{radius * 1e9:.1f}nm"
+
+
+def amplitude_vs_radius(
+    make_device, radii, make_fields, *, fit_kwargs=None, report=None, **kwargs
+) -> dict:
     """Amplitude quantile bands versus ring radius and the semi-analytic law fitted through them.
 
     Parameters
@@ -31,10 +40,15 @@ def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **k
         ``make_fields(device) -> fields`` (T or Wb).
     fit_kwargs : dict, optional
         Model keywords for :func:`fit_amplitude_prefactors` (``l_phi``, ``temperature``,
-        ``mean_free_path``, ``fermi_velocity``, ``n_modes``, ...); the simulated median mean G
-        per radius is passed as ``conductance`` unless given.
+        ``mean_free_path``, ``fermi_velocity``, ``n_modes``, ``fit_l_phi``, ``space``,
+        ``model_discrepancy``, ...); the simulated median mean G per radius is passed as
+        ``conductance`` unless given (``conductance=None``: the model's G).
+    report : callable, optional
+        ``report(fraction, text)`` before each radius (may raise to cancel, e.g. a panel job).
     **kwargs
-        Of :func:`amplitude_statistics` (temperature, l_phi, rule, executor, ...).
+        Of :func:`amplitude_statistics` (temperature, l_phi, rule, executor, ...);
+        ``checkpoint`` is a directory holding one sub-directory per radius
+        (:func:`radius_checkpoint`).
 
     Returns
     -------
@@ -50,9 +64,14 @@ def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **k
     q = kwargs.setdefault("quantiles", DEFAULT_QUANTILES)
     if not (np.any(np.isclose(q, 0.5)) and len(q) == 3):
         raise ParameterError("quantiles", q, "must be three probabilities including 0.5")
+    ckpt = kwargs.pop("checkpoint", None)
     stats = []
-    for radius in r:
+    for i, radius in enumerate(r):
+        if report is not None:
+            report(i / r.size, f"r = {radius * 1e9:.0f} nm ({i + 1} of {r.size})")
         dev = make_device(float(radius))
+        if ckpt is not None:  # one checkpoint per radius (a checkpoint holds one task)
+            kwargs["checkpoint"] = radius_checkpoint(ckpt, float(radius))
         stats.append(amplitude_statistics(dev, make_fields(dev), **kwargs))
     out: dict = {"radius": r, "statistics": stats}
     for j, name in ((0, "he"), (1, "h2e")):
@@ -64,6 +83,8 @@ def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **k
     out["stop_reason"] = [s.stop_reason for s in stats]
     fk = dict(fit_kwargs or {})
     fk.setdefault("conductance", out["mean_g_median"])
+    if fk["conductance"] is None:
+        del fk["conductance"]
     try:
         out["fit"] = fit_amplitude_prefactors(
             r,
@@ -76,4 +97,25 @@ def amplitude_vs_radius(make_device, radii, make_fields, *, fit_kwargs=None, **k
     except ParameterError as err:  # reported, not hidden
         out["fit"] = None
         out["fit_error"] = str(err)
+    if report is not None:
+        report(1.0, "done")
     return out
+
+
+def family_vs_radius(family, rule, **kwargs) -> dict:
+    """:func:`amplitude_vs_radius` for a :class:`ringkit.analysis.scaling_data.SizeFamily`.
+
+    Its devices, flux window, T, L_phi and law-fit keywords (effective L_phi fitted, model G);
+    ``rule`` the :class:`StoppingRule` per radius; ``**kwargs`` of :func:`amplitude_vs_radius`
+    (executor, checkpoint, report, ...).
+    """
+    return amplitude_vs_radius(
+        family.device,
+        family.radii,
+        lambda dev: family.fluxes(),
+        temperature=family.temperature,
+        l_phi=family.l_phi,
+        rule=rule,
+        fit_kwargs=family.fit_kwargs(),
+        **kwargs,
+    )
