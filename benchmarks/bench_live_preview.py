@@ -14,18 +14,22 @@ at once, then the exact flux-tube lattice G(Phi) and spectrum
 (:class:`ringkit.view.panels.explorer_live.LiveLattice`) are computed and drawn. Every change
 uses a new value (no cache hit from an earlier value). Printed per control kind: the median
 time until the first frame, the median and largest time until the lattice result is drawn
-(what the user waits for), the median CPU time of the whole update (this process, BLAS limited
-to one thread: about what the update takes on an idle core, whatever else runs on a shared
-machine), the lattice part alone with its split (build, probes, model, factorize, sweep) and
-how often the lattice was rebuilt.
+(what the user waits for), the median CPU time of the whole update (this process and its
+energy worker processes, BLAS limited to one thread: what the update costs on one core,
+whatever else runs on a shared machine), an idle-machine estimate (this process's CPU time
+plus the workers' CPU time divided by their number), the lattice part alone with its split
+(build, probes, model, factorize, sweep) and how often the lattice was rebuilt.
 
 Rings (circular, GaAs preset, automatic spacing a = 0.5/kF = 3.64 nm): ``default``: the
 explorer's default device (mean radius 0.5 um, 100 nm arms, L_phi = 2 um: 40 floating
-probes); ``10k``: 280 nm / 75 nm. Scenarios: ``T0`` (T = 0) and ``T0.3`` (T = 0.3 K, energies
-from the thermal policy). Targets (issue 11 pt 4): median <= 1 s at T = 0 and <= 2 s at
-0.3 K for every control. BLAS threads: limited to one per update by the panel
-(threadpoolctl), reported below with the load average; the machine is shared, so expect
-+-30 % between runs.
+probes); ``10k``: 280 nm / 75 nm. Scenarios: ``T0`` (T = 0) and ``T0.3`` (T = 0.3 K: the
+error-controlled thermal policy, :func:`ringkit.thermal_policy.energy_average`, at the live
+tolerance ``LIVE_TOL`` = 1e-2 e^2/h with a budget of ``LIVE_MAX_ENERGIES`` energies; the
+number of energies and the error estimate reached are printed per control). Targets (issue 11
+pt 4): median <= 1 s at T = 0 and <= 2 s at 0.3 K for every control. BLAS threads: limited to
+one per update by the panel (threadpoolctl), reported below with the load average; the
+machine is shared, so the wall times depend on the load and the CPU time of the update (one
+core, one BLAS thread: about the wall time on an idle core) is the fair figure.
 """
 
 from __future__ import annotations
@@ -45,7 +49,12 @@ import numpy as np  # noqa: E402
 
 from ringkit.view.panels import DeviceExplorer  # noqa: E402
 from ringkit.view.panels.explorer import ExplorerParams  # noqa: E402
-from ringkit.view.panels.explorer_live import live_device, single_thread_blas  # noqa: E402
+from ringkit.view.panels.explorer_live import (  # noqa: E402
+    LIVE_MAX_ENERGIES,
+    LIVE_TOL,
+    live_device,
+    single_thread_blas,
+)
 
 SIZES = {"default": (0.5e-6, 0.1e-6), "10k": (280e-9, 75e-9)}
 SCENARIOS = {"T0": dict(temperature=0.0), "T0.3": dict(temperature=0.3)}
@@ -86,19 +95,31 @@ _CONTROL = {
 }
 
 
+def _cpu() -> np.ndarray:
+    """CPU seconds of this process and of its finished children (the energy workers)."""
+    t = os.times()
+    return np.array([t.user + t.system, t.children_user + t.children_system])
+
+
 def run(size: str, scenario: str, repeats: int) -> list[dict]:
     radius, width = SIZES[size]
     params = ExplorerParams(radius=radius, width=width, **SCENARIOS[scenario])
     ex = DeviceExplorer(params, background=False)
+    print(f"  live tolerance {ex.live_view.tol:g} e^2/h, budget {ex.live_view.max_energies} "
+          f"energies, energy workers {ex.live_view.workers}", file=sys.stderr)  # fmt: skip
     assert ex.live is not None, ex.live_note or ex.message.value
     n_sites = ex.live.n_sites
     rows = []
     for kind in _CONTROL:
-        first, lat, comp, parts, cpu, rebuilt = [], [], [], [], [], 0
+        first, lat, comp, parts, cpu, rebuilt, n_e, err = [], [], [], [], [], 0, [], []
+        idle = []
         for value in _changes(kind, repeats, params):
-            c0 = time.process_time()
+            c0 = _cpu()
             ex.controls[_CONTROL[kind]].value = value
-            cpu.append(time.process_time() - c0)
+            own, kids = _cpu() - c0
+            cpu.append(own + kids)
+            # on an idle machine: this process's part, plus the workers' part spread over them
+            idle.append(own + kids / max(1, ex.live.timings.get("workers", 1)))
             if ex.live is None:
                 raise RuntimeError(ex.message.value or ex.live_note)
             first.append(ex.latency)
@@ -106,6 +127,8 @@ def run(size: str, scenario: str, repeats: int) -> list[dict]:
             comp.append(ex.live.timings["total"])
             parts.append(ex.live.timings)
             rebuilt += ex.live.rebuilt
+            n_e.append(ex.live.n_energies)
+            err.append(ex.live.thermal_error)
         split = {
             p: statistics.median(t[p] for t in parts)
             for p in ("build", "probes", "model", "factorize", "sweep")
@@ -120,11 +143,14 @@ def run(size: str, scenario: str, repeats: int) -> list[dict]:
                 median=statistics.median(lat),
                 worst=max(lat),
                 cpu=statistics.median(cpu),
+                idle=statistics.median(idle),
                 lattice=statistics.median(comp),
                 split=split,
                 rebuilt=rebuilt,
                 n=len(lat),
-                energies=ex.live.energies.size,
+                energies=statistics.median(n_e),
+                error=max(err),
+                converged=ex.live.thermal_converged,
                 probes=ex.live.n_probes,
             )  # fmt: skip
         )
@@ -164,6 +190,8 @@ def main(argv: list[str] | None = None) -> None:
         "",
         f"python {platform.python_version()}, {os.cpu_count()} cores; BLAS pools at start: "
         f"{pools}; each update limits BLAS to 1 thread (threadpoolctl); environment {env}",
+        f"live thermal average: ringkit.thermal_policy.energy_average, tol {LIVE_TOL:g} e²/h, "
+        f"budget {LIVE_MAX_ENERGIES} energies (T = 0: one energy)",
     ]
     for size in args.sizes:
         r, w = SIZES[size]
@@ -181,19 +209,21 @@ def main(argv: list[str] | None = None) -> None:
     out += [
         "",
         "| ring | scenario | control | first frame median, ms | lattice drawn median, ms "
-        "| slowest, ms | CPU time median, ms | lattice part, ms "
-        "| build / probes / model / factorize / sweep, ms | rebuilt |",
-        "|---|---|---|---|---|---|---|---|---|---|",
+        "| slowest, ms | CPU time median, ms | idle-machine estimate, ms | lattice part, ms "
+        "| build / probes / model / factorize / sweep, ms | rebuilt "
+        "| energies (median) | largest thermal error estimate, e²/h |",
+        "|---|---|---|---|---|---|---|---|---|---|---|---|---|",
     ]
     for row in rows:
         s = row["split"]
         split = " / ".join(f"{1e3 * s[p]:.0f}" for p in s)
-        scen = f"{row['scenario']} ({row['energies']} E, {row['probes']} probes)"
+        scen = f"{row['scenario']} ({row['probes']} probes)"
         out.append(
             f"| {row['size']} ({row['sites']} sites) | {scen} | {row['kind']} "
             f"| {1e3 * row['first']:.0f} | {1e3 * row['median']:.0f} | {1e3 * row['worst']:.0f} "
-            f"| {1e3 * row['cpu']:.0f} | {1e3 * row['lattice']:.0f} | {split} "
-            f"| {row['rebuilt']}/{row['n']} |"
+            f"| {1e3 * row['cpu']:.0f} | {1e3 * row['idle']:.0f} | {1e3 * row['lattice']:.0f} "
+            f"| {split} "
+            f"| {row['rebuilt']}/{row['n']} | {row['energies']:g} | {row['error']:.2g} |"
         )
     for scenario, target in (("T0", 1.0), ("T0.3", 2.0)):
         sel = [r for r in rows if r["scenario"] == scenario]
@@ -205,7 +235,12 @@ def main(argv: list[str] | None = None) -> None:
             wc = max(sel, key=lambda r: r["cpu"])
             ok = "meets" if wc["cpu"] <= target else "MISSES"
             out.append(f"{scenario}: largest median CPU time {1e3 * wc['cpu']:.0f} ms "
-                       f"({wc['kind']}; the wall time on an idle core, one BLAS thread), {ok} "
+                       f"({wc['kind']}; all processes, one core, one BLAS thread), {ok} "
+                       f"the {target:g} s target")  # fmt: skip
+            wi = max(sel, key=lambda r: r["idle"])
+            ok = "meets" if wi["idle"] <= target else "MISSES"
+            out.append(f"{scenario}: largest median idle-machine estimate {1e3 * wi['idle']:.0f} "
+                       f"ms ({wi['kind']}; this process + energy workers' CPU / workers), {ok} "
                        f"the {target:g} s target")  # fmt: skip
     out.append(f"\nload average at the end: {os.getloadavg()}")
     text = "\n".join(out) + "\n"

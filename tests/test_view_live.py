@@ -238,7 +238,7 @@ def test_live_thermal_equals_field_sweep_at_same_tolerance():
 def test_superseded_update_is_cancelled_and_its_energies_kept():
     from ringkit.view.panels.explorer_live import LiveCancelled
 
-    view = LiveLattice()
+    view = LiveLattice(workers=1)  # serial: cancellation is polled before every energy
     params = ExplorerParams(**SMALL, temperature=1.0, l_phi=None)
     polls = []
 
@@ -256,9 +256,22 @@ def test_superseded_update_is_cancelled_and_its_energies_kept():
     np.testing.assert_allclose(full.conductance, fresh.conductance, rtol=0, atol=TOL)
 
 
+def test_energies_in_worker_processes_equal_the_serial_path(monkeypatch):
+    # the live view hands uncached energies to forked workers (ringkit.transport.energy_pool);
+    # the rows must be those of the serial loop (same code, one BLAS thread)
+    pool_mod = pytest.importorskip("ringkit.transport.energy_pool")
+    monkeypatch.setattr(pool_mod, "MIN_SECONDS_PER_ENERGY", 0.0)  # fork even for a small ring
+    params = ExplorerParams(**SMALL, temperature=1.0, l_phi=1.0e-6)
+    serial = LiveLattice(workers=1, n_probes=8).compute(params)
+    forked = LiveLattice(workers=2, n_probes=8).compute(params)
+    assert forked.timings.get("workers") == 2 and "workers" not in serial.timings
+    assert forked.n_energies == serial.n_energies == forked.factorizations > 1
+    np.testing.assert_allclose(forked.conductance, serial.conductance, rtol=0, atol=1e-12)
+
+
 # --------------------------------------------------------------------------- caching
 def test_cache_no_rebuild_for_gate_temperature_l_phi_window():
-    ex = _explorer(temperature=0.0, l_phi=2e-6)
+    ex = _explorer(live=LiveLattice(n_probes=8), temperature=0.0, l_phi=2e-6)
     view = ex.live_view
     builds, ring = view.builds, view.ring
     c = ex.controls

@@ -344,6 +344,73 @@ class _Lru(OrderedDict):
         return value, True
 
 
+class _Pool:
+    """Energies of one live update in worker processes (:class:`EnergyPool`), when available.
+
+    The workers are forked from this process with the sweeper at E_F (model, probes, symbolic
+    analysis inherited), so each evaluates ``FluxTubeSweeper.conductance`` at the flux
+    residues exactly as the serial path; rows are stored in the live view's per-energy cache.
+    Energies go out in chunks of two per worker, so a cancellation is seen between chunks.
+    """
+
+    def __init__(self, view, sweeper_of, mkey, m: int, residues: np.ndarray, probes, cancelled,
+                 timings: dict) -> None:  # fmt: skip
+        self.view, self.sweeper_of, self.mkey, self.m = view, sweeper_of, mkey, m
+        self.probes = probes
+        self.residues, self.cancelled, self.timings = residues, cancelled, timings
+        self._pool = None
+        self.workers = 1
+        try:
+            from ringkit.transport.energy_pool import thermal_workers
+        except ImportError:  # parallel energies not available: serial path
+            self.workers = 1
+        else:
+            self.workers = thermal_workers(view.workers)
+
+    def _key(self, e_t: float) -> tuple:
+        return (self.mkey, e_t, self.m, self.residues.tobytes())
+
+    def fill(self, energies_t: list[float]) -> int:
+        """Evaluate the uncached energies in the workers; returns the factorizations done."""
+        todo = [e for e in dict.fromkeys(energies_t) if self._key(e) not in self.view._rows]
+        if self.workers < 2 or len(todo) < 2:
+            return 0
+        if self._pool is None:
+            from ringkit.transport.energy_pool import EnergyPool
+
+            # one energy here: its sweeper is the template the workers inherit (the pool
+            # times its first energy to choose serial or parallel: give it a new one)
+            sweeper, _ = self.sweeper_of(todo[0])
+            self.view._values(self.sweeper_of, self.mkey, todo[0], self.m, self.residues,
+                              self.probes, self.timings)  # fmt: skip
+            todo = todo[1:]
+            self._pool = EnergyPool(sweeper, self.residues * (PHI0 / self.m),
+                                    workers=self.workers)  # fmt: skip
+        done = 0
+        step = 2 * self.workers
+        for i in range(0, len(todo), step):
+            if self.cancelled():
+                raise LiveCancelled("superseded while computing energies")
+            chunk = [e for e in todo[i : i + step] if self._key(e) not in self.view._rows]
+            t0 = time.perf_counter()
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                vals = self._pool(chunk)
+            self.timings["factorize"] += time.perf_counter() - t0
+            self.view._fallbacks += len(caught)
+            for e, row in zip(chunk, vals, strict=True):
+                self.view._rows[self._key(e)] = np.asarray(row, dtype=float)
+            done += len(chunk)
+        while len(self.view._rows) > _MAX_ROWS:
+            self.view._rows.popitem(last=False)
+        return done
+
+    def close(self) -> None:
+        if self._pool is not None:
+            self._pool.close()
+            self._pool = None
+
+
 class LiveLattice:
     """Cached exact lattice G(B) of the explorer settings (flux-tube mode).
 
@@ -357,6 +424,10 @@ class LiveLattice:
     tol : float
         Error goal of the thermal average in e^2/h (default :data:`LIVE_TOL`; the library
         default 1e-4 is what the full computation uses), in [1e-10, 0.1].
+    workers : int, optional
+        Processes for the energies of a thermal average
+        (:func:`ringkit.transport.energy_pool.thermal_workers`: default
+        ``RINGKIT_THERMAL_WORKERS`` or the usable cores, at most 4; 1: serial).
     n_probes : int
         Dephasing probes when L_phi is finite (as the full computation).
     points_per_period, min_points : int
@@ -378,6 +449,7 @@ class LiveLattice:
         max_sites: int = LIVE_MAX_SITES,
         max_energies: int = LIVE_MAX_ENERGIES,
         tol: float = LIVE_TOL,
+        workers: int | None = None,
         n_probes: int = N_PROBES,
         points_per_period: int = 64,
         min_points: int = 161,
@@ -392,6 +464,7 @@ class LiveLattice:
                 raise ParameterError(name, value, f"must be an integer >= {low}")
         self.max_sites = int(max_sites)
         self.max_energies = int(max_energies)
+        self.workers = workers
         self.tol = check_tol(tol)
         self._fallbacks = 0
         self.n_probes = int(n_probes)
@@ -597,17 +670,27 @@ class LiveLattice:
             made[0] += new
             return sweeper, new
 
+        pool = _Pool(self, sweeper_of, mkey, m, residues, probes, cancelled, timings)
+
         def rows(energies_t) -> np.ndarray:
+            energies_t = [float(e) for e in np.atleast_1d(energies_t)]
+            n_pool = pool.fill(energies_t)  # (fill may count its template sweeper first)
+            made[0] += n_pool
             out = []
-            for e_t in np.atleast_1d(energies_t):
+            for e_t in energies_t:
                 if cancelled():
                     raise LiveCancelled("superseded while computing energies")
-                g = self._values(sweeper_of, mkey, float(e_t), m, residues, probes, timings)
+                g = self._values(sweeper_of, mkey, e_t, m, residues, probes, timings)
                 out.append(g[where])
             return np.array(out)
 
-        thermal = self._thermal(ring, params.temperature, flux, rows)
-        self.factorizations += made[0]
+        try:
+            thermal = self._thermal(ring, params.temperature, flux, rows)
+        finally:
+            pool.close()
+            self.factorizations += made[0]
+        if pool.workers > 1:
+            timings["workers"] = pool.workers
         notes = [thermal.note]
         if probes is not None:
             notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
