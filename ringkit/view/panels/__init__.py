@@ -30,12 +30,13 @@ from __future__ import annotations
 
 import importlib
 
-__all__ = ["DeviceExplorer", "SizeScalingPanel", "MeasuredDataPanel"]
+__all__ = ["DeviceExplorer", "SizeScalingPanel", "MeasuredDataPanel", "RingOutlookPanel"]
 
 _WHERE = {
     "DeviceExplorer": "explorer_panel",
     "SizeScalingPanel": "scaling_panel",
     "MeasuredDataPanel": "measured_panel",
+    "RingOutlookPanel": "outlook_panel",
 }
 
 
