@@ -603,14 +603,16 @@ def test_broken_unit_message(reference, tmp_path):
 
 # ----------------------------------------------------------------------------- issue 11, point 6
 def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypatch):
-    """Flux-tube unit at 1 K with probes: one FluxTubeModel evaluation and one L_phi mapping
-    for all energies (it rebuilt both at every energy), BLAS limited to one thread, and at
-    T = 0 the library's fast_field_conductance with the same probes (mapping at E_F)."""
+    """Flux-tube unit at 1 K with probes: one FluxTubeModel evaluation (shared with the L_phi
+    calibration) and one calibration for all energies (it rebuilt both at every energy), BLAS
+    limited to one thread, and at T = 0 the library's fast_field_conductance with the same
+    probes (calibrated at E_F, served from the per-process cache)."""
     import threadpoolctl
 
     from ringkit.study import compute
     from ringkit.study.plan import make_plan
     from ringkit.transport import lowrank, probes
+    from ringkit.transport.realised_l_phi import cache_info
     from ringkit.transport.sweep import fast_field_conductance
 
     text = TINY.replace('start = "-1.2 T"', 'mode = "flux_tube"\nstart = "-2 h/e"')
@@ -643,13 +645,16 @@ def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypa
     n_total = res.info["n_energies_total"]
     assert res.n_energies[0] == 1 and res.n_energies[1] >= 15
     assert n_total - res.n_energies[1] in (0, 1)  # E_F (T = 0) shared when it is a 1 K node
-    assert counts == {"model": 1, "attach": 1}
+    assert counts == {"model": 1, "attach": 0}  # probes calibrated, not the analytic mapping
+    assert cache_info()["setups"] == 1 and cache_info()["calibrations"] == 1
+    assert res.info["l_phi_realised_m"] == pytest.approx(unit.l_phi, rel=0.1)
     assert threads and set(threads) == {1}
     ring = compute.state_for(compute.make_tasks(plan, [unit])[0]).ring
     lib = fast_field_conductance(
         ring, plan.field, energy=ring.fermi_energy, l_phi=unit.l_phi, n_probes=8
     )
-    # same mapping at E_F; the study rounds eta to 8 digits (bit-for-bit resumes)
+    assert cache_info()["setups"] == 1  # the same calibration, not a new one
+    # same calibration at E_F; the study rounds eta to 8 digits (bit-for-bit resumes)
     np.testing.assert_allclose(res.conductance[0], lib.conductance, rtol=0, atol=1e-6)
     compute.clear_cache()
 

@@ -113,6 +113,30 @@ def _values(plan: StudyPlan, res, setup: StudySetup) -> dict[str, float]:
     return out
 
 
+def _realised(ds, idx: tuple) -> dict[str, Any]:
+    """Realised L_phi of one condition over the realizations (m): ``mean``, ``err`` (rms of
+    the per-realization errors), ``min``, ``max``, ``n`` (measured values); ``n = 0`` if not
+    measured. The coherent ring gives ``mean = inf``."""
+    out: dict[str, Any] = {"mean": None, "err": None, "min": None, "max": None, "n": 0}
+    if "l_phi_realised" not in ds:
+        return out
+    pick = {d: idx[CONDITION_DIMS.index(d)] for d in ("fermi_energy", "gate_potential", "l_phi")}
+    val = ds["l_phi_realised"].isel(pick).values
+    err = ds["l_phi_realised_err"].isel(pick).values
+    ok = ~np.isnan(val)
+    if not ok.any():
+        return out
+    val, err = val[ok], err[ok]
+    out.update(
+        mean=float(np.mean(val)),
+        err=float(np.sqrt(np.mean(err**2))),
+        min=float(np.min(val)),
+        max=float(np.max(val)),
+        n=int(val.size),
+    )
+    return out
+
+
 def analyse_dataset(plan: StudyPlan, ds, setup: StudySetup) -> tuple[Any, dict[str, Any]]:
     """Analyse ``G_mean`` and every single trace of ``ds``.
 
@@ -156,12 +180,14 @@ def analyse_dataset(plan: StudyPlan, ds, setup: StudySetup) -> tuple[Any, dict[s
                 "n": int(ok.size),
             }
         unit = "_Wb" if plan.field_name == "flux" else "_T"
+        realised = _realised(ds, idx)
         conditions.append(
             {
                 "fermi_energy_J": coord["fermi_energy"],
                 "gate_potential_J": coord["gate_potential"],
                 "temperature_K": coord["temperature"],
                 "l_phi_m": coord["l_phi"],
+                "l_phi_realised_m": realised,
                 "mean_conductance_e2h": float(np.mean(gm[idx])),
                 "ensemble_mean": {
                     f"period_he{unit}": vals["period_he"],
@@ -201,6 +227,9 @@ def analyse_dataset(plan: StudyPlan, ds, setup: StudySetup) -> tuple[Any, dict[s
         "part shrinks with the number of realizations, the h/2e (AAS) part survives); "
         "'single_realizations' gives mean and standard deviation over the individual traces. "
         "Amplitudes: rms of the band content (a cosine of amplitude A gives A/sqrt(2)) and mean "
-        "peak-to-peak, in e^2/h; bands from r_in and r_out; area from the h/e band centroid."
+        "peak-to-peak, in e^2/h; bands from r_in and r_out; area from the h/e band centroid. "
+        "'l_phi_realised_m': the L_phi the dephasing probes realise, measured on each "
+        "realization (h/e damping exp(-pi r/L_phi), docs/probes.md): mean, rms of the "
+        "per-realization errors, min, max and count; 'l_phi_m' is the requested value."
     )
     return analysis, {"explanation": explanation, "conditions": conditions}

@@ -15,15 +15,18 @@ What is reused (per worker process, :class:`_RingState`, at most two lattices ke
   FluxTubeModel` (the only evaluation of the Hamiltonian; models with probes are derived from
   it with ``with_probes``) or the uniform-field Peierls model of the first
   :class:`~ringkit.transport.fastsweep.FieldSweeper`;
-* the dephasing probes of (lattice, gate): the probe sites and the zero-field LDOS weights at
-  the unit's Fermi energy are computed once (:func:`ringkit.transport.probes.attach_probes`);
-  another L_phi only re-evaluates the coupling formula
-  (:func:`ringkit.transport.probes.coupling_from_l_phi`).
+* the L_phi calibration of (lattice, gate, E_F): one
+  :class:`~ringkit.transport.probe_calibration.LPhiCalibrator` per process
+  (:func:`ringkit.transport.realised_l_phi.realised_ring_probes`, built on the cached
+  flux-tube model in flux-tube mode); every L_phi of the lattice only runs the secant on the
+  probe coupling, and a repeated L_phi is served from the cache.
 
-Dephasing convention: the probe coupling is mapped from L_phi **at the Fermi energy** of the
-unit and kept for every energy of the thermal window, as in
-:func:`ringkit.transport.sweep.fast_field_conductance` and the explorer (L_phi is a property of
-the sample at temperature T, not of each energy of the window). Sweepers (one sparse
+Dephasing convention: the probe coupling is calibrated **at the Fermi energy** of the unit, on
+the lattice itself, so that the probes realise the requested L_phi (h/e damping, docs/probes.md
+"Realised L_phi"), and kept for every energy of the thermal window, as in
+:func:`ringkit.transport.sweep.fast_field_conductance` (L_phi is a property of the sample at
+temperature T, not of each energy of the window). The unit's ``info`` holds the realised
+``l_phi_realised_m`` and its error ``l_phi_realised_err_m``. Sweepers (one sparse
 factorization each) are released after their energy, so memory stays flat over the window.
 
 BLAS threads: every unit runs with BLAS limited to ``UnitTask.blas_threads`` threads
@@ -102,22 +105,24 @@ def make_tasks(plan: StudyPlan, units: list[WorkUnit]) -> list[UnitTask]:
 
 @dataclass
 class _RingState:
-    """A built lattice and what is reused with it (field models, probe weights)."""
+    """A built lattice and what is reused with it (field models)."""
 
     ring: Any
     models: OrderedDict = field(default_factory=OrderedDict)  # gate -> field model
-    probes: OrderedDict = field(default_factory=OrderedDict)  # gate -> DephasingProbes at E_F
 
 
 # Per-process cache of built lattices: units of one realization reuse the lattice.
 _CACHE: OrderedDict[str, _RingState] = OrderedDict()
 _CACHE_SIZE = 2
-_PER_RING = 2  # field models / probe sets kept per lattice (gate values)
+_PER_RING = 2  # field models kept per lattice (gate values)
 
 
 def clear_cache() -> None:
-    """Forget the lattices, models and probes kept by this process."""
+    """Forget the lattices, models and L_phi calibrations kept by this process."""
+    from ringkit.transport.realised_l_phi import clear_calibration_cache
+
     _CACHE.clear()
+    clear_calibration_cache()
 
 
 def _lru(cache: OrderedDict, key, make, size: int):
@@ -204,31 +209,25 @@ class UnitEngine:
         return _lru(self.state.models, self.gate_key, make, _PER_RING)
 
     def _probes(self, l_phi: float):
-        """Probes of the unit: sites and weights at E_F cached, coupling for ``l_phi``."""
-        from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_l_phi
+        """Probes of the unit, calibrated on the lattice so that they realise ``l_phi``.
+
+        One :class:`~ringkit.transport.probe_calibration.LPhiCalibrator` per (lattice, gate,
+        E_F, probe count) and process (:mod:`ringkit.transport.realised_l_phi`), reused for
+        every L_phi of the lattice; the coupling and the realised L_phi are rounded to 8
+        significant digits (:func:`_round8`).
+        """
+        from ringkit.transport.probes import DephasingProbes
+        from ringkit.transport.realised_l_phi import realised_ring_probes
 
         ring = self.ring
-        e_f = ring.fermi_energy_lattice
-
-        def make():
-            ldos = None
-            if self.flux:
-                ldos = self._base_model().local_dos(e_f)
-            return attach_probes(
-                ring.fsyst, l_phi=l_phi, energy=e_f, n_probes=self.n_probes,
-                lattice_spacing=ring.lattice_spacing, params=self.params,
-                zero_field={ring.field_param: 0.0}, ldos=ldos,
-                positions=np.asarray(ring.tags, dtype=float),
-            )  # fmt: skip
-
-        base = _lru(self.state.probes, self.gate_key, make, _PER_RING)
-        info = base.info
-        eta = coupling_from_l_phi(
-            l_phi / info["lattice_spacing"], velocity=info["velocity"],
-            probe_fraction=info["probe_fraction"], diffusion_constant=info["diffusion_constant"],
-            calibration=info["calibration"],
+        pr = realised_ring_probes(
+            ring, l_phi, ring.fermi_energy_lattice, self.full_params, self.n_probes,
+            model=self._base_model() if self.flux else None,
         )  # fmt: skip
-        return DephasingProbes(base.sites, _round8(eta), l_phi, dict(info))
+        info = dict(pr.info)
+        for key in ("l_phi_realised", "l_phi_realised_err"):
+            info[key] = _round8(info[key])
+        return DephasingProbes(pr.sites, _round8(pr.eta), l_phi, info)
 
     def _model(self):
         base = self._base_model()
@@ -277,8 +276,9 @@ def compute_unit(task: UnitTask) -> UnitResult:
 
     Every temperature's thermal average uses the energies of
     :func:`ringkit.study.setup.thermal_average`; energies shared between temperatures are
-    computed once. Finite dephasing lengths add floating voltage probes whose voltages are
-    eliminated (Kron reduction of the conductance matrix).
+    computed once. Finite dephasing lengths add floating dephasing probes, calibrated on the
+    lattice to realise L_phi, whose voltages are eliminated at each energy (Kron reduction of
+    the conductance matrix); ``info`` reports the realised L_phi and its error.
     """
     with blas_limit(task.blas_threads):
         return _compute(task)
@@ -290,7 +290,6 @@ def _compute(task: UnitTask) -> UnitResult:
     t0 = time.perf_counter()
     state = state_for(task)
     ring = state.ring
-    engine = UnitEngine(state, task)
     cache: dict[float, np.ndarray] = {}
 
     def g_at(e_joule: float) -> np.ndarray:
@@ -299,10 +298,11 @@ def _compute(task: UnitTask) -> UnitResult:
             cache[key] = engine.conductance(ring.to_lattice_energy(key))
         return cache[key]
 
-    out = np.empty((len(task.temperatures), engine.field.size))
+    out = np.empty((len(task.temperatures), np.size(task.field)))
     n_energies, errors = [], []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
+        engine = UnitEngine(state, task)  # calibration warnings (range) are recorded too
         for i, temp in enumerate(task.temperatures):
             avg = thermal_average(ring, temp, task.physics["thermal"], g_at)
             out[i] = avg.value
@@ -318,6 +318,8 @@ def _compute(task: UnitTask) -> UnitResult:
     if engine.probes is not None:
         info["n_probes"] = int(engine.probes.n)
         info["probe_eta_t"] = float(np.mean(engine.probes.eta))
+        info["l_phi_realised_m"] = float(engine.probes.info["l_phi_realised"])
+        info["l_phi_realised_err_m"] = float(engine.probes.info["l_phi_realised_err"])
     resistance = None
     if task.physics["sweep"].get("contacts"):
         resistance, info["resistance_thermal_error_e2h"] = _resistances(task, ring)

@@ -52,6 +52,12 @@ from ringkit.study.setup import StudySetup
 
 __all__ = ["build_dataset", "write_outputs", "RESULTS_NAME", "SUMMARY_NAME"]
 
+_REALISED_COMMENT = (
+    "measured on the device: h/e damping exp(-pi r/L_phi) of the probes over 16 energies "
+    "around E_F (docs/probes.md 'Realised L_phi'); inf for the coherent ring; NaN = not "
+    "measured (a unit computed before the calibration existed)"
+)
+
 RESULTS_NAME = "results.nc"
 SUMMARY_NAME = "summary.json"
 
@@ -113,9 +119,17 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
     n_energies = np.zeros((n_r, n_e, n_g, n_t, n_d), dtype=np.int64)
     t_error = np.full((n_r, n_e, n_g, n_t, n_d), np.nan)
     elapsed = np.zeros((n_r, n_e, n_g, n_d))
+    realised = np.full((2, n_r, n_e, n_g, n_d), np.nan)  # L_phi realised and its error, m
     for unit in plan.units:
         res = results[unit.uid]
         r, e, gi, d = unit.index
+        if math.isinf(unit.l_phi):
+            realised[:, r, e, gi, d] = (math.inf, 0.0)
+        elif "l_phi_realised_m" in res.info:
+            realised[:, r, e, gi, d] = (
+                res.info["l_phi_realised_m"],
+                res.info["l_phi_realised_err_m"],
+            )
         g[r, e, gi, :, d, :] = res.conductance
         n_energies[r, e, gi, :, d] = res.n_energies
         if "thermal_error_e2h" in res.info:
@@ -193,6 +207,24 @@ def build_dataset(plan: StudyPlan, results: Mapping[str, UnitResult], setup: Stu
                 ("realization", "fermi_energy", "gate_potential", "l_phi"),
                 elapsed,
                 {"units": "s", "long_name": "wall-clock time per work unit"},
+            ),
+            "l_phi_realised": (
+                ("realization", "fermi_energy", "gate_potential", "l_phi"),
+                realised[0],
+                {
+                    "units": "m",
+                    "long_name": "L_phi the dephasing probes realise on this realization",
+                    "comment": _REALISED_COMMENT,
+                },
+            ),
+            "l_phi_realised_err": (
+                ("realization", "fermi_energy", "gate_potential", "l_phi"),
+                realised[1],
+                {
+                    "units": "m",
+                    "long_name": "uncertainty of l_phi_realised (bootstrap over the "
+                    "calibration energies)",
+                },
             ),
         },
         coords=coords,
@@ -305,6 +337,19 @@ def _fmt(v: Any, dim: str | None = None, digits: int = 4) -> str:
     return f"{v:.{digits}g}"
 
 
+def _realised_cell(r: Mapping[str, Any]) -> str:
+    """Realised L_phi of a condition: mean ± rms error over the realizations (and the range
+    when there are several), "inf" for the coherent ring, "not measured" otherwise."""
+    if not r.get("n"):
+        return "not measured"
+    if r["mean"] is None or math.isinf(r["mean"]):
+        return "inf"
+    text = f"{_fmt(r['mean'], 'length', 3)} ± {_fmt(r['err'], 'length', 2)}"
+    if r["n"] > 1:
+        text += f" ({_fmt(r['min'], 'length', 3)}–{_fmt(r['max'], 'length', 3)})"
+    return text
+
+
 def _report_blocks(
     plan: StudyPlan,
     ds,
@@ -335,6 +380,7 @@ def _report_blocks(
         "gate",
         "T",
         "L_phi",
+        "L_phi realised",
         "<G> (e²/h)",
         "period h/e",
         "area (µm²)",
@@ -346,7 +392,7 @@ def _report_blocks(
     ]
     flux_mode = plan.field_name == "flux"
     if flux_mode:  # the equivalent field period for the mean radius (issue 16, point 6)
-        head.insert(6, "period as field (pi r_m²)")
+        head.insert(7, "period as field (pi r_m²)")
     a_ref = reference_area(setup)
     rows = []
     for c in summary["conditions"]:
@@ -358,6 +404,7 @@ def _report_blocks(
             _fmt(c["gate_potential_J"], "energy"),
             _fmt(c["temperature_K"], "temperature"),
             _fmt(c["l_phi_m"], "length"),
+            _realised_cell(c.get("l_phi_realised_m") or {}),
             _fmt(c["mean_conductance_e2h"]),
             _fmt(m.get("period_he_Wb" if period_dim == "flux" else "period_he_T"), period_dim),
             "-" if area is None else f"{area * 1e12:.4g}",
@@ -369,7 +416,7 @@ def _report_blocks(
         ]
         if flux_mode:
             p_wb = m.get("period_he_Wb")
-            row.insert(6, "-" if p_wb is None else _fmt(p_wb / a_ref, "field"))
+            row.insert(7, "-" if p_wb is None else _fmt(p_wb / a_ref, "field"))
         rows.append(row)
     b.append(("table", head, rows))
     b += resistance_report_blocks(plan, ds, setup)

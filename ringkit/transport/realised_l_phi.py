@@ -80,11 +80,19 @@ def clear_calibration_cache() -> None:
     _STATS.update(setups=0, calibrations=0, reused=0)
 
 
+def _twin_device(ring):
+    """The ring's device in flux-tube mode (device notes were given when the ring was built)."""
+    if ring.device.field_mode == "flux_tube":
+        return ring.device
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return dataclasses.replace(ring.device, field_mode="flux_tube")
+
+
 def ring_fingerprint(ring) -> str:
     """SHA-256 of what fixes the ring's Hamiltonian apart from the field: the device (field mode
     set to flux tube, so a uniform-field ring shares its flux-tube twin's entry) and the seed."""
-    device = dataclasses.replace(ring.device, field_mode="flux_tube")
-    text = json.dumps([device.to_dict(), int(ring.seed)], sort_keys=True, default=repr)
+    text = json.dumps([_twin_device(ring).to_dict(), int(ring.seed)], sort_keys=True, default=repr)
     return hashlib.sha256(text.encode()).hexdigest()
 
 
@@ -99,6 +107,7 @@ def ring_calibrator(
     n_probes: int = 100,
     *,
     center: tuple[float, float] | None = None,
+    model=None,
     **calibrator_options,
 ):
     """The cached :class:`LPhiCalibrator` of ``ring`` at ``energy_t`` (units of t).
@@ -117,6 +126,9 @@ def ring_calibrator(
         Number of probes.
     center : (float, float), optional
         Probe-placement centre in lattice units (rings with more than two leads).
+    model : ringkit.transport.lowrank.FluxTubeModel, optional
+        The probe-free flux-tube model of a flux-tube ``ring`` at ``params`` if the caller
+        already has it (saves one Hamiltonian evaluation); ignored for uniform-field rings.
     **calibrator_options
         ``n_energies``, ``n_flux``, ``energies``, ``seed`` of :class:`LPhiCalibrator`.
 
@@ -145,8 +157,11 @@ def ring_calibrator(
         return _CALIBRATORS[key][0], key
     twin = ring
     if ring.field_mode != "flux_tube":
-        twin = build_ring(dataclasses.replace(ring.device, field_mode="flux_tube"), seed=ring.seed)
-    model = FluxTubeModel(twin.fsyst, params={**twin.params(), **extra})
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")  # device notes were given when `ring` was built
+            twin = build_ring(_twin_device(ring), seed=ring.seed)
+    if model is None or twin is not ring:
+        model = FluxTubeModel(twin.fsyst, params={**twin.params(), **extra})
     a = ring.lattice_spacing
     cal = LPhiCalibrator(
         model,
@@ -194,11 +209,13 @@ def realised_ring_probes(
     center: tuple[float, float] | None = None,
     tol: float = 0.03,
     max_steps: int = 4,
+    model=None,
     **calibrator_options,
 ) -> DephasingProbes:
     """Probes of ``ring`` that realise ``l_phi`` (m) on this device, from the per-process cache.
 
-    Parameters as in :func:`ring_calibrator`; ``l_phi`` in m (``inf``: zero coupling),
+    Parameters as in :func:`ring_calibrator` (``model``: the probe-free flux-tube model, if
+    already built); ``l_phi`` in m (``inf``: zero coupling),
     ``tol`` and ``max_steps`` as in :meth:`LPhiCalibrator.probes`. Out-of-range requests warn
     (:class:`~ringkit.transport.probe_calibration.CalibrationRangeWarning`, naming the range)
     every time they are served, also from the cache.
@@ -211,7 +228,7 @@ def realised_ring_probes(
         ``calibrated_on`` and ``l_phi_status``.
     """
     cal, key = ring_calibrator(
-        ring, energy_t, params, n_probes, center=center, **calibrator_options
+        ring, energy_t, params, n_probes, center=center, model=model, **calibrator_options
     )
     a = ring.lattice_spacing
     pkey = (key, repr(float(l_phi)), float(tol), int(max_steps))
