@@ -403,6 +403,30 @@ def test_bulk_build_equals_kwant_builder(field_mode, gate_arm, mobility):
     assert t1 == pytest.approx(t2, abs=1e-11)  # kwant's MUMPS/SCOTCH is not bit-reproducible
 
 
+@pytest.mark.parametrize("arm", ["upper", "lower"])
+def test_gated_model_equals_kwant_hamiltonian(arm):
+    # H(gate) = H(0) + gate P_arm, assembled by the live view, against kwant's own evaluation
+    # of the value functions (hamiltonian_submatrix) and a plain kwant.smatrix at one flux
+    from ringkit.transport.lowrank import FluxTubeModel
+    from ringkit.view.panels.explorer_live import gated_model
+
+    ring = build_ring(live_device(ExplorerParams(**SMALL, gate_arm=arm, mobility=30.0)), seed=2)
+    zero = ring.params(flux=0.0)
+    root = FluxTubeModel(ring.fsyst, params={**zero, "gate": 0.0})
+    gate = 0.37 * MEV / ring.hopping
+    model = gated_model(root, gate, ring.arm_of_site == arm)
+    ref = ring.fsyst.hamiltonian_submatrix(params={**zero, "gate": gate}, sparse=True).tocoo()
+    np.testing.assert_array_equal(model.h0.row, ref.row)
+    np.testing.assert_array_equal(model.h0.col, ref.col)
+    np.testing.assert_array_equal(model.h0.data, ref.data)  # same sums: bit for bit
+    assert np.count_nonzero(model.h0.data != root.h0.data) > 100  # the arm is gated
+    flux = 0.31 * H_OVER_E
+    t = FluxTubeSweeper(model, energy=ring.fermi_energy_lattice).transmission([flux])[0]
+    p = ring.params(flux=flux, gate=0.37 * MEV)
+    t_ref = kwant.smatrix(ring.fsyst, ring.fermi_energy_lattice, params=p).transmission(1, 0)
+    assert t == pytest.approx(t_ref, abs=1e-9)
+
+
 def test_bad_live_settings_raise_parameter_error():
     from ringkit._validation import ParameterError
 

@@ -61,6 +61,7 @@ single_thread_blas()
 from __future__ import annotations
 
 import contextlib
+import copy
 import math
 import time
 import warnings
@@ -85,6 +86,7 @@ __all__ = [
     "live_device",
     "live_flux_grid",
     "live_flux_of",
+    "gated_model",
     "single_thread_blas",
 ]
 
@@ -326,6 +328,43 @@ def live_flux_of(params: ExplorerParams, *, points_per_period: int = 64,
     return k * (PHI0 / m)
 
 
+def gated_model(root, gate: float, gated_sites: np.ndarray):
+    """The probe-free flux-tube model ``root`` (evaluated at gate 0) at arm-gate ``gate``.
+
+    The arm gate is an on-site term ``base + gate`` on the sites of the gated arm (the value
+    function of :mod:`ringkit.tightbinding`), so ``H(gate) = H(0) + gate P_arm`` entry by entry:
+    the same floating-point sum kwant evaluates, without re-evaluating the Hamiltonian or
+    re-detecting the flux cut (hoppings, cut and leads do not depend on the gate). Tested
+    against kwant's ``hamiltonian_submatrix`` (tests/test_view_live.py).
+
+    Parameters
+    ----------
+    root : FluxTubeModel
+        Without probes, built with ``params["gate"] == 0``.
+    gate : float
+        Gate potential in units of t.
+    gated_sites : ndarray of bool
+        Gated-arm mask in the system's site order.
+    """
+    import scipy.sparse as sp
+
+    if root.params.get("gate") != 0.0 or len(root.probe_sites):
+        raise ParameterError("root", root.params.get("gate"), "must be probe-free at gate 0")
+    h0 = root.h0
+    gated = np.zeros(h0.shape[0], dtype=bool)
+    for s in np.flatnonzero(gated_sites):
+        gated[root.offsets[s] : root.offsets[s + 1]] = True
+    data = h0.data.copy()
+    diag = (h0.row == h0.col) & gated[h0.row]
+    data[diag] = data[diag] + float(gate)
+    new = copy.copy(root)
+    new.h0 = sp.coo_matrix((data, (h0.row, h0.col)), shape=h0.shape)
+    new.params = {**root.params, "gate": float(gate)}
+    new._set_probes(None, None)
+    new._lu = root._lu  # same pattern: share the symbolic analysis (as ``with_probes``)
+    return new
+
+
 class _Lru(OrderedDict):
     """A small least-recently-used cache."""
 
@@ -522,11 +561,20 @@ class LiveLattice:
         from ringkit.transport.lowrank import FluxTubeModel
 
         zero = ring.params(flux=0.0)
+
+        def make():
+            gate = zero.get("gate", 0.0)
+            if gate == 0.0:
+                return FluxTubeModel(ring.fsyst, params=zero)
+            # H(gate) = H(0) + gate P_arm: derived from the model at gate 0 (cached)
+            root, _ = self._models.get_or(
+                (tuple(sorted({**zero, "gate": 0.0}.items())), None),
+                lambda: FluxTubeModel(ring.fsyst, params={**zero, "gate": 0.0}),
+            )
+            return gated_model(root, gate, ring.arm_of_site == ring.device.gate.arm)
+
         t0 = time.perf_counter()
-        model, _ = self._models.get_or(
-            (tuple(sorted(zero.items())), None),
-            lambda: FluxTubeModel(ring.fsyst, params=zero),
-        )
+        model, _ = self._models.get_or((tuple(sorted(zero.items())), None), make)
         timings["model"] += time.perf_counter() - t0
         return model
 
