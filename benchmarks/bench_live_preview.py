@@ -95,6 +95,14 @@ _CONTROL = {
 }
 
 
+def _workers() -> str:
+    try:
+        from ringkit.transport.energy_pool import thermal_workers
+    except ImportError:
+        return "none (ringkit.transport.energy_pool not available: serial)"
+    return str(thermal_workers())
+
+
 def _cpu() -> np.ndarray:
     """CPU seconds of this process and of its finished children (the energy workers)."""
     t = os.times()
@@ -191,7 +199,9 @@ def main(argv: list[str] | None = None) -> None:
         f"python {platform.python_version()}, {os.cpu_count()} cores; BLAS pools at start: "
         f"{pools}; each update limits BLAS to 1 thread (threadpoolctl); environment {env}",
         f"live thermal average: ringkit.thermal_policy.energy_average, tol {LIVE_TOL:g} e²/h, "
-        f"budget {LIVE_MAX_ENERGIES} energies (T = 0: one energy)",
+        f"budget {LIVE_MAX_ENERGIES} energies (T = 0: one energy); energy worker processes: "
+        f"{_workers()} (ringkit.transport.energy_pool.thermal_workers; forked per update when "
+        "one energy costs > MIN_SECONDS_PER_ENERGY)",
     ]
     for size in args.sizes:
         r, w = SIZES[size]
