@@ -538,3 +538,36 @@ def test_field_sweep_results_report_the_realised_l_phi():
     plain = fast_field_conductance(ring, flux, calibrate_l_phi=False, **kw)  # the opt-out
     assert np.isnan(plain.info["l_phi_realised_m"]) and "not measured" in plain.info["l_phi_status"]
     assert np.isnan(plain.info["l_phi_realised_err_m"])
+
+
+def test_amplitude_statistics_report_the_realised_l_phi_of_every_realization():
+    # issue 15.1 for ensembles: every realization is calibrated on its own lattice (default);
+    # the statistics carry the realised L_phi per seed and its distribution
+    from ringkit.analysis.ensemble_stats import StoppingRule
+    from ringkit.device import Material, RingDevice, RingGeometry
+    from ringkit.transport.amplitude_stats import amplitude_statistics
+    from ringkit.transport.ensemble import SerialExecutor
+    from ringkit.units import PHI0
+
+    dev = RingDevice(
+        Material.preset("GaAs", temperature=0.3),
+        RingGeometry.from_mean_radius(0.1e-6, 0.03e-6),
+        field_mode="flux_tube",
+    )
+    l_phi = 0.25e-6  # pi r/L_phi = 1.26, inside the validated range
+    flux = np.arange(48) / 12 * PHI0  # four h/e periods, 12 points per period
+    res = amplitude_statistics(
+        dev, flux, l_phi=l_phi, n_probes=24, rule=StoppingRule.fixed(5), executor=SerialExecutor()
+    )
+    real = res.diagnostics["l_phi_realised_m"]
+    err = res.diagnostics["l_phi_realised_err_m"]
+    assert real.shape == (5,) and np.all(np.isfinite(real)) and np.all(err > 0)
+    # secant tolerance 3 %, or 3 bootstrap errors when the secant stops early (docs/probes.md)
+    assert np.all(np.abs(real - l_phi) <= np.maximum(0.031 * l_phi, 3 * err)), (real, err)
+    info = res.info
+    assert info["l_phi_realised_q16_m"] <= info["l_phi_realised_median_m"]
+    assert info["l_phi_realised_median_m"] <= info["l_phi_realised_q84_m"]
+    assert info["l_phi_status"].startswith("measured on each realization")
+    ds = res.to_dataset()
+    assert np.array_equal(ds["l_phi_realised_m"].values, real)
+    assert ds.attrs["l_phi_realised_n"] == 5

@@ -52,7 +52,13 @@ __all__ = [
 ]
 
 #: Trailing columns of a RingAmplitudeTask row after G(B).
-INFO_COLUMNS = ("thermal_error_he", "thermal_error_h2e", "n_energies")
+INFO_COLUMNS = (
+    "thermal_error_he",
+    "thermal_error_h2e",
+    "n_energies",
+    "l_phi_realised_m",
+    "l_phi_realised_err_m",
+)
 
 
 @dataclass(frozen=True, eq=False)
@@ -62,7 +68,9 @@ class RingAmplitudeTask:
     ``task(seed)`` builds the ring (:func:`ringkit.tightbinding.build_ring`) and runs
     :func:`ringkit.transport.sweep.fast_field_conductance`; the row is G over ``fields``
     followed by :data:`INFO_COLUMNS` (estimated thermal error of the h/e and h/2e rms in
-    e^2/h, number of energies). Picklable; ``describe()`` fingerprints the checkpoint.
+    e^2/h, number of energies, and the L_phi the probes realise on this realization with its
+    error, in m: inf/0 without dephasing, NaN with ``calibrate_l_phi=False``). Picklable;
+    ``describe()`` fingerprints the checkpoint.
     """
 
     device: object
@@ -72,8 +80,10 @@ class RingAmplitudeTask:
     energy: float | None = None
     n_probes: int = 100
     thermal_tol: float = 1e-4
+    calibrate_l_phi: bool = True
 
     n_info = len(INFO_COLUMNS)
+    info_columns = INFO_COLUMNS
 
     def __post_init__(self) -> None:
         vals = np.asarray(self.fields, dtype=float)
@@ -100,9 +110,10 @@ class RingAmplitudeTask:
             l_phi=self.l_phi,
             n_probes=self.n_probes,
             thermal_tol=self.thermal_tol,
+            calibrate_l_phi=self.calibrate_l_phi,
         )
         info = res.info
-        extra = [info["thermal_error_he"], info["thermal_error_h2e"], info["n_energies"]]
+        extra = [info[c] for c in INFO_COLUMNS]
         return np.concatenate([np.asarray(res.conductance, dtype=float), extra])
 
     def describe(self) -> dict:
@@ -117,6 +128,8 @@ class RingAmplitudeTask:
             "energy_J": repr(self.fermi_energy),
             "n_probes": int(self.n_probes),
             "thermal_tol": repr(float(self.thermal_tol)),
+            "calibrate_l_phi": bool(self.calibrate_l_phi),
+            "row_layout": ["G(fields)", *INFO_COLUMNS],
         }
 
 
@@ -146,7 +159,12 @@ class AmplitudeStatistics:
         ``noise_floor``, ``p``, ``low``, ``high``, ``confidence``: probability that the h/e rms
         exceeds the noise floor, with the Wilson interval.
     info : dict
-        Task description, rule, thermal diagnostics, timing, notes of the extraction.
+        Task description, rule, thermal diagnostics, timing, notes of the extraction, and the
+        distribution of the realised L_phi (``l_phi_realised_median_m``, ``..._q16_m``,
+        ``..._q84_m``, ``l_phi_realised_err_median_m``) when the task reports it.
+    diagnostics : dict
+        Per-realization diagnostic columns of the task by name (arrays over ``seeds``), e.g.
+        ``l_phi_realised_m`` and ``l_phi_realised_err_m``.
     """
 
     seeds: np.ndarray
@@ -162,6 +180,7 @@ class AmplitudeStatistics:
     history: list
     exceedance: dict | None = None
     info: dict = field(default_factory=dict)
+    diagnostics: dict = field(default_factory=dict)
 
     def quantile(self, column: str, q: float) -> tuple[float, float]:
         """(value, bootstrap error) of one column (``amplitude_he_rms``...) at probability q."""
@@ -177,6 +196,8 @@ class AmplitudeStatistics:
             "G": (("seed", "field"), self.traces),
             **{c: (("seed",), self.samples[:, j]) for j, c in enumerate(AMPLITUDE_COLUMNS)},
         }
+        for name, col in self.diagnostics.items():
+            data[name] = (("seed",), np.asarray(col, dtype=float))
         for j, c in enumerate(AMPLITUDE_COLUMNS):
             data[f"{c}_quantile"] = (("quantile",), self.quantiles[j])
             data[f"{c}_quantile_err"] = (("quantile",), self.quantile_errors[j])
@@ -319,11 +340,17 @@ def ensemble_statistics(
         "n_extraction_notes": len(notes),
         "extraction_notes": "\n".join(notes[:20]),
     }
+    diagnostics = {}
     if n_info:
         diag = vals[:, vals.shape[1] - n_info :]
-        info["thermal_error_he_max"] = float(np.max(diag[:, 0]))
-        info["thermal_error_h2e_max"] = float(np.max(diag[:, 1]))
-        info["n_energies_median"] = float(np.median(diag[:, 2]))
+        names = tuple(getattr(task, "info_columns", ()))
+        if len(names) == n_info:
+            diagnostics = {c: diag[:, j] for j, c in enumerate(names)}
+        if n_info >= 3:
+            info["thermal_error_he_max"] = float(np.max(diag[:, 0]))
+            info["thermal_error_h2e_max"] = float(np.max(diag[:, 1]))
+            info["n_energies_median"] = float(np.median(diag[:, 2]))
+        info.update(_realised_summary(diagnostics))
     return AmplitudeStatistics(
         seeds=np.arange(seed0, seed0 + n, dtype=np.int64),
         field=fld,
@@ -338,7 +365,31 @@ def ensemble_statistics(
         history=history,
         exceedance=exc,
         info=info,
+        diagnostics=diagnostics,
     )
+
+
+def _realised_summary(diag: dict) -> dict:
+    """Distribution of the realised L_phi over the realizations (m): median, 16 and 84 %
+    quantiles, median error, and the status (measured, not measured, no dephasing)."""
+    if "l_phi_realised_m" not in diag:
+        return {}
+    val = np.asarray(diag["l_phi_realised_m"], float)
+    err = np.asarray(diag.get("l_phi_realised_err_m", np.full_like(val, np.nan)), float)
+    if np.all(np.isinf(val)):
+        return {"l_phi_status": "no dephasing"}
+    if np.all(np.isnan(val)):
+        return {"l_phi_status": "not measured (calibrate_l_phi=False)"}
+    ok = np.isfinite(val)
+    q16, q50, q84 = np.quantile(val[ok], [0.16, 0.5, 0.84])
+    return {
+        "l_phi_realised_median_m": float(q50),
+        "l_phi_realised_q16_m": float(q16),
+        "l_phi_realised_q84_m": float(q84),
+        "l_phi_realised_err_median_m": float(np.median(err[ok])),
+        "l_phi_realised_n": int(ok.sum()),
+        "l_phi_status": "measured on each realization (docs/probes.md 'Realised L_phi')",
+    }
 
 
 def _radii(device) -> tuple[float, float, float]:
@@ -355,6 +406,7 @@ def amplitude_statistics(
     energy: float | None = None,
     n_probes: int = 100,
     thermal_tol: float = 1e-4,
+    calibrate_l_phi: bool = True,
     **kwargs,
 ) -> AmplitudeStatistics:
     """Amplitude statistics of a ringkit device at T and L_phi over a field window.
@@ -371,13 +423,19 @@ def amplitude_statistics(
         Phase-coherence length in m (dephasing probes; None: coherent).
     energy : float, optional
         Fermi energy in J (default: the material's).
-    n_probes, thermal_tol
-        As in :func:`ringkit.transport.sweep.fast_field_conductance`.
+    n_probes, thermal_tol, calibrate_l_phi
+        As in :func:`ringkit.transport.sweep.fast_field_conductance` (the realised L_phi of
+        every realization is in ``diagnostics`` and its distribution in ``info``).
     **kwargs
         Of :func:`ensemble_statistics` (rule, quantiles, seed0, noise_floor, executor, ...).
     """
     task = RingAmplitudeTask(device, tuple(np.asarray(fields, float)), temperature, l_phi, energy)
-    task = dataclasses.replace(task, n_probes=int(n_probes), thermal_tol=float(thermal_tol))
+    task = dataclasses.replace(
+        task,
+        n_probes=int(n_probes),
+        thermal_tol=float(thermal_tol),
+        calibrate_l_phi=bool(calibrate_l_phi),
+    )
     r_in, r_mean, r_out = _radii(device)
     fld = np.asarray(task.fields)
     if device.field_mode == "flux_tube":
