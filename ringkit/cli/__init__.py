@@ -21,7 +21,7 @@ from ringkit._version import __version__
 
 __all__ = ["main", "UserError", "COMMANDS"]
 
-COMMANDS: tuple[str, ...] = ("demo", "study", "example_config", "analyze")
+COMMANDS: tuple[str, ...] = ("demo", "study", "example_config", "analyze", "fit")
 
 
 class UserError(Exception):
