@@ -283,3 +283,110 @@ def test_explorer_full_computation_uses_the_same_policy():
     # same device, same policy: the same energies and the same G (values exact to 1e-10)
     assert ds.attrs["n_energies"] == full.energies.size
     np.testing.assert_allclose(ds["G"].values, full.conductance, rtol=0, atol=1e-9)
+
+
+# QUADPACK Gauss-Kronrod 7/15 table (Piessens, de Doncker-Kapenga, Ueberhuber, Kahaner,
+# QUADPACK, Springer 1983, routine QK15): positive nodes, Kronrod weights, Gauss weights
+_QK15_XGK = [
+    0.991455371120812639206854697526329,
+    0.949107912342758524526189684047851,
+    0.864864423359769072789712788640926,
+    0.741531185599394439863864773280788,
+    0.586087235467691130294144838258730,
+    0.405845151377397166906606412076961,
+    0.207784955007898467600689403773245,
+    0.0,
+]
+_QK15_WGK = [
+    0.022935322010529224963732008058970,
+    0.063092092629978553290700663189204,
+    0.104790010322250183839876322541518,
+    0.140653259715525918745189590510238,
+    0.169004726639267902826583426598550,
+    0.190350578064785409913256402421014,
+    0.204432940075298892414161999234649,
+    0.209482141084727828012999174891714,
+]
+_QK15_WG = [
+    0.129484966168869693270611432679082,
+    0.279705391489276667901467771423780,
+    0.381830050505118944950369775488975,
+    0.417959183673469387755102040816327,
+]
+
+
+def test_kronrod_rules_against_quadpack_scipy_and_monomials():
+    from ringkit.gauss_kronrod import kronrod_rule
+
+    x, wk, wg = kronrod_rule(7)
+    np.testing.assert_allclose(x[7:][::-1], _QK15_XGK, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(wk[7:][::-1], _QK15_WGK, rtol=0, atol=1e-15)
+    np.testing.assert_allclose(wg[7:][::-1][1::2], _QK15_WG, rtol=0, atol=1e-15)
+    # 10/21 against the table inside scipy.integrate.quad_vec (one interval, no subdivision)
+    x, wk, wg = kronrod_rule(10)
+
+    def f(t):
+        return np.exp(t) * np.cos(3 * t)
+
+    val = integrate.quad_vec(f, -1, 1, quadrature="gk21", epsabs=10.0, limit=1)[0]
+    assert float(wk @ f(x)) == pytest.approx(val, abs=2e-15)
+    # claimed degrees, on Legendre polynomials (closed form: integral of P_d over [-1, 1] is
+    # 2 for d = 0, else 0): Kronrod exact to 3n+1, Gauss to 2n-1, and not beyond
+    for n in (5, 7, 10, 15, 20):
+        x, wk, wg = kronrod_rule(n)
+        assert x.size == 2 * n + 1 and np.all(np.diff(x) > 0) and np.all(wk > 0)
+        p = np.polynomial.legendre.legvander(x, 3 * n + 3).T  # rows P_0 .. P_{3n+3}
+        exact = np.zeros(3 * n + 4)
+        exact[0] = 2.0
+        assert np.max(np.abs(p[: 3 * n + 2] @ wk - exact[: 3 * n + 2])) < 1e-14
+        assert np.max(np.abs(p[: 2 * n] @ wg - exact[: 2 * n])) < 1e-14
+        first = 3 * n + 2 + (3 * n) % 2  # the first even degree above 3n+1
+        assert abs(p[first] @ wk) > 1e-5 and abs(p[2 * n] @ wg) > 1e-5
+    with pytest.raises(ParameterError, match="n"):
+        kronrod_rule(0)
+
+
+def test_disordered_ring_at_2k_is_not_fooled():
+    # docs/thermal.md ("Rejected"): a nested-trapezoid estimate said 7.6e-5 here for a true
+    # error of 1.05e-3; reference: quad_vec of direct values (see _engine_quad)
+    ring = _ring2d()
+    fluxes = np.array([0.0, 0.5]) * PHI0
+    ds = field_sweep(ring, fluxes, temperature=2.0)
+    true = np.abs(ds["G"].values - _engine_quad(ring, fluxes, 2.0))
+    assert true.max() + 2e-5 <= ds.attrs["thermal_error_estimate"] <= 1e-4
+
+
+def test_energies_of_a_round_in_parallel_workers_equal_serial():
+    from ringkit.transport.energy_pool import EnergyPool, thermal_workers
+    from ringkit.transport.lowrank import FluxTubeSweeper
+
+    ring = _ring2d()
+    fluxes = np.linspace(0, 1, 8, endpoint=False) * PHI0
+    sw = FluxTubeSweeper(ring.fsyst, energy=ring.fermi_energy_lattice, params=ring.params())
+    kt = K_B * 1.0 / ring.hopping
+    calls = []
+    results = []
+    for workers in (1, 2):
+        with EnergyPool(sw, fluxes, workers=workers, min_seconds=0.0) as pool:
+
+            def batch(energies, pool=pool):
+                calls.append(len(energies))
+                return pool(energies)
+
+            res = energy_average(batch, sw.energy, kt, tol=5e-4, bound=2.0, batched=True)
+            assert pool.used_workers == workers
+        results.append(res)
+    serial, parallel = results
+    assert np.array_equal(serial.energies, parallel.energies)
+    np.testing.assert_allclose(parallel.value, serial.value, rtol=0, atol=1e-12)
+    # the policy asks for whole rounds: far fewer calls than energies
+    assert len(calls) <= 2 * 8 and sum(calls) == serial.n_energies + parallel.n_energies
+    # the per-energy values are those of a sweeper at that energy (kwant-checked elsewhere)
+    e = float(serial.energies[3])
+    row = sw.at_energy(e).conductance(fluxes)
+    with EnergyPool(sw, fluxes, workers=2, min_seconds=0.0) as pool:
+        np.testing.assert_allclose(pool([e, serial.energies[5]])[0], row, rtol=0, atol=1e-12)
+    assert thermal_workers(3) == 3
+    for bad in (0, -1, 1.5, True):
+        with pytest.raises(ParameterError, match="workers"):
+            thermal_workers(bad)

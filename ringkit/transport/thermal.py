@@ -11,7 +11,8 @@ Public API
 ----------
 thermal_average(func, mu, temperature, *, energy_unit=1.0, tol=1e-4, method="adaptive", ...)
     -> EnergyAverage (``value``, ``errors``, ``error``, ``n_energies``, ``energies``, ...)
-thermal_conductance(sweeper, values, temperature, **options) -> EnergyAverage
+thermal_conductance(sweeper, values, temperature, *, workers=None, **options) -> EnergyAverage
+    Energies of each refinement round in parallel processes (:mod:`ringkit.transport.energy_pool`).
 thermal_weights(mu, temperature, ...) -> ThermalGrid
     The former uniform grid (spacing ``min(k_B T, E_c/4)``), kept for comparisons and old
     scripts; it carries no error estimate and is not used by ringkit itself.
@@ -158,20 +159,22 @@ def thermal_average(
     return energy_average(func, mu, kt, tol=tol, method=method, spacing=spacing, **options)
 
 
-def thermal_conductance(sweeper, values, temperature: float, **options) -> EnergyAverage:
+def thermal_conductance(
+    sweeper, values, temperature: float, *, workers: int | None = None, **options
+) -> EnergyAverage:
     """Thermally averaged :meth:`conductance` of a sweeper over ``values``.
 
     The sweeper's energy is the chemical potential; one sweeper per energy is made with
-    ``sweeper.at_energy(E)`` (the field model is shared). ``options`` as in
+    ``sweeper.at_energy(E)`` (the field model is shared). The energies of each refinement round
+    are evaluated by :class:`ringkit.transport.energy_pool.EnergyPool` in ``workers`` processes
+    (default: ``RINGKIT_THERMAL_WORKERS`` or the usable cores, at most 4; serial for cheap
+    energies); the result does not depend on the number of workers. ``options`` as in
     :func:`thermal_average`.
     """
-    mu = sweeper.energy
+    from ringkit.transport.energy_pool import EnergyPool
 
-    def at(e: float) -> np.ndarray:
-        sw = sweeper if e == mu else sweeper.at_energy(e)
-        return sw.conductance(values)
-
-    return thermal_average(at, mu, temperature, **options)
+    with EnergyPool(sweeper, values, workers=workers) as pool:
+        return thermal_average(pool, sweeper.energy, temperature, batched=True, **options)
 
 
 def thouless_energy(
