@@ -419,12 +419,15 @@ class _Pool:
 
             # one energy here: its sweeper is the template the workers inherit (the pool
             # times its first energy to choose serial or parallel: give it a new one)
+            t0 = time.perf_counter()
             sweeper, _ = self.sweeper_of(todo[0])
             self.view._values(self.sweeper_of, self.mkey, todo[0], self.m, self.residues,
                               self.probes, self.timings)  # fmt: skip
             todo = todo[1:]
             self._pool = EnergyPool(sweeper, self.residues * (PHI0 / self.m),
                                     workers=self.workers)  # fmt: skip
+            # the cost of one energy is known now: the pool need not time another one serially
+            self._pool.seconds_per_energy = time.perf_counter() - t0
         done = 0
         step = 2 * self.workers
         for i in range(0, len(todo), step):
