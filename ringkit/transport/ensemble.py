@@ -347,7 +347,10 @@ class SweepTask:
     params : dict, optional
         Other kwant parameters.
     probes : callable, optional
-        ``probes(fsyst) -> DephasingProbes`` (picklable), for dephasing.
+        ``probes(fsyst) -> DephasingProbes`` (picklable), for dephasing. The task returns G
+        only; for ringkit rings use :class:`ringkit.transport.amplitude_stats.
+        RingAmplitudeTask`, whose rows also carry the L_phi the probes realise on each
+        realization (probes calibrated per device, docs/probes.md "Realised L_phi").
     method : str
         FieldSweeper method.
 

@@ -40,7 +40,9 @@ with ``L = path_length(r, 1) = pi r``.
 * :func:`ringkit.transport.probe_calibration.calibrate_probes` measures the realised L_phi on
   the device itself (h/e damping over an energy window, bootstrap error) and adjusts eta by
   secant steps; its probes carry ``l_phi_realised`` and ``l_phi_realised_err``.
-  ``attach_probes(..., calibrate=True)`` calls it (flux-tube systems).
+  ``attach_probes(..., calibrate=True)`` calls it (flux-tube systems). ringkit's sweeps,
+  studies and ensembles calibrate by default (:func:`ringkit.transport.sweep.ring_probes`,
+  cached per device: :mod:`ringkit.transport.realised_l_phi`).
 
 Public API
 ----------

@@ -3,9 +3,13 @@
 API
 ---
 fast_field_conductance(ring, fields, *, energy, gate=None, temperature=0.0, l_phi=None,
-                       n_probes=100, thermal_tol=1e-4, thermal_method="adaptive")
-    -> FastSweepResult
-    Two-terminal G [e^2/h] (spin-degenerate) over a field sweep.
+                       n_probes=100, thermal_tol=1e-4, thermal_method="adaptive",
+                       calibrate_l_phi=True) -> FastSweepResult
+    Two-terminal G [e^2/h] (spin-degenerate) over a field sweep (``fields``: the values of
+    the ring's field parameter, T or Wb; :func:`ringkit.transport.field_sweep` has the
+    explicit ``fields=``/``fluxes=`` keywords).
+ring_probes(ring, l_phi, energy_t, params, n_probes, *, center=None, calibrate=True)
+    The dephasing probes every ringkit sweep uses (calibrated on the device by default).
 
 Which solver
 ------------
