@@ -237,3 +237,20 @@ def test_field_or_flux_keywords_name_the_mode():
     keyword = field_sweep(tube, fluxes=flux)
     assert np.array_equal(field_sweep(tube, flux)["G"].values, keyword["G"].values)
     assert "flux" in keyword.coords and keyword["flux"].attrs["units"] == "Wb"
+
+
+def test_failed_calibration_falls_back_with_a_warning_and_says_not_measured(monkeypatch):
+    from ringkit._validation import ParameterError
+    from ringkit.transport import realised_l_phi
+
+    def fail(*args, **kwargs):
+        raise ParameterError("l_phi", 1.0, "the probes do not damp the h/e amplitude here")
+
+    monkeypatch.setattr(realised_l_phi, "realised_ring_probes", fail)
+    ring = _gaas("flux_tube")
+    flux = np.linspace(0, 1, 8, endpoint=False) * PHI0
+    with pytest.warns(realised_l_phi.LPhiNotMeasuredWarning, match="calibration failed"):
+        ds = field_sweep(ring, fluxes=flux, l_phi=L_PHI, n_probes=24)
+    assert math.isnan(ds.attrs["l_phi_realised_m"])
+    assert ds.attrs["l_phi_status"].startswith("not measured: the calibration failed")
+    assert ds.attrs["n_probes"] == 24 and ds.attrs["probe_eta"] > 0  # still dephased

@@ -20,7 +20,8 @@ raised the first time). :func:`cache_info` counts set-ups, calibrations and reus
 Public API
 ----------
 ring_fingerprint, ring_calibrator, realised_ring_probes, realised_l_phi_info,
-cache_info, clear_calibration_cache, STATUS_MEASURED, STATUS_NOT_MEASURED, CACHE_SIZE
+cache_info, clear_calibration_cache, STATUS_MEASURED, STATUS_NOT_MEASURED, CACHE_SIZE,
+LPhiNotMeasuredWarning
 """
 
 from __future__ import annotations
@@ -40,6 +41,7 @@ from ringkit.transport.probes import DephasingProbes
 
 __all__ = [
     "CACHE_SIZE",
+    "LPhiNotMeasuredWarning",
     "STATUS_MEASURED",
     "STATUS_NOT_MEASURED",
     "ring_fingerprint",
@@ -58,6 +60,11 @@ STATUS_NOT_MEASURED = (
     "not measured (calibrate_l_phi=False): probe coupling from the analytic estimate, whose "
     "realised L_phi varies 0.7-2.1x between devices (docs/probes.md)"
 )
+
+
+class LPhiNotMeasuredWarning(UserWarning):
+    """The probe coupling could not be calibrated on this device (analytic coupling used)."""
+
 
 _SI_KEYS = ("l_phi_requested", "l_phi_realised", "l_phi_realised_err", "path_length", "radius")
 _CALIBRATORS: OrderedDict = OrderedDict()  # key -> (calibrator, twin ring)

@@ -33,6 +33,7 @@ device so that they realise the requested ``l_phi`` (:func:`ring_probes`,
 from __future__ import annotations
 
 import math
+import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -127,15 +128,23 @@ def ring_probes(
     (:func:`ringkit.transport.realised_l_phi.realised_ring_probes`, cached per process);
     ``calibrate=False`` gives the analytic estimate
     (:func:`ringkit.transport.probes.attach_probes`), whose realised L_phi is not measured.
+    If the calibration is impossible on the device (ParameterError, e.g. no h/e amplitude to
+    damp), the analytic coupling is used with a :class:`LPhiNotMeasuredWarning` and the status
+    says why.
     ``center`` (lattice units) as in :func:`ringkit.transport.probes.ring_probe_sites`.
     """
     l_phi = check_l_phi(l_phi, ring.lattice_spacing)
     if l_phi is None:
         return None
+    status = STATUS_NOT_MEASURED
     if calibrate:
-        from ringkit.transport.realised_l_phi import realised_ring_probes
+        from ringkit.transport.realised_l_phi import LPhiNotMeasuredWarning, realised_ring_probes
 
-        return realised_ring_probes(ring, l_phi, energy_t, params, int(n_probes), center=center)
+        try:
+            return realised_ring_probes(ring, l_phi, energy_t, params, int(n_probes), center=center)
+        except ParameterError as err:  # e.g. no h/e amplitude to damp on this device
+            status = f"not measured: the calibration failed ({err}); analytic probe coupling"
+            warnings.warn(f"L_phi = {l_phi:.4g} m: {status}", LPhiNotMeasuredWarning, stacklevel=3)
     probes = attach_probes(
         ring.fsyst,
         l_phi=l_phi,
@@ -146,7 +155,7 @@ def ring_probes(
         zero_field={ring.field_param: 0.0},
         center=center,
     )
-    probes.info["l_phi_status"] = STATUS_NOT_MEASURED
+    probes.info["l_phi_status"] = status
     return probes
 
 
