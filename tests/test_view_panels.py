@@ -17,7 +17,7 @@ import pytest
 from scipy import constants
 
 from ringkit.analysis.network1d import ring_transmission
-from ringkit.view.panels import DeviceExplorer, MeasuredDataPanel, SizeScalingPanel
+from ringkit.view.panels import DeviceExplorer, MeasuredDataPanel
 from ringkit.view.panels._base import BackgroundJob, JobCancelled
 from ringkit.view.panels.explorer import ExplorerParams
 
@@ -319,49 +319,7 @@ def test_measured_demo_is_labelled():
 # --------------------------------------------------------------------------- size scaling
 
 
-def test_scaling_panel_model_lines():
-    panel = SizeScalingPanel()
-    c = panel.controls
-    c["temperature"].value = 10 ** c["temperature"].min  # 1 mK: no thermal reduction left
-    c["l_phi"].value = 2.0
-
-    def raw_he():  # the drawn line, before the smooth bound by G (docs/amplitude-model.md)
-        a = np.asarray(panel.artists["he"].get_ydata()).copy()
-        cap = panel.dataset["conductance"].values / np.sqrt(2)
-        return a / np.sqrt(1 - (a / cap) ** 2)
-
-    he = raw_he()
-    r = np.asarray(panel.artists["he"].get_xdata()) * 1e-6
-    c["l_phi"].value = 1.0
-    he2 = raw_he()
-    # exp(-pi r/L_phi) (ringkit.conventions): the ratio does not depend on the thermal factor
-    np.testing.assert_allclose(he2 / he, np.exp(-np.pi * r / 1e-6 + np.pi * r / 2e-6), rtol=1e-9)
-    c["n_averaged"].value = 4
-    np.testing.assert_allclose(raw_he(), he2 / 2, rtol=1e-9)  # N^-1/2
-    c["radius"].value = (0.5, 3.0)
-    x = np.asarray(panel.artists["he"].get_xdata())
-    assert x[0] == pytest.approx(0.5) and x[-1] == pytest.approx(3.0)
-    png = panel.pane.image.value
-    c["radius"].value = (2.0, 2.0)
-    assert "r_max" in panel.message.value and panel.pane.image.value == png
-
-
-def test_scaling_panel_simulated_points_and_calibration():
-    panel = SizeScalingPanel()
-    panel.sim_radii.value = "0.12, 0.2"
-    panel.sim_seeds.value = 2
-    panel.sim_width.value = 40.0
-    job = panel.run_simulation()
-    assert job.wait(timeout=240) and job.error is None, job.error
-    ds = panel.dataset
-    np.testing.assert_allclose(ds["sim_radius"].values, [0.12e-6, 0.2e-6])
-    assert np.all(ds["sim_amplitude_he_rms"].values > 0)
-    drawn = [c for c in panel.ax.containers]  # errorbar containers of the simulated points
-    assert len(drawn) == 2
-    panel.apply_calibration()
-    ds = panel.dataset
-    ratio = ds["sim_amplitude_he_rms"].values / ds["model_amplitude_he_rms_at_sim"].values
-    assert np.mean(np.log(ratio)) == pytest.approx(0.0, abs=1e-3)
+# the size-scaling panel's bands, fitted law and controls: tests/test_view_scaling.py
 
 
 def test_simulated_points_same_on_engine_ensemble():

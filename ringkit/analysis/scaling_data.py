@@ -59,6 +59,10 @@ class SizeFamily:
         ``"flux_tube"`` (flux through the hole only) or ``"uniform"``.
     periods, points_per_period : int
         Flux window: ``periods`` h/e periods, ``points_per_period`` points each.
+    calibrate_l_phi : bool
+        Probe coupling calibrated on each ring so that it realises ``l_phi`` (ringkit's
+        default), or the analytic estimate (False; the realised L_phi is then only known from
+        the law fit through the bands).
     """
 
     material: str = "GaAs"
@@ -70,6 +74,7 @@ class SizeFamily:
     field_mode: str = "flux_tube"
     periods: int = 5
     points_per_period: int = 12
+    calibrate_l_phi: bool = True
 
     def material_obj(self):
         """The :class:`ringkit.device.Material` preset."""
@@ -124,6 +129,7 @@ class SizeFamily:
             "temperature_K": float(self.temperature),
             "l_phi_m": float(self.l_phi),
             "field_mode": self.field_mode,
+            "probe_coupling": "calibrated" if self.calibrate_l_phi else "analytic",
         }
 
     def describe(self) -> str:
@@ -135,7 +141,9 @@ class SizeFamily:
         return (
             f"{self.material} ({dens}, mobility {mob}, l = {k['mean_free_path_m'] * 1e6:.3g} um), "
             f"arms {self.width * 1e9:.0f} nm, T = {self.temperature:g} K, "
-            f"L_phi = {self.l_phi * 1e6:g} um, radii {radii} um, {self.field_mode} field"
+            f"dephasing probes ({k['probe_coupling']} coupling) set for L_phi = "
+            f"{self.l_phi * 1e6:g} um, radii {radii} um, "
+            f"{self.field_mode} field"
         )
 
 
@@ -160,6 +168,12 @@ def size_dataset_from_result(result: dict, family: SizeFamily, *, versions=None)
         "seed0": [int(s.info.get("seed0", 0)) for s in stats],
         "wall_time_s": [float(s.info.get("wall_time_s", float("nan"))) for s in stats],
         "n_energies_median": [float(s.info.get("n_energies_median", 1)) for s in stats],
+        # realised L_phi of calibrated probes per radius (median over realizations; NaN -> null
+        # when the coupling was not calibrated)
+        "l_phi_realised_median_m": _jsonable(
+            [float(s.info.get("l_phi_realised_median_m", float("nan"))) for s in stats]
+        ),
+        "l_phi_status": [str(s.info.get("l_phi_status", "not recorded")) for s in stats],
         "fit": _jsonable(result.get("fit")),
         "fit_error": result.get("fit_error"),
         "versions": versions or {},

@@ -115,6 +115,7 @@ def family_vs_radius(family, rule, **kwargs) -> dict:
         lambda dev: family.fluxes(),
         temperature=family.temperature,
         l_phi=family.l_phi,
+        calibrate_l_phi=family.calibrate_l_phi,
         rule=rule,
         fit_kwargs=family.fit_kwargs(),
         **kwargs,

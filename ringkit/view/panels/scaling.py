@@ -53,9 +53,14 @@ class ScalingParams:
     n_averaged : int
         Independent samples averaged (series array / ensemble mean).
     coherent_amplitude, aas_amplitude : float
-        Model prefactors in e^2/h.
+        Typed model prefactors in e^2/h, used only with ``override_prefactors`` (advanced);
+        otherwise the law uses the prefactors fitted to the simulated size dataset.
     dimension : {2, 3}
         2 for a 2DEG, 3 for a metal film (``D = v_F l/d``).
+    width : float
+        Arm width in m (simulated bands: rings of this width).
+    override_prefactors : bool
+        Draw the law with the typed prefactors instead of the fitted ones.
     """
 
     material: str = "GaAs"
@@ -69,6 +74,8 @@ class ScalingParams:
     coherent_amplitude: float = 1.0
     aas_amplitude: float = 1.0
     dimension: int = 2
+    width: float = 120e-9
+    override_prefactors: bool = False
 
     def __post_init__(self) -> None:
         check_choice("material", self.material, ("GaAs", "InAs", "Au"))
@@ -81,6 +88,7 @@ class ScalingParams:
             raise ParameterError("r_max", self.r_max, f"must be > r_min = {self.r_min:g} m", "m")
         if int(self.n_radius) != self.n_radius or self.n_radius < 2:
             raise ParameterError("n_radius", self.n_radius, "must be an integer >= 2")
+        check_positive("width", self.width, "m")
 
     def updated(self, **changes: Any) -> ScalingParams:
         """Copy with fields replaced (validated)."""
@@ -108,10 +116,11 @@ class ScalingParams:
         return np.geomspace(self.r_min, self.r_max, int(self.n_radius))
 
 
-def scaling_curves(params: ScalingParams, simulated: Any = None):
+def scaling_curves(params: ScalingParams, simulated: Any = None, *, n_modes: int = 1):
     """Model curves (and simulated points) as an xarray Dataset.
 
-    See :func:`ringkit.analysis.scaling.predict_amplitudes` for the variables.
+    See :func:`ringkit.analysis.scaling.predict_amplitudes` for the variables; ``n_modes``
+    open modes per arm.
     """
     from ringkit.analysis.scaling import predict_amplitudes
 
@@ -126,6 +135,7 @@ def scaling_curves(params: ScalingParams, simulated: Any = None):
         coherent_amplitude=params.coherent_amplitude,
         aas_amplitude=params.aas_amplitude,
         n_averaged=params.n_averaged,
+        n_modes=n_modes,
         simulated=simulated,
     )
 

@@ -1,0 +1,176 @@
+"""Amplitude versus ring radius from simulated ensembles: the size-scaling panel's dataset.
+
+Issue 13 point 5. Device family: GaAs preset (3e11 cm^-2, mobility 4 m^2/(V s), Born mean free
+path ~0.36 um), 120 nm arms, mean radii 0.3, 0.4, 0.5, 0.7, 1.0 um, flux-tube mode (flux
+through the hole only: exact low-rank flux sweeps, G strictly h/e periodic), 60 flux points
+over five h/e periods, T = 0 and L_phi = 2 um (dephasing probes, analytic coupling). T = 0:
+at T > 0 the thermal policy needs ~180 energies per realization (44 s for the 0.5 um ring,
+several minutes under the shared machine's load), so the bands are computed at T = 0 and the
+temperature enters through the fitted law's thermal factor (docs/amplitude-model.md).
+
+The ensemble grows in rounds (ROUNDS realizations per radius, all radii per round), each
+through ringkit.transport.amplitude_size.amplitude_vs_radius on a 2-worker process pool with
+one BLAS thread per worker and a per-radius checkpoint, so an interrupted run resumes and a
+rerun with the same round reloads everything (seconds). After every round it writes
+
+* benchmarks/RESULTS-amplitude-size.md (quantile table, fit, timing with load average);
+* ringkit/data/amplitude_size_gaas.json (compact dataset shown by the size-scaling panel,
+  ringkit.analysis.scaling_data.load_size_dataset).
+
+Run from the repository root (optionally the last round to run, e.g. 64):
+    OPENBLAS_NUM_THREADS=1 .venv/bin/python benchmarks/bench_amplitude_size.py [N_MAX]
+Rebuild the outputs of round N from the checkpoints only (no computation):
+    .venv/bin/python benchmarks/bench_amplitude_size.py --assemble N
+Environment: RINGKIT_BENCH_CKPT (checkpoint directory, default /tmp/ringkit-bench-amplitude-size).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import platform
+import sys
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+
+from ringkit.analysis.ensemble_stats import StoppingRule
+from ringkit.analysis.scaling_data import SIZE_DATASET_PATH, SizeFamily, size_dataset_from_result
+from ringkit.transport.amplitude_size import family_vs_radius, radius_checkpoint
+from ringkit.transport.ensemble import default_executor
+
+ROOT = Path(__file__).resolve().parent
+OUT = ROOT / "RESULTS-amplitude-size.md"
+CKPT = Path(os.environ.get("RINGKIT_BENCH_CKPT", "/tmp/ringkit-bench-amplitude-size"))
+ROUNDS = (16, 32, 64, 96, 128, 192, 256)
+# the shipped dataset was computed with the analytic probe coupling (code of commit 1a75c3e,
+# before per-device calibration was ringkit's default)
+FAMILY = SizeFamily(calibrate_l_phi=False)
+
+
+def load() -> str:
+    return " / ".join(f"{x:.2f}" for x in os.getloadavg())
+
+
+def versions() -> dict:
+    import kwant
+    import scipy
+
+    import ringkit
+
+    return {
+        "python": platform.python_version(),
+        "numpy": np.__version__,
+        "scipy": scipy.__version__,
+        "kwant": kwant.__version__,
+        "ringkit": getattr(ringkit, "__version__", "?"),
+        "machine": f"{platform.machine()}, {os.cpu_count()} vCPUs (shared)",
+        "OPENBLAS_NUM_THREADS": os.environ.get("OPENBLAS_NUM_THREADS", "unset"),
+    }
+
+
+def report(out: dict, family, timing: list, n: int) -> list[str]:
+    lines = [
+        "# Amplitude versus radius from simulated ensembles (bench_amplitude_size.py)",
+        "",
+        f"Device family: {family.describe()}.",
+        f"Flux-tube field (flux through the hole only), {len(family.fluxes())} flux points over "
+        "5 h/e periods; dephasing probes with the analytic coupling (realised L_phi not "
+        "calibrated per device); seeds 0 .. n-1 at every radius (same seeds for every radius); "
+        "2 worker processes with one BLAS thread each on a shared 2-vCPU machine.",
+        f"Versions: {versions()}",
+        "",
+        "## Rounds (wall time per round for all radii, load average before / after)",
+        "",
+        "| realizations per radius | wall (s) | per realization per radius (s) | load before | "
+        "load after |",
+        "|---|---|---|---|---|",
+    ]
+    for k, wall, lb, la, per in timing:
+        lines.append(f"| {k} | {wall:.0f} | {per} | {lb} | {la} |")
+    lines += [
+        "",
+        f"## Quantile bands ({n} realizations per radius, bootstrap errors, e^2/h)",
+        "",
+        "| r (um) | sites | h/e 16 % | h/e 50 % | h/e 84 % | h/2e 16 % | h/2e 50 % | "
+        "h/2e 84 % | median G |",
+        "|---|---|---|---|---|---|---|---|---|",
+    ]
+    for i, r in enumerate(out["radius"]):
+        cells = []
+        for name in ("he", "h2e"):
+            for lab in ("q16", "median", "q84"):
+                cells.append(f"{out[f'{name}_{lab}'][i]:.3g} ± {out[f'{name}_{lab}_err'][i]:.2g}")
+        sites = f"{family.device(float(r)).site_estimate().n_sites:,}"
+        lines.append(
+            f"| {r * 1e6:.2f} | {sites} | "
+            + " | ".join(cells)
+            + f" | {out['mean_g_median'][i]:.3g} |"
+        )
+    fit = out.get("fit")
+    lines += ["", "## Law fitted through the medians", ""]
+    if fit is None:
+        lines.append(f"fit failed: {out.get('fit_error')}")
+    else:
+        lines.append("```")
+        lines += [f"{k}: {v}" for k, v in fit.items() if k not in ("model_kwargs",)]
+        lines.append("```")
+    lines += [
+        "",
+        f"Compact dataset: `{SIZE_DATASET_PATH.relative_to(ROOT.parent)}` (regenerate with "
+        "`OPENBLAS_NUM_THREADS=1 .venv/bin/python benchmarks/bench_amplitude_size.py`; with the "
+        "checkpoints present it reloads instead of recomputing).",
+        "",
+    ]
+    return lines
+
+
+def seeds_on_disk(radius: float) -> set[int]:
+    """Seeds stored in the checkpoint of one radius."""
+    seeds: set[int] = set()
+    for f in radius_checkpoint(CKPT, radius).glob("chunk-*.npz"):
+        with np.load(f) as z:
+            seeds.update(int(x) for x in z["seeds"])
+    return seeds
+
+
+def main() -> None:
+    """``[N_MAX]``: run rounds up to N_MAX; ``--assemble N``: rebuild the outputs of round N
+    from the checkpoints only (refuses if a seed is missing, so nothing is recomputed with other
+    code than the run's)."""
+    args = sys.argv[1:]
+    assemble = bool(args) and args[0] == "--assemble"
+    n_max = int(args[-1]) if args and args[-1] != "--assemble" else ROUNDS[-1]
+    family = FAMILY
+    log = CKPT / "timing.json"  # wall times of the computed rounds survive reruns
+    timing = [tuple(t) for t in json.loads(log.read_text())] if log.exists() else []
+    rounds = [n_max] if assemble else [k for k in ROUNDS if k <= n_max]
+    if assemble:
+        for r in family.radii:
+            missing = set(range(n_max)) - seeds_on_disk(r)
+            if missing:
+                raise SystemExit(f"r = {r:g} m: {len(missing)} seeds of {n_max} not on disk")
+    with default_executor(2) as ex:
+        for n in rounds:
+            before, t0 = load(), time.perf_counter()
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # fixed-size ensembles warn; counted in info
+                out = family_vs_radius(family, StoppingRule.fixed(n), executor=ex, checkpoint=CKPT)
+            wall = time.perf_counter() - t0
+            done = [t for t in timing if t[0] < n]
+            new = n - (done[-1][0] if done else 0)
+            if wall > 30 and not any(t[0] == n for t in timing):
+                per = f"{wall / max(new, 1) / len(family.radii):.1f}"
+                timing.append((n, wall, before, load(), per))
+                log.write_text(json.dumps(timing))
+            data = size_dataset_from_result(out, family, versions=versions())
+            data["timing"] = [list(t) for t in timing if t[0] <= n]
+            SIZE_DATASET_PATH.write_text(json.dumps(data, indent=1) + "\n")
+            OUT.write_text("\n".join(report(out, family, [t for t in timing if t[0] <= n], n)))
+            print(f"round {n}: {wall:.0f} s, load {load()}", flush=True)
+
+
+if __name__ == "__main__":
+    main()
