@@ -24,6 +24,7 @@ EXPECTED = {
     "01_device_design.ipynb": 3,
     "02_amplitude_vs_size.ipynb": 3,
     "03_measured_vs_model.ipynb": 1,
+    "04_will_my_rings_oscillate.ipynb": 3,
 }
 
 

@@ -46,9 +46,6 @@ def _interval(par: dict, name: str, key: str) -> list:
     return list(iv)
 
 
-_QUANT = (("he", "amplitude_he_rms"), ("h2e", "amplitude_h2e_rms"), ("g", "mean_conductance"))
-
-
 def fit_document(result, traces, device, emulator=None, *, notes=(), grids=None) -> dict:
     """The ``fit.json`` document.
 
@@ -70,6 +67,7 @@ def fit_document(result, traces, device, emulator=None, *, notes=(), grids=None)
         Emulator grid (temperatures, L_phi values, mean free paths).
     """
     from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
+    from ringkit.view.panels.outlook import overlay_rows
 
     res = result.to_dict() if hasattr(result, "to_dict") else dict(result)
     params = res.get("parameters")
@@ -78,21 +76,7 @@ def fit_document(result, traces, device, emulator=None, *, notes=(), grids=None)
     for name, par in params.items():
         if par.get("constrained", True):
             _interval(par, name, "ci68"), _interval(par, name, "ci95")
-    ov = res.get("overlay") or {}
-    temps = list(ov.get("temperature_K", []))
-    measured, bands = [], []
-    for j, t in enumerate(temps):
-        m: dict[str, Any] = {"temperature_K": t}
-        b: dict[str, Any] = {"temperature_K": t}
-        for short, key in _QUANT:
-            unit = "e2h"
-            m[f"{key.replace('_rms', '')}_{unit}"] = ov["measured"][key][j]
-            m[f"{key.replace('_rms', '')}_err_{unit}"] = ov["measured_err"][key][j]
-            for q, v in zip(("q16", "q50", "q84"), ov["model"][key][j], strict=True):
-                b[f"{short}_{q}"] = v
-        m["l_phi_fit_m"] = ov.get("l_phi_m", [None] * len(temps))[j]
-        measured.append(m)
-        bands.append(b)
+    measured, bands = overlay_rows(res.get("overlay") or {})
     doc = {
         "format": FIT_FORMAT,
         L_PHI_CONVENTION_KEY: L_PHI_CONVENTION,

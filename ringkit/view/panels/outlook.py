@@ -22,7 +22,8 @@ Public API
 ----------
 OutlookParams, Outlook, ring_outlook(params, *, report=None, executor=None, checkpoint=None),
 rings_above_floor(k, n, n_rings, confidence=0.95), measured_overlay(fit) -> dict,
-reevaluate(outlook, params) (new floor or N, same realizations), same_physics, ProgressExecutor
+reevaluate(outlook, params) (new floor or N, same realizations), same_physics, ProgressExecutor,
+overlay_rows(overlay) (fit.json rows of a fit's overlay)
 """
 
 from __future__ import annotations
@@ -50,6 +51,7 @@ __all__ = [
     "ProgressExecutor",
     "reevaluate",
     "same_physics",
+    "overlay_rows",
 ]
 
 FLOOR_UNITS = ("e2/h", "ohm")
@@ -97,6 +99,9 @@ class OutlookParams:
         Dephasing probes when L_phi is finite.
     thermal_tol : float
         Thermal-average tolerance in e^2/h.
+    calibrate_l_phi : bool
+        Measure the L_phi the probes realise on every realization and adjust their coupling
+        (docs/probes.md, "Realised L_phi"; about 4x the cost of the analytic coupling).
     confidence : float
         Level of the intervals (Wilson and predictive).
     """
@@ -118,6 +123,7 @@ class OutlookParams:
     seed: int = 0
     n_probes: int = 24
     thermal_tol: float = 1e-3
+    calibrate_l_phi: bool = True
     confidence: float = 0.95
 
     def __post_init__(self) -> None:
@@ -281,6 +287,18 @@ class Outlook:
             for i, q in enumerate(s.q)
         ]
 
+    def realised_l_phi(self) -> str:
+        """The L_phi realised by the probes over the realizations (median, 16-84 %), or why
+        it was not measured."""
+        info = self.stats.info
+        if "l_phi_realised_median_m" not in info:
+            return str(info.get("l_phi_status", "not measured"))
+        return (
+            f"{1e6 * info['l_phi_realised_median_m']:.3g} µm (16-84 %: "
+            f"{1e6 * info['l_phi_realised_q16_m']:.3g}-{1e6 * info['l_phi_realised_q84_m']:.3g}"
+            f" µm, error {1e6 * info['l_phi_realised_err_median_m']:.2g} µm)"
+        )
+
     def sentence(self) -> str:
         """The answer in one line."""
         p = self.params
@@ -334,6 +352,7 @@ def ring_outlook(
         stats = amplitude_statistics(
             device, params.fluxes(), temperature=params.temperature, l_phi=l_phi,
             n_probes=params.n_probes, thermal_tol=params.thermal_tol, rule=params.rule(),
+            calibrate_l_phi=bool(params.calibrate_l_phi),
             seed0=params.seed, executor=executor, checkpoint=checkpoint, progress=False,
         )  # fmt: skip
     notes = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
@@ -377,14 +396,43 @@ def reevaluate(res: Outlook, params: OutlookParams) -> Outlook:
     return replace(res, params=params, **_floor_answer(res.stats, params))
 
 
+_QUANT = (("he", "amplitude_he_rms"), ("h2e", "amplitude_h2e_rms"), ("g", "mean_conductance"))
+
+
+def overlay_rows(overlay: dict) -> tuple[list[dict], list[dict]]:
+    """Measured rows and model-band rows (one per temperature) of a fit's ``overlay``.
+
+    ``overlay`` is ``InverseFitResult.overlay`` (docs/inverse-fit.md, "API summary"); the rows
+    are those of ``fit.json`` (``measured``: ``amplitude_he_e2h``, ``amplitude_he_err_e2h``,
+    ..., ``mean_conductance_e2h``; ``model_bands``: ``he_q16`` ... ``g_q84``).
+    """
+    temps = [float(t) for t in overlay.get("temperature_K", [])]
+    l_phi = list(overlay.get("l_phi_m") or [None] * len(temps))
+    measured, bands = [], []
+    for j, t in enumerate(temps):
+        m: dict[str, Any] = {"temperature_K": t}
+        b: dict[str, Any] = {"temperature_K": t}
+        for short, key in _QUANT:
+            base = key.replace("_rms", "")
+            m[f"{base}_e2h"] = overlay["measured"][key][j]
+            m[f"{base}_err_e2h"] = overlay["measured_err"][key][j]
+            for q, v in zip(("q16", "q50", "q84"), overlay["model"][key][j], strict=True):
+                b[f"{short}_{q}"] = v
+        m["l_phi_fit_m"] = l_phi[j]
+        measured.append(m)
+        bands.append(b)
+    return measured, bands
+
+
 def measured_overlay(fit: dict | str | Path) -> dict[str, np.ndarray]:
     """Measured amplitudes and model quantile bands versus T from a ``fit.json``.
 
     Parameters
     ----------
-    fit : dict or path
-        The document written by ``ringkit fit`` (or its path); see
-        docs/outlook-and-fit-usage.md, "fit.json".
+    fit : dict, path or InverseFitResult
+        The document written by ``ringkit fit`` (or its path; see
+        docs/outlook-and-fit-usage.md, "fit.json"), or a fit result of
+        :func:`ringkit.analysis.inverse_fit.fit_device` (or its ``to_dict()``).
 
     Returns
     -------
@@ -398,7 +446,9 @@ def measured_overlay(fit: dict | str | Path) -> dict[str, np.ndarray]:
         Not a fit document, or no measured amplitudes in it.
     """
     doc = fit
-    if not isinstance(fit, dict):
+    if hasattr(fit, "overlay") and hasattr(fit, "to_dict"):  # an InverseFitResult
+        doc = {"overlay": fit.overlay}
+    elif not isinstance(fit, dict):
         path = Path(fit)
         try:
             doc = json.loads(path.read_text(encoding="utf-8"))
@@ -406,6 +456,9 @@ def measured_overlay(fit: dict | str | Path) -> dict[str, np.ndarray]:
             raise ParameterError(
                 "fit file", str(path), f"must be a readable fit.json ({err})"
             ) from None
+    if isinstance(doc, dict) and "measured" not in doc and isinstance(doc.get("overlay"), dict):
+        rows, bands = overlay_rows(doc["overlay"])
+        doc = {"measured": rows, "model_bands": bands}
     meas = doc.get("measured") if isinstance(doc, dict) else None
     if not meas or not isinstance(meas, list):
         raise ParameterError("fit file", "document", "has no 'measured' amplitudes (fit.json)")

@@ -36,6 +36,13 @@ _UNIT = {"e2/h": "e²/h", "ohm": "Ω"}
 class RingOutlookPanel(PanelBase):
     """Will rings like this one show h/e oscillations above my noise floor?
 
+    Parameters
+    ----------
+    params : OutlookParams, optional
+        Initial settings (default: those of ``result``, else the defaults).
+    result : Outlook, optional
+        A finished :func:`ring_outlook` to show at once.
+
     Attributes
     ----------
     result : Outlook or None
@@ -50,12 +57,14 @@ class RingOutlookPanel(PanelBase):
     job : BackgroundJob or None
     """
 
-    def __init__(self, params: OutlookParams | None = None) -> None:
+    def __init__(
+        self, params: OutlookParams | None = None, *, result: Outlook | None = None
+    ) -> None:
         super().__init__()
-        p = params or OutlookParams()
+        p = params or (result.params if result is not None else OutlookParams())
         self.base = p  # settings without a control (seed, window, probes, tolerances)
         self.params: OutlookParams | None = None
-        self.result: Outlook | None = None
+        self.result: Outlook | None = result  # e.g. computed in a notebook cell
         self.overlay: dict | None = None
         self.job: BackgroundJob | None = None
         style = {"description_width": "200px"}
@@ -83,6 +92,8 @@ class RingOutlookPanel(PanelBase):
             "n_rings": widgets.IntText(value=p.n_rings, description="rings to make", **kw),
             "realizations": widgets.IntText(value=p.realizations,
                                             description="realizations (at most)", **kw),
+            "calibrate_l_phi": widgets.Checkbox(value=p.calibrate_l_phi,
+                                                description="measure the realised L_phi", **kw),
         }  # fmt: skip
         for w in self.controls.values():
             w.observe(lambda _: self.update(), names="value")
@@ -133,6 +144,7 @@ class RingOutlookPanel(PanelBase):
             floor_unit=c["floor_unit"],
             n_rings=c["n_rings"],
             realizations=c["realizations"],
+            calibrate_l_phi=c["calibrate_l_phi"],
         )
 
     def update(self) -> bool:
@@ -232,6 +244,8 @@ class RingOutlookPanel(PanelBase):
         for label, q, val, err in res.quantile_rows():
             rows.append((f"{label} {100 * q:.0f} %", f"{val:.3g} ± {err:.2g} e²/h"))
         rows.append(("realizations", f"{res.stats.n_realizations} ({res.stats.stop_reason})"))
+        if math.isfinite(p.l_phi):
+            rows.append(("realised L_phi", res.realised_l_phi()))
         for note in res.notes:
             rows.append(("note", note))
 
