@@ -21,9 +21,10 @@ over realizations. The coherent coupling is ``L_phi = inf`` (u = 1/L_phi = 0).
 
 Interpolation
 -------------
-Per realization (same disorder, so the values move smoothly): ``ln a`` and ``G`` by monotone
-cubic (PCHIP) interpolation in ``ln T`` and then in ``u = 1/L_phi`` (``ln a`` is linear in
-``u`` for a pure exp(-pi r/L_phi) damping). Between mean-free-path nodes (other disorder
+Per realization (same disorder, so the values move smoothly): ``sqrt a`` and ``G`` by monotone
+cubic (PCHIP) interpolation in ``ln T`` and then in ``u = 1/L_phi`` (``sqrt a`` falls as
+exp(-pi r u/2) for a pure damping; unlike ``ln a`` it stays smooth where the complex h/e
+harmonic of one realization passes near zero). Between mean-free-path nodes (other disorder
 patterns) the Gaussian summaries (mean, covariance) and the quantiles are interpolated
 linearly in ``ln l``. tests/test_inverse_fit.py checks both at held-out nodes.
 
@@ -171,7 +172,7 @@ class AmplitudeEmulator:
         self._u = np.maximum.accumulate(self._u, axis=1)
         self._u += 1e-12 * np.arange(i)[None, :] * np.max(self._u)  # strictly increasing
         self._lt = np.log(self.temperatures)
-        self._la = np.log(np.maximum(self.amplitudes[..., :2], _FLOOR))
+        self._la = np.sqrt(np.maximum(self.amplitudes[..., :2], 0.0))
 
     # ------------------------------------------------------------------ realised L_phi axis
     def _realised(self, n_boot: int = 400) -> tuple[np.ndarray, np.ndarray]:
@@ -239,7 +240,7 @@ class AmplitudeEmulator:
         vu = self._u_interpolator(d, t)(np.minimum(u, self._u[d, -1]))  # (s, J, J, 3)
         j = np.arange(t.size)
         out = vu[:, j, j, :]  # (s, J, 3)
-        out[..., :2] = np.exp(out[..., :2])
+        out[..., :2] = np.maximum(out[..., :2], 0.0) ** 2
         return out
 
     def _u_interpolator(self, d: int, t: np.ndarray) -> PchipInterpolator:

@@ -291,6 +291,7 @@ def _param_entry(prob, k, prof, z_hat) -> dict:
         "open_low": bool(olo95),
         "open_high": bool(ohi95),
         "constrained": not flat,
+        "profiled": True,
         "unit": UNITS[NAMES[k]],
     }
 
@@ -320,6 +321,7 @@ def fit_device(
     p_bounds: tuple[float, float] = (-0.5, 3.0),
     n_profile: int = 11,
     l_phi_per_temperature: bool = True,
+    profile: tuple = NAMES,
 ) -> InverseFitResult:
     """Maximum-likelihood L_phi(T) and mean free path of one ring, with profile intervals.
 
@@ -339,6 +341,9 @@ def fit_device(
         Coarse profile points per parameter (crossings are then bisected).
     l_phi_per_temperature : bool
         Also profile L_phi(T_j) at every measured temperature.
+    profile : tuple of str
+        Parameters to profile (default all). A parameter left out is reported with
+        ``value`` NaN and ``profiled`` False (no number without its interval).
 
     Returns
     -------
@@ -357,7 +362,11 @@ def fit_device(
     fixed = {} if temps.size > 1 else {1: (0.0 - p_bounds[0]) / (p_bounds[1] - p_bounds[0])}
     z_hat, nll_hat = prob.minimize(z0, fixed)
     profiles, params, unconstrained, notes = {}, {}, [], []
-    ks = [k for k in range(3) if k not in fixed]
+    ks = [k for k in range(3) if k not in fixed and NAMES[k] in profile]
+    for name in NAMES:
+        if name not in profile and not (fixed and name == "p"):
+            params[name] = {"value": math.nan, "ci68": [math.nan] * 2, "ci95": [math.nan] * 2}
+            params[name].update(constrained=None, profiled=False, unit=UNITS[name])
     for k in ks:
         prof = _profile(prob, k, z_hat, nll_hat, n_profile)
         if prof["best_nll"] < nll_hat - 1e-6:

@@ -117,7 +117,7 @@ def _rms_err(r: float, n: float, k: float) -> float:
     return math.sqrt(var_p / (4.0 * max(r * r, n * n, 1e-300)))
 
 
-def _one_trace(i, field, g, r_in, r_out, background, min_periods):
+def _one_trace(i, field, g, r_in, r_out, background, min_periods, bands):
     from ringkit.analysis._common import validate_trace
     from ringkit.analysis.extract import extract_oscillations
 
@@ -144,7 +144,7 @@ def _one_trace(i, field, g, r_in, r_out, background, min_periods):
             f"(r_in = {r_in:.4g} m, r_out = {r_out:.4g} m); wrong device or wrong field unit?",
             "T",
         )
-    res = extract_oscillations(b, s, r_in=r_in, r_out=r_out, background=background)
+    res = extract_oscillations(b, s, r_in=bands[0], r_out=bands[1], background=background)
     k1, k2 = _band_bins(res, 1), _band_bins(res, 2)
     h2e = res.amplitude_h2e_rms if math.isfinite(res.amplitude_h2e_rms) else math.nan
     return {
@@ -171,6 +171,7 @@ def measured_amplitudes_from_traces(
     r_out: float | None = None,
     background: str = "polynomial",
     min_periods: float = MIN_PERIODS,
+    band_radii: tuple[float, float] | None = None,
 ) -> list[MeasuredAmplitudes]:
     """Per-temperature amplitudes of one ring from its G(B) traces.
 
@@ -187,6 +188,11 @@ def measured_amplitudes_from_traces(
         Background removal of :func:`extract_oscillations` (``"none"`` for flux-tube traces).
     min_periods : float
         Fewest h/e periods per trace (ParameterError naming the trace below it).
+    band_radii : (float, float), optional
+        Radii (m) of the h/e and h/2e extraction bands; default ``(r_in, r_out)``. Flux-tube
+        traces (one line at the mean area) use narrow bands, e.g. ``(0.95 r, 1.05 r)``, as
+        :func:`ringkit.transport.amplitude_stats.amplitude_statistics` does. The period check
+        always uses ``r_in``/``r_out``.
 
     Returns
     -------
@@ -214,8 +220,9 @@ def measured_amplitudes_from_traces(
     for i, t in enumerate(temps):
         if t is None or not math.isfinite(float(t)) or float(t) <= 0:
             raise ParameterError(f"temperatures[{i}]", t, "missing: every trace needs T > 0 in K")
+    bands = (float(r_in), float(r_out)) if band_radii is None else tuple(map(float, band_radii))
     per = [
-        _one_trace(i, b, g, float(r_in), float(r_out), background, float(min_periods))
+        _one_trace(i, b, g, float(r_in), float(r_out), background, float(min_periods), bands)
         for i, (b, g) in enumerate(traces)
     ]
     out = []
