@@ -68,7 +68,21 @@ def versions() -> dict:
         "ringkit": getattr(ringkit, "__version__", "?"),
         "machine": f"{platform.machine()}, {os.cpu_count()} vCPUs (shared)",
         "OPENBLAS_NUM_THREADS": os.environ.get("OPENBLAS_NUM_THREADS", "unset"),
+        "code": os.environ.get("RINGKIT_BENCH_CODE") or git_head(),
     }
+
+
+def git_head() -> str:
+    """Commit of the working tree that computes (RINGKIT_BENCH_CODE overrides, e.g. for a
+    snapshot without .git)."""
+    import subprocess
+
+    try:
+        out = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=ROOT, text=True,
+                             capture_output=True, check=True)  # fmt: skip
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+    return out.stdout.strip()
 
 
 def report(out: dict, family, timing: list, n: int) -> list[str]:
@@ -117,6 +131,7 @@ def report(out: dict, family, timing: list, n: int) -> list[str]:
         lines.append("```")
         lines += [f"{k}: {v}" for k, v in fit.items() if k not in ("model_kwargs",)]
         lines.append("```")
+    lines += ["", "## Fit variants (why the law did not fit before)", ""] + variants(out, family)
     lines += [
         "",
         f"Compact dataset: `{SIZE_DATASET_PATH.relative_to(ROOT.parent)}` (regenerate with "
@@ -124,6 +139,50 @@ def report(out: dict, family, timing: list, n: int) -> list[str]:
         "checkpoints present it reloads instead of recomputing).",
         "",
     ]
+    return lines
+
+
+def variants(out: dict, family) -> list[str]:
+    """The law fitted through the medians in several ways (docs/amplitude-model.md)."""
+    from ringkit.analysis.scaling_fit import fit_amplitude_prefactors
+
+    med = {
+        "amplitude_he": out["he_median"],
+        "amplitude_he_err": out["he_median_err"],
+        "amplitude_h2e": out["h2e_median"],
+        "amplitude_h2e_err": out["h2e_median_err"],
+    }
+    he_only = {k: v for k, v in med.items() if "h2e" not in k}
+    base = {**family.model_kwargs()}
+    rows = [
+        ("linear, L_phi fixed at the probe setting (the old fit)", med,
+         {"space": "linear", "model_discrepancy": None}),
+        ("log, L_phi fixed at the probe setting", med, {"model_discrepancy": None}),
+        ("log, L_phi fixed, model discrepancy added", med, {}),
+        ("log, L_phi fitted (shipped fit)", med, {"fit_l_phi": True}),
+        ("log, L_phi fitted, modes fully mixed (mode_mixing = 1)", med,
+         {"fit_l_phi": True, "mode_mixing": 1.0}),
+        ("log, L_phi fitted, h/e medians only", he_only, {"fit_l_phi": True}),
+    ]  # fmt: skip
+    lines = [
+        "| fit | chi2/dof (bootstrap errors) | p | model discrepancy | c_he (e^2/h) | "
+        "c_aas (e^2/h) | L_phi (um) |",
+        "|---|---|---|---|---|---|---|",
+    ]
+
+    def pm(f, k, scale=1.0):
+        if f.get(k) is None:
+            return "unconstrained" if k in f.get("unconstrained", []) else "-"
+        return f"{f[k] * scale:.3g} ± {f[k + '_err'] * scale:.2g}"
+
+    for label, data, kw in rows:
+        f = fit_amplitude_prefactors(out["radius"], **data, **base, **kw)
+        lp = pm(f, "l_phi", 1e6) if f["l_phi_fitted"] else f"{family.l_phi * 1e6:g} (fixed)"
+        lines.append(
+            f"| {label} | {f['chi2_stat']:.3g}/{f['dof']} | {f['p_value_stat']:.2g} | "
+            f"{100 * f['model_discrepancy']:.0f} % | {pm(f, 'coherent_amplitude')} | "
+            f"{pm(f, 'aas_amplitude')} | {lp} |"
+        )
     return lines
 
 
