@@ -15,14 +15,11 @@ import math
 from pathlib import Path
 from typing import Any
 
-import numpy as np
-
 from ringkit._validation import ParameterError
 
 __all__ = ["FIT_FORMAT", "fit_document", "write_outputs", "render_report"]
 
 FIT_FORMAT = "ringkit-fit/1"
-_PROFILE_UNITS = {"l_phi_ref": "m", "p": "1", "mean_free_path": "m"}
 _UNITS = {"1": (1.0, ""), "m": (1e6, "µm"), "K": (1.0, "K"), "m^2": (1e12, "µm²"), "": (1.0, "")}
 
 
@@ -187,49 +184,20 @@ def _num(v: float | None, scale: float = 1.0, digits: int = 4) -> str:
 
 def write_figures(directory: Path, doc: dict) -> list[Path]:
     """``amplitudes_vs_T.png`` (measured vs model bands) and ``profiles.png``."""
-    from scipy.stats import chi2
-
     from ringkit.study.checkpoint import atomic_write_bytes
+    from ringkit.view.fit_plots import plot_fit_overlay, plot_profiles, usable_profiles
     from ringkit.view.panels.outlook import measured_overlay
-    from ringkit.view.style import COLORS, figure_to_png, new_figure
+    from ringkit.view.style import figure_to_png
 
     directory.mkdir(parents=True, exist_ok=True)
-    paths = []
-    ov = measured_overlay(doc)
-    fig, axes = new_figure(1, 1, size=(5.6, 3.6))
-    ax = axes[0, 0]
-    for col, label, marker in (("he", "h/e", "o"), ("h2e", "h/2e", "^")):
-        color = COLORS[col]
-        if "model_T" in ov:
-            ax.fill_between(ov["model_T"], ov[f"{col}_q16"], ov[f"{col}_q84"], color=color,
-                            alpha=0.2, lw=0, label=f"model {label} 16-84 %")  # fmt: skip
-            ax.plot(ov["model_T"], ov[f"{col}_q50"], color=color, lw=1.0)
-        ax.plot(ov["temperature"], ov[f"measured_{col}"], marker, color=color,
-                label=f"measured {label}")  # fmt: skip
-    ax.set_xlabel("temperature (K)")
-    ax.set_ylabel("rms amplitude (e²/h)")
-    ax.legend(fontsize="small", frameon=False)
-    path = directory / "amplitudes_vs_T.png"
-    atomic_write_bytes(path, figure_to_png(fig))
-    paths.append(path)
-    prof = {k: v for k, v in (doc.get("profiles") or {}).items() if v and v.get("x")}
+    ax = plot_fit_overlay(measured_overlay(doc))
+    paths = [directory / "amplitudes_vs_T.png"]
+    atomic_write_bytes(paths[0], figure_to_png(ax.figure))
+    prof = usable_profiles(doc.get("profiles") or {})
     if prof:
-        fig, axes = new_figure(1, len(prof), size=(3.4 * len(prof), 3.0))
-        for ax, (name, pr) in zip(axes[0], prof.items(), strict=True):
-            x = np.array([np.nan if v is None else float(v) for v in pr["x"]])
-            y = np.array([np.nan if v is None else float(v) for v in pr["two_delta_loglike"]])
-            ax.plot(x, y, "o-", color="0.2", ms=3)
-            for level, ls in ((0.68, "--"), (0.95, ":")):  # chi-square, 1 dof (Wilks)
-                ax.axhline(chi2.ppf(level, 1), color="0.5", ls=ls, lw=0.8,
-                           label=f"{100 * level:.0f} %")  # fmt: skip
-            if name in ("l_phi_ref", "mean_free_path"):
-                ax.set_xscale("log")
-            ax.set_xlabel(f"{name} ({_PROFILE_UNITS.get(name, '')})")
-            ax.set_ylabel("2 Δ(−log L)")
-            ax.legend(fontsize="x-small", frameon=False)
-        path = directory / "profiles.png"
-        atomic_write_bytes(path, figure_to_png(fig))
-        paths.append(path)
+        axes = plot_profiles(prof)
+        paths.append(directory / "profiles.png")
+        atomic_write_bytes(paths[1], figure_to_png(axes[0].figure))
     return paths
 
 

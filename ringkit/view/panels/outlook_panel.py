@@ -17,6 +17,7 @@ from typing import Any
 
 import ipywidgets as widgets
 
+from ringkit.view.fit_plots import plot_fit_overlay
 from ringkit.view.panels._base import BackgroundJob, FigurePane, JobCancelled, PanelBase
 from ringkit.view.panels.outlook import (
     Outlook,
@@ -260,19 +261,12 @@ class RingOutlookPanel(PanelBase):
                 ax.errorbar([t], [med], yerr=[[med - lo], [hi - med]], fmt="s", color=color,
                             mfc="white", capsize=4, label=lab)  # fmt: skip
         if ov is not None:
-            if "model_T" in ov:
-                for col, color in (("he", COLORS["he"]), ("h2e", COLORS["h2e"])):
-                    ax.fill_between(ov["model_T"], ov[f"{col}_q16"], ov[f"{col}_q84"],
-                                    color=color, alpha=0.2, lw=0)  # fmt: skip
-                    ax.plot(ov["model_T"], ov[f"{col}_q50"], color=color, lw=1.0)
-            ax.plot(ov["temperature"], ov["measured_he"], "o", color=COLORS["he"],
-                    label="measured h/e")  # fmt: skip
-            ax.plot(ov["temperature"], ov["measured_h2e"], "^", color=COLORS["h2e"],
-                    label="measured h/2e")  # fmt: skip
+            plot_fit_overlay(ov, ax)
         if res is None and ov is None:
             ax.text(0.5, 0.5, "measured amplitudes: load a fit.json", ha="center", va="center",
                     transform=ax.transAxes, color="0.4")  # fmt: skip
             return
-        ax.set_xlabel("temperature (K)")
-        ax.set_ylabel("rms amplitude (e²/h)")
-        ax.legend(fontsize="x-small", frameon=False)
+        if ov is None:
+            ax.set_xlabel("temperature (K)")
+            ax.set_ylabel("rms amplitude (e²/h)")
+            ax.legend(fontsize="x-small", frameon=False)
