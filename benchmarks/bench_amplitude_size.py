@@ -21,6 +21,8 @@ Run from the repository root (optionally the last round to run, e.g. 64):
     OPENBLAS_NUM_THREADS=1 .venv/bin/python benchmarks/bench_amplitude_size.py [N_MAX]
 Rebuild the outputs of round N from the checkpoints only (no computation):
     .venv/bin/python benchmarks/bench_amplitude_size.py --assemble N
+Measure the realised L_phi of the probes on some rings directly (docs/amplitude-model.md):
+    .venv/bin/python benchmarks/bench_amplitude_size.py --realised 0.3e-6:0 0.5e-6:1
 Environment: RINGKIT_BENCH_CKPT (checkpoint directory, default /tmp/ringkit-bench-amplitude-size).
 """
 
@@ -195,11 +197,49 @@ def seeds_on_disk(radius: float) -> set[int]:
     return seeds
 
 
+def realised(pairs: list[str]) -> None:
+    """Realised L_phi of the family's probes on rings ``R:SEED`` (m, int), measured directly
+    with LPhiCalibrator.measure (h/e damping over 16 energies at E_F; docs/probes.md). Run it
+    with the code that computed the dataset (see "code" in the versions) to check that run."""
+    from ringkit.tightbinding import build_ring
+    from ringkit.transport.lowrank import FluxTubeModel
+    from ringkit.transport.probe_calibration import LPhiCalibrator
+    from ringkit.transport.sweep import ring_probes
+
+    fam = FAMILY
+    for r, seed in ((float(a), int(b)) for a, b in (x.split(":") for x in pairs)):
+        t0 = time.perf_counter()
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ring = build_ring(fam.device(r), seed=seed)
+            e_t = ring.to_lattice_energy(fam.material_obj().fermi_energy_J)
+            p0 = ring.params(flux=0.0)
+            try:  # analytic coupling (today's code calibrates unless told not to)
+                pr = ring_probes(ring, fam.l_phi, e_t, p0, 100, calibrate=False)
+            except TypeError:  # code before the calibration option
+                pr = ring_probes(ring, fam.l_phi, e_t, p0, 100)
+            a = ring.lattice_spacing
+            cal = LPhiCalibrator(
+                FluxTubeModel(ring.fsyst, params=p0), e_t, n_probes=100,
+                radius=ring.device.geometry.mean_radius / a,
+            )  # fmt: skip
+            m = cal.measure(pr.eta)
+        print(
+            f"r = {r * 1e6:.2f} um, seed {seed}: realised L_phi "
+            f"{m['l_phi_realised'] * a * 1e6:.3f} +- {m['l_phi_realised_err'] * a * 1e6:.3f} um "
+            f"({time.perf_counter() - t0:.0f} s, load {load()})",
+            flush=True,
+        )
+
+
 def main() -> None:
     """``[N_MAX]``: run rounds up to N_MAX; ``--assemble N``: rebuild the outputs of round N
     from the checkpoints only (refuses if a seed is missing, so nothing is recomputed with other
     code than the run's)."""
     args = sys.argv[1:]
+    if args and args[0] == "--realised":
+        realised(args[1:])
+        return
     assemble = bool(args) and args[0] == "--assemble"
     n_max = int(args[-1]) if args and args[-1] != "--assemble" else ROUNDS[-1]
     family = FAMILY
