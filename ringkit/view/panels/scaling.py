@@ -14,6 +14,11 @@ simulate_points(params, radii, *, seeds, ...) -> dict
     errors. Returns arrays in the ``simulated=`` format of ``predict_amplitudes``.
 calibrated_prefactors(dataset) -> (c_he, c_aas)
     Prefactors that match the model to simulated points (geometric mean of the ratios).
+
+The panel itself shows quantile bands of simulated ensembles and the law fitted through them:
+:mod:`ringkit.view.panels.scaling_bands` (dataset, mismatch, law, recompute) and
+:mod:`ringkit.view.panels.scaling_draw` (figure); ``simulate_points`` and
+``calibrated_prefactors`` remain for notebook 02's quick points.
 """
 
 from __future__ import annotations
