@@ -383,19 +383,33 @@ class _Lru(OrderedDict):
         return value, True
 
 
+class _Template:
+    """What :class:`EnergyPool` needs of a sweeper: ``energy`` and ``at_energy`` (one sparse
+    factorization per energy, in the worker)."""
+
+    energy = math.nan  # never equal to an energy asked for
+
+    def __init__(self, model) -> None:
+        self.model = model
+
+    def at_energy(self, energy: float):
+        from ringkit.transport.lowrank import FluxTubeSweeper
+
+        return FluxTubeSweeper(self.model, energy=energy)
+
+
 class _Pool:
     """Energies of one live update in worker processes (:class:`EnergyPool`), when available.
 
-    The workers are forked from this process with the sweeper at E_F (model, probes, symbolic
-    analysis inherited), so each evaluates ``FluxTubeSweeper.conductance`` at the flux
+    The workers are forked from this process with the model (probes, symbolic analysis
+    inherited), so each evaluates ``FluxTubeSweeper.conductance`` at the flux
     residues exactly as the serial path; rows are stored in the live view's per-energy cache.
     Energies go out in chunks of two per worker, so a cancellation is seen between chunks.
     """
 
-    def __init__(self, view, sweeper_of, mkey, m: int, residues: np.ndarray, probes, cancelled,
+    def __init__(self, view, model_of, mkey, m: int, residues: np.ndarray, cancelled,
                  timings: dict) -> None:  # fmt: skip
-        self.view, self.sweeper_of, self.mkey, self.m = view, sweeper_of, mkey, m
-        self.probes = probes
+        self.view, self.model_of, self.mkey, self.m = view, model_of, mkey, m
         self.residues, self.cancelled, self.timings = residues, cancelled, timings
         self._pool = None
         self.workers = 1
@@ -417,17 +431,13 @@ class _Pool:
         if self._pool is None:
             from ringkit.transport.energy_pool import EnergyPool
 
-            # one energy here: its sweeper is the template the workers inherit (the pool
-            # times its first energy to choose serial or parallel: give it a new one)
-            t0 = time.perf_counter()
-            sweeper, _ = self.sweeper_of(todo[0])
-            self.view._values(self.sweeper_of, self.mkey, todo[0], self.m, self.residues,
-                              self.probes, self.timings)  # fmt: skip
-            todo = todo[1:]
-            self._pool = EnergyPool(sweeper, self.residues * (PHI0 / self.m),
-                                    workers=self.workers)  # fmt: skip
-            # the cost of one energy is known now: the pool need not time another one serially
-            self._pool.seconds_per_energy = time.perf_counter() - t0
+            # the workers inherit the model (no sweeper needs to be factorized here first);
+            # the cost of one energy measured in an earlier update spares the pool timing one
+            # serially
+            fluxes = self.residues * (PHI0 / self.m)
+            self._pool = EnergyPool(_Template(self.model_of()), fluxes, workers=self.workers)
+            if self.view._seconds_per_energy is not None:
+                self._pool.seconds_per_energy = self.view._seconds_per_energy
         done = 0
         step = 2 * self.workers
         for i in range(0, len(todo), step):
@@ -443,6 +453,7 @@ class _Pool:
             for e, row in zip(chunk, vals, strict=True):
                 self.view._rows[self._key(e)] = np.asarray(row, dtype=float)
             done += len(chunk)
+            self.view._seconds_per_energy = self._pool.seconds_per_energy
         while len(self.view._rows) > _MAX_ROWS:
             self.view._rows.popitem(last=False)
         return done
@@ -509,6 +520,7 @@ class LiveLattice:
         self.workers = workers
         self.tol = check_tol(tol)
         self._fallbacks = 0
+        self._seconds_per_energy: float | None = None
         self.n_probes = int(n_probes)
         self.points_per_period = int(points_per_period)
         self.min_points = int(min_points)
@@ -622,6 +634,16 @@ class LiveLattice:
         """
         from ringkit.transport.lowrank import FluxTubeSweeper
 
+        model, mkey = self._probe_model(ring, base, probes, timings)
+        t1 = time.perf_counter()
+        sweeper, made = self._sweepers.get_or(
+            (mkey, e_t), lambda: FluxTubeSweeper(model, energy=e_t)
+        )
+        timings["factorize"] += time.perf_counter() - t1
+        return sweeper, made
+
+    def _probe_model(self, ring, base, probes, timings: dict):
+        """The model with ``probes`` (shares the Hamiltonian and cut of ``base``) and its key."""
         zero = ring.params(flux=0.0)
         pkey = None
         if probes is not None:
@@ -631,13 +653,8 @@ class LiveLattice:
         model, _ = self._models.get_or(
             mkey, lambda: base if probes is None else base.with_probes(probes)
         )
-        t1 = time.perf_counter()
-        sweeper, made = self._sweepers.get_or(
-            (mkey, e_t), lambda: FluxTubeSweeper(model, energy=e_t)
-        )
-        timings["model"] += t1 - t0
-        timings["factorize"] += time.perf_counter() - t1
-        return sweeper, made
+        timings["model"] += time.perf_counter() - t0
+        return model, mkey
 
     def _values(self, sweeper_of, mkey, e_t: float, m: int, residues: np.ndarray, probes,
                 timings: dict) -> np.ndarray:  # fmt: skip
@@ -721,7 +738,8 @@ class LiveLattice:
             made[0] += new
             return sweeper, new
 
-        pool = _Pool(self, sweeper_of, mkey, m, residues, probes, cancelled, timings)
+        pool = _Pool(self, lambda: self._probe_model(ring, base, probes, timings)[0], mkey, m,
+                     residues, cancelled, timings)  # fmt: skip
 
         def rows(energies_t) -> np.ndarray:
             energies_t = [float(e) for e in np.atleast_1d(energies_t)]
