@@ -164,8 +164,10 @@ class SizeScalingPanel(PanelBase):
                                                 "aas_amplitude")]  # fmt: skip
         sim_box = widgets.VBox([
             widgets.HTML("Bands for the rings of the model tab (material, mean free path, "
-                         "arm width, T, L_phi), flux-tube field, seeds 0..n-1. At T &gt; 0 "
-                         "each realization needs ~180 energies (minutes per ring)."),
+                         "arm width, T, L_phi), flux-tube field, seeds 0..n-1, probes "
+                         "calibrated on every ring to realise L_phi. Computed at T = 0 while "
+                         "the law's thermal factor stays &ge; 0.98; above that every "
+                         "realization needs ~180 energies (minutes per ring)."),
             self.sim_radii, self.sim_seeds,
             widgets.HBox([self.sim_button, self.cancel_button, self.shipped_button]),
             widgets.HBox([self.progress, self.progress_label]),
