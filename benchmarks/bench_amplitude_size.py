@@ -125,6 +125,16 @@ def report(out: dict, family, timing: list, n: int) -> list[str]:
             + " | ".join(cells)
             + f" | {out['mean_g_median'][i]:.3g} |"
         )
+    for name in ("he", "h2e"):
+        worst = {
+            lab: float(np.max(out[f"{name}_{lab}_err"] / out[f"{name}_{lab}"]))
+            for lab in ("q16", "median", "q84")
+        }
+        lines.append(
+            f"\nLargest relative bootstrap error over the radii, {name}: "
+            + ", ".join(f"{k} {100 * v:.0f} %" for k, v in worst.items())
+            + " (error ~ n^-1/2)."
+        )
     fit = out.get("fit")
     lines += ["", "## Law fitted through the medians", ""]
     if fit is None:
