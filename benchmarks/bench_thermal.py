@@ -147,13 +147,57 @@ def run_temperature(ring, model, flux, temp) -> dict:
     return row
 
 
+def speedup(ring, flux, n_energies: int, repeats: int) -> str:
+    """Wall time of one round of ``n_energies`` energies with 1 and 2 workers, interleaved
+    (1, 2, 1, 2, ...) so that a changing load on the shared machine hits both alike."""
+    from ringkit.transport.energy_pool import EnergyPool
+    from ringkit.transport.lowrank import FluxTubeSweeper
+
+    mu = ring.fermi_energy_lattice
+    kt = K_B * 1.0 / ring.hopping
+    energies = mu + kt * np.linspace(-3, 3, n_energies)
+    sw = FluxTubeSweeper(FluxTubeModel(ring.fsyst, params=ring.params()), energy=mu)
+    times: dict[int, list] = {1: [], 2: []}
+    rows = {}
+    load0 = os.getloadavg()
+    for _ in range(repeats):
+        for workers in (1, 2):
+            with EnergyPool(sw, flux, workers=workers) as pool:
+                t0 = time.perf_counter()
+                rows[workers] = pool(energies)
+                times[workers].append(time.perf_counter() - t0)
+                assert pool.used_workers == workers
+    load1 = os.getloadavg()
+    t1, t2 = np.median(times[1]), np.median(times[2])
+    return (
+        f"Round of {n_energies} energies (1 K window, 201 fluxes), 1 and 2 workers interleaved, "
+        f"{repeats} repeats: median wall {t1:.1f} s (1 worker) and {t2:.1f} s (2 workers), "
+        f"ratio {t1 / t2:.2f}; max |G(1) - G(2)| = "
+        f"{2 * float(np.max(np.abs(rows[1] - rows[2]))):.1e}; load average "
+        f"{load0[0]:.1f} at the start, {load1[0]:.1f} at the end.\n"
+    )
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--temperatures", type=float, nargs="+", default=[0.3, 1.0])
     ap.add_argument("--output", default=str(HERE / "RESULTS-thermal.md"))
+    ap.add_argument(
+        "--speedup",
+        type=int,
+        nargs=2,
+        metavar=("ENERGIES", "REPEATS"),
+        help="only measure 1 vs 2 workers on one round (interleaved); appended to --output",
+    )
     args = ap.parse_args()
     ring = ring05()
     flux = np.linspace(0, 6, 201) * PHI0
+    if args.speedup:
+        text = speedup(ring, flux, *args.speedup)
+        print(text)
+        with open(args.output, "a") as fh:
+            fh.write("\n" + text)
+        return
     load0 = os.getloadavg()
     model = FluxTubeModel(ring.fsyst, params=ring.params())
     rows = [run_temperature(ring, model, flux, temp) for temp in args.temperatures]

@@ -13,7 +13,7 @@ Methods
     Globally adaptive Gauss-Kronrod (7/15-point) subdivision of the energy window, on the
     vector of all components (e.g. G at every field point, plus linear band projections), in
     rounds: each round bisects the intervals of largest error (in decreasing order, until the
-    error left in the others is at most half the goal) until the estimated error of *every*
+    error left in the others is at most 0.8 of the goal) until the estimated error of *every*
     component is below ``tol``. The energies of a round are requested in one call of a
     ``batched`` function, so a caller can evaluate them in parallel
     (:mod:`ringkit.transport.energy_pool`). Narrow resonances show up as large Kronrod-Gauss
@@ -76,7 +76,7 @@ TOL_RANGE = (1e-10, 1e-1)
 # (docs/thermal.md, "Rejected").
 _GAUSS_N = 7
 _XK, _WK, _WG = kronrod_rule(_GAUSS_N)
-_BATCH_FRACTION = 0.5
+_BATCH_FRACTION = 0.8
 # at most this many bisections per round (None: no limit). 1 reproduces the former strict
 # one-interval-at-a-time rule of quad_vec, kept for the benchmark's comparison
 _MAX_PER_ROUND: int | None = None
