@@ -51,7 +51,7 @@ def load_avg() -> str:
     return ", ".join(f"{x:.2f}" for x in os.getloadavg())
 
 
-def build(n_seeds: int):
+def build(n_seeds: int, workers: int = 2):
     from ringkit.transport.emulator_build import build_emulator
 
     t0 = time.perf_counter()
@@ -66,7 +66,7 @@ def build(n_seeds: int):
             n_probes=40,
             thermal_tol=1e-2,
             n_flux=N_FLUX,
-            max_workers=2,
+            max_workers=workers,
             cache_path=CACHE / f"emulator-{n_seeds}.nc",
             progress=True,
         )
@@ -108,7 +108,10 @@ def fit_trial(args) -> dict:
     from ringkit.analysis.inverse_fit import fit_device, measured_amplitudes_from_traces
     from ringkit.units import PHI0
 
-    path, g = args
+    path, g, k = args
+    done = CACHE / f"fit-{k}.json"
+    if done.exists():
+        return json.loads(done.read_text())
     if path not in _EMU:
         _EMU[path] = AmplitudeEmulator.load(path)
     emu = _EMU[path]
@@ -126,9 +129,10 @@ def fit_trial(args) -> dict:
     t0 = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        res = fit_device(ms, emu)
+        res = fit_device(ms, emu, l_phi_per_temperature=False)
     out = res.to_dict()
     out["fit_time_s"] = time.perf_counter() - t0
+    done.write_text(json.dumps(out))
     return out
 
 
@@ -176,11 +180,12 @@ def main() -> None:
     ap.add_argument("--trials", type=int, default=60)
     ap.add_argument("--seeds", type=int, default=32)
     ap.add_argument("--skip-cost", action="store_true")
+    ap.add_argument("--workers", type=int, default=2)
     opt = ap.parse_args()
     CACHE.mkdir(exist_ok=True)
     lines = ["# Inverse fit: coverage on held-out realizations, T^-1 law, cost", ""]
     la0 = load_avg()
-    emu, t_build = build(opt.seeds)
+    emu, t_build = build(opt.seeds, opt.workers)
     la1 = load_avg()
     print(f"emulator: {t_build:.0f} s, load {la0} -> {la1}", flush=True)
     from ringkit.transport.emulator_build import _device_for, _reference
@@ -224,11 +229,11 @@ def main() -> None:
     t0 = time.perf_counter()
     from ringkit.transport.ensemble import default_executor
 
-    with default_executor(2) as ex:
+    with default_executor(opt.workers) as ex:
         sims = list(ex.map(simulate, jobs))
         t_sim = time.perf_counter() - t0
         path = str(CACHE / f"emulator-{opt.seeds}.nc")
-        fits = list(ex.map(fit_trial, [(path, s["g"]) for s in sims]))
+        fits = list(ex.map(fit_trial, [(path, s["g"], k) for k, s in enumerate(sims)]))
     print(f"trials simulated in {t_sim:.0f} s", flush=True)
     cov = {"l_ref": [0, 0], "p": [0, 0], "mfp": [0, 0], "per_T": np.zeros((len(TEMPS), 2))}
     p_vals, p_errs, gof, n_unc = [], [], [], 0
@@ -244,9 +249,6 @@ def main() -> None:
                 continue
             cov[key][0] += inside(P[name]["ci68"], x)
             cov[key][1] += inside(P[name]["ci95"], x)
-        for j, e in enumerate(f["l_phi_at_temperatures"]):
-            cov["per_T"][j, 0] += inside(e["ci68"], tr["l_phi"][j])
-            cov["per_T"][j, 1] += inside(e["ci95"], tr["l_phi"][j])
         if P["p"]["constrained"]:
             lo, hi = P["p"]["ci68"]
             p_vals.append(P["p"]["value"])
@@ -294,9 +296,6 @@ def main() -> None:
         f"| p (true 1) | {cov['p'][0] / n:.0%} | {cov['p'][1] / n:.0%} | |",
         f"| mean free path | {cov['mfp'][0] / n:.0%} | {cov['mfp'][1] / n:.0%} | |",
     ]
-    for j, t in enumerate(TEMPS):
-        c = cov["per_T"][j] / n
-        lines.append(f"| L_phi({t} K) | {c[0]:.0%} | {c[1]:.0%} | |")
     pv, pe = np.array(p_vals), np.array(p_errs)
     w = 1.0 / np.maximum(pe, 1e-9) ** 2
     lines += [

@@ -197,14 +197,14 @@ def _truth(emu):
 def test_fit_recovers_parameters_on_draws_from_the_emulator(built):
     """Sanity: amplitudes drawn from the emulator's own Gaussian model at known parameters.
 
-    Four independent draws; the true L_phi(T_ref) must lie in the 95 % profile interval in
-    at least three (binomial: a correct 95 % interval fails this with probability 1.4 %).
+    Three independent draws; the true L_phi(T_ref) must lie in the 95 % profile interval in
+    at least two (binomial: a correct 95 % interval fails this with probability 0.7 %).
     """
     emu, _ = built
     t_ref, lp = _truth(emu)
     mean, cov = emu.summary(lp, TEMPS, MFPS[0])
     hits = 0
-    for seed in range(4):
+    for seed in range(3):
         y = np.random.default_rng(seed).multivariate_normal(mean, cov).reshape(len(TEMPS), 3)
         ms = [
             MeasuredAmplitudes(t, max(a, 0) ** 2, max(b, 0) ** 2, g, 1e-4, 1e-4, 1e-3)
@@ -212,13 +212,15 @@ def test_fit_recovers_parameters_on_draws_from_the_emulator(built):
         ]
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UnconstrainedWarning)
-            res = fit_device(ms, emu, n_profile=7, l_phi_per_temperature=False)
+            res = fit_device(
+                ms, emu, n_profile=5, l_phi_per_temperature=False, profile=("l_phi_ref",)
+            )
         lo, hi = res.interval("l_phi_ref", 0.95)
         hits += bool(lo <= lp[1] <= hi)
         assert res.t_ref == pytest.approx(t_ref)
         assert res.goodness["dof"] == 6 and 0 <= res.goodness["p_value"] <= 1
         json.dumps(res.to_dict())
-    assert hits >= 3
+    assert hits >= 2
 
 
 def test_fit_on_lattice_traces_with_held_out_seeds(built):
@@ -256,7 +258,7 @@ def test_fit_on_lattice_traces_with_held_out_seeds(built):
         with warnings.catch_warnings():
             warnings.simplefilter("ignore", UnconstrainedWarning)
             res = fit_device(
-                ms, emu, n_profile=7, l_phi_per_temperature=False, profile=("l_phi_ref",)
+                ms, emu, n_profile=5, l_phi_per_temperature=False, profile=("l_phi_ref",)
             )
         entry = res.parameters["l_phi_ref"]
         lo, hi = entry["ci95"]

@@ -34,7 +34,9 @@ For measured amplitudes at temperatures ``T_j`` and ``L_phi(T_j)``: ``y = (sqrt 
 G)`` at every ``T_j`` (one vector, the temperatures of one ring are correlated). Model
 realizations get the measurement noise floor added in power (``r = sqrt(a^2 + n^2)``); the
 ensemble mean and covariance of y (Schafer-Strimmer shrinkage of the correlations, times
-``1 + 1/n`` for the estimated mean) plus the measurement variances give a Gaussian log-density.
+``1 + 1/n`` for the estimated mean) plus the measurement variances give the predictive
+density of a new draw: a multivariate Student t with ``max(n - p, 3)`` degrees of freedom
+(n realizations, p = dimension of y), which accounts for the estimated covariance.
 The square root makes a Rayleigh amplitude nearly symmetric (Weibull of shape 4).
 
 Public API
@@ -52,6 +54,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
+from scipy.special import gammaln
 
 from ringkit._validation import ParameterError
 from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
@@ -315,34 +318,50 @@ class AmplitudeEmulator:
         return mean, cov
 
     def logpdf(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)) -> float:
-        """Gaussian log-likelihood of measured amplitudes (list of ``MeasuredAmplitudes``).
+        """Log-likelihood of measured amplitudes (list of ``MeasuredAmplitudes``).
 
         ``l_phi`` gives L_phi (m) at each measured temperature. Measurement errors
         (``*_err``) enter as variances of ``y``; noise floors (``*_noise_rms``) are added to the
-        model in power.
+        model in power. The density is the predictive one of a new draw given ``n``
+        realizations: multivariate Student t with ``nu = max(n - p, 3)`` degrees of freedom and
+        scale ``S (1 + 1/n)(n - 1)/nu`` (normal model with unknown mean and covariance,
+        Jeffreys prior; S the shrunk sample covariance, p the dimension of y), plus the
+        measurement variances.
         """
         temps = [m.temperature for m in measured]
         noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in measured])
         mean, cov = self.summary(l_phi, temps, mean_free_path, noise, use)
         y, var = measured_vector(measured, use)
-        c = cov + np.diag(var)
+        n, p = self.seeds.size, y.size
+        nu = max(n - p, 3)
+        c = cov * (n - 1) / nu + np.diag(var)
         try:
             ch = np.linalg.cholesky(c)
         except np.linalg.LinAlgError:
             return -math.inf
         z = np.linalg.solve(ch, y - mean)
+        logdet = np.sum(np.log(np.diag(ch)))
         return float(
-            -0.5 * z @ z - np.sum(np.log(np.diag(ch))) - 0.5 * y.size * math.log(2 * math.pi)
+            gammaln(0.5 * (nu + p))
+            - gammaln(0.5 * nu)
+            - 0.5 * p * math.log(nu * math.pi)
+            - logdet
+            - 0.5 * (nu + p) * math.log1p(float(z @ z) / nu)
         )
 
-    def mahalanobis(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)) -> float:
-        """Squared Mahalanobis distance of the measured vector (goodness of fit)."""
+    def mahalanobis(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)):
+        """Squared distance of the measured vector in the scale of :meth:`logpdf`, and nu.
+
+        For the predictive t, ``d^2/p`` follows F(p, nu) (goodness of fit).
+        """
         temps = [m.temperature for m in measured]
         noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in measured])
         mean, cov = self.summary(l_phi, temps, mean_free_path, noise, use)
         y, var = measured_vector(measured, use)
+        n, p = self.seeds.size, y.size
+        nu = max(n - p, 3)
         r = y - mean
-        return float(r @ np.linalg.solve(cov + np.diag(var), r))
+        return float(r @ np.linalg.solve(cov * (n - 1) / nu + np.diag(var), r)), nu
 
     # ------------------------------------------------------------------------------- I/O
     def content_hash(self) -> str:

@@ -17,10 +17,10 @@ Confidence intervals: profile likelihood (Wilks): ``2 (lnL_max - lnL_prof) <= 0.
 and ``3.841`` (95 %), the chi-square(1) quantiles; crossings are bisected. A parameter whose
 profile stays below the 68 % level across the whole emulator range is reported as
 unconstrained (no value) with an :class:`UnconstrainedWarning` naming it; an interval that
-reaches the edge of the range is open on that side. Goodness of fit: the squared Mahalanobis
-distance at the MLE against chi-square with ``n_data - n_params`` degrees of freedom (an
-approximation for the Gaussian model). Overlay: measured values against the model quantiles
-(16/50/84 %) at the MLE, per temperature.
+reaches the edge of the range is open on that side. Goodness of fit: the squared distance d2
+of the measured vector at the MLE in the scale of the predictive t; ``d2/dof`` is referred to
+F(dof, nu) with ``dof = n_data - n_params`` (an approximation: parameters fitted).
+Overlay: measured values against the model quantiles (16/50/84 %) at the MLE, per temperature.
 
 Public API
 ----------
@@ -155,6 +155,7 @@ class _Problem:
         self.lo = np.array([math.log(self.l_min), p_bounds[0], math.log(lo_l)])
         self.hi = np.array([math.log(self.l_top), p_bounds[1], math.log(hi_l)])
         self.n_eval = 0
+        self.fixed: dict = {}  # scaled coordinates held fixed in every minimization
 
     def phys(self, z):
         x = self.lo + np.asarray(z) * (self.hi - self.lo)
@@ -179,7 +180,7 @@ class _Problem:
 
     def minimize(self, z0, fixed: dict | None = None):
         """Minimize over the free coordinates (``fixed``: index -> scaled value)."""
-        fixed = fixed or {}
+        fixed = {**self.fixed, **(fixed or {})}
         free = [k for k in range(3) if k not in fixed]
 
         def f(w):
@@ -360,7 +361,8 @@ def fit_device(
     prob = _Problem(emulator, ms, t_ref, use, p_bounds)
     z0 = _grid_start(prob)
     fixed = {} if temps.size > 1 else {1: (0.0 - p_bounds[0]) / (p_bounds[1] - p_bounds[0])}
-    z_hat, nll_hat = prob.minimize(z0, fixed)
+    prob.fixed = fixed
+    z_hat, nll_hat = prob.minimize(z0)
     profiles, params, unconstrained, notes = {}, {}, [], []
     ks = [k for k in range(3) if k not in fixed and NAMES[k] in profile]
     for name in NAMES:
@@ -380,7 +382,8 @@ def fit_device(
             unconstrained.append(NAMES[k])
     if fixed:
         params["p"] = {"value": math.nan, "ci68": [math.nan] * 2, "ci95": [math.nan] * 2}
-        params["p"].update(constrained=False, open_low=True, open_high=True, unit="1")
+        params["p"].update(constrained=False, open_low=True, open_high=True, profiled=False)
+        params["p"]["unit"] = "1"
         unconstrained.append("p")
     for name in unconstrained:
         msg = (
@@ -404,14 +407,15 @@ def fit_device(
     lp_hat = prob.l_phi(x_hat)
     lp_hat = np.where(lp_hat > prob.l_top, np.inf, lp_hat)
     mfp = math.exp(x_hat[2])
-    chi2 = emulator.mahalanobis(ms, lp_hat, mfp, use=use)
+    d2, nu = emulator.mahalanobis(ms, lp_hat, mfp, use=use)
     dof = len(use) * len(ms) - n_free
     goodness = {
-        "statistic": "squared Mahalanobis distance of the measured vector at the MLE",
-        "value": chi2,
+        "statistic": "squared distance d2 of the measured vector at the MLE (predictive-t scale)",
+        "value": d2,
         "dof": dof,
-        "p_value": float(stats.chi2.sf(chi2, dof)) if dof > 0 else math.nan,
-        "reference": "chi-square(n_data - n_params), Gaussian approximation",
+        "t_dof": nu,
+        "p_value": float(stats.f.sf(d2 / dof, dof, nu)) if dof > 0 else math.nan,
+        "reference": "d2/dof ~ F(dof, t_dof), dof = n_data - n_params (approximation)",
     }
     noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in ms])
     q = (0.16, 0.5, 0.84)
