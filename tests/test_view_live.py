@@ -56,9 +56,9 @@ def _live_line(ex):
     return np.asarray(line.get_xdata()) / 1e3, np.asarray(line.get_ydata())  # mT -> T
 
 
-def _explorer(live=None, **kw):
+def _explorer(live=None, live_calibration=True, **kw):
     params = ExplorerParams(**{**SMALL, **kw})
-    return DeviceExplorer(params, live_lattice=True, live=live)
+    return DeviceExplorer(params, live_lattice=True, live=live, live_calibration=live_calibration)
 
 
 def _reference_fsyst(ex):
@@ -155,7 +155,8 @@ def test_live_line_onsager_and_period():
 
 def test_live_with_probes_and_temperature_equals_engine():
     live_view = LiveLattice(n_probes=8)
-    ex = _explorer(live=live_view, temperature=0.0, l_phi=1.0e-6)
+    # analytic coupling only (the calibrated redraw: test_live_realised_l_phi_...)
+    ex = _explorer(live=live_view, live_calibration=False, temperature=0.0, l_phi=1.0e-6)
     live = ex.live
     ring = live_view.ring
     assert live.n_probes == 8 and live.probe_eta > 0
@@ -218,6 +219,62 @@ def test_live_with_probes_and_temperature_equals_engine():
     assert "requested 0.5 µm; realised: not measured" in table
 
 
+def test_live_realised_l_phi_after_background_calibration():
+    """Dephased live view: analytic first frame ("being measured…"), then the calibrated
+    redraw (docs/panels.md "Live lattice view"; docs/probes.md "Realised L_phi"). References:
+    a fresh LPhiCalibrator built here on the same ring and energy, and ``field_sweep(...,
+    calibrate_l_phi=True)`` (the library's calibrated path)."""
+    from ringkit.transport import realised_l_phi as rl
+    from ringkit.transport.lowrank import FluxTubeModel
+    from ringkit.transport.probe_calibration import LPhiCalibrator
+
+    rl.clear_calibration_cache()
+    live_view = LiveLattice(n_probes=8)
+    params = ExplorerParams(**SMALL, temperature=0.0, l_phi=1.0e-6)
+    ex = DeviceExplorer(params, live_lattice=False, live=live_view)
+    frames = []
+    first = ex._live_frame
+
+    def spy(p, result):
+        first(p, result)
+        frames.append((result, ex.banner_text(), ex.summary.value))
+
+    ex._live_frame = spy
+    ex.live_lattice.value = True  # analytic frame, then the calibration (worker, waited for)
+    (pre, banner, table), = frames  # fmt: skip
+    assert math.isnan(pre.l_phi_realised)
+    assert "L_phi requested 1 µm, realised: being measured…" in banner
+    assert "requested 1 µm; realised: being measured…" in table
+    live = ex.live
+    ring = live_view.ring
+    assert rl.cache_info()["setups"] == 1
+    # a fresh calibrator on the same device, energy and probe count
+    a = ring.lattice_spacing
+    cal = LPhiCalibrator(
+        FluxTubeModel(ring.fsyst, params=ring.params()), ring.fermi_energy_lattice, n_probes=8,
+        radius=ring.device.geometry.mean_radius / a,
+    )  # fmt: skip
+    ref = cal.probes(1.0e-6 / a).info
+    assert np.isfinite(live.l_phi_realised) and live.l_phi_realised_err > 0
+    assert live.l_phi_realised == pytest.approx(ref["l_phi_realised"] * a, rel=1e-10)
+    assert live.l_phi_realised_err == pytest.approx(ref["l_phi_realised_err"] * a, rel=1e-10)
+    real, err = live.l_phi_realised * 1e6, live.l_phi_realised_err * 1e6
+    assert f"L_phi requested 1 µm, realised {real:.3g} ± {err:.2g} µm" in ex.banner_text()
+    assert f"requested 1 µm; realised {real:.3g} ± {err:.2g} µm" in ex.summary.value
+    # the drawn line is the library's calibrated sweep at the same energy
+    ds = field_sweep(ring, live.flux, energy=ring.fermi_energy, l_phi=1.0e-6, n_probes=8,
+                     calibrate_l_phi=True)  # fmt: skip
+    np.testing.assert_allclose(_live_line(ex)[1], ds["G"].values, rtol=0, atol=TOL)
+    assert ds.attrs["l_phi_realised_m"] == pytest.approx(live.l_phi_realised, rel=1e-10)
+    setups = rl.cache_info()["setups"]
+    # an L_phi change and a temperature change reuse the calibrator (no new set-up)
+    ex.controls["l_phi"].value = 0.6  # µm
+    assert np.isfinite(ex.live.l_phi_realised) and ex.live.l_phi == ex.params.l_phi
+    ex.controls["temperature"].value = 0.5
+    assert np.isfinite(ex.live.l_phi_realised)
+    assert rl.cache_info()["setups"] == setups
+
+
 def test_live_thermal_equals_field_sweep_at_same_tolerance():
     # the live thermal average is the policy call of field_sweep (same bound, band functionals
     # and per-spin tol/2): with the same goal and budget both choose the same energies
@@ -271,7 +328,8 @@ def test_energies_in_worker_processes_equal_the_serial_path(monkeypatch):
 
 # --------------------------------------------------------------------------- caching
 def test_cache_no_rebuild_for_gate_temperature_l_phi_window():
-    ex = _explorer(live=LiveLattice(n_probes=8), temperature=0.0, l_phi=2e-6)
+    ex = _explorer(live=LiveLattice(n_probes=8), live_calibration=False, temperature=0.0,
+                   l_phi=2e-6)  # fmt: skip
     view = ex.live_view
     builds, ring = view.builds, view.ring
     c = ex.controls

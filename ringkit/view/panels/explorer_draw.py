@@ -96,6 +96,7 @@ class ExplorerDrawing:
             parts.append(
                 f"exact lattice, {self._modes_text()} per arm, {live.n_sites:,} sites"
                 + _thermal_text(live)
+                + _l_phi_banner(live)
             )
         elif self.live_lattice.value and self.live_pending:
             old = " (dashed: previous settings)" if self._live_line() is not None else ""
@@ -353,8 +354,23 @@ def _l_phi_row(live) -> str:
         pm = f" ± {err * 1e6:.2g}" if math.isfinite(err) else ""
         return f"{asked}; realised {live.l_phi_realised * 1e6:.3g}{pm} µm ({live.l_phi_status})"
     status = live.l_phi_status
-    return f"{asked}; realised: " + (status if status.startswith("not measured") else (
-        f"not measured ({status})"))  # fmt: skip
+    if status.startswith(("not measured", "being measured")):
+        return f"{asked}; realised: {status}"
+    return f"{asked}; realised: not measured ({status})"
+
+
+def _l_phi_banner(live) -> str:
+    """Short banner text: requested and realised L_phi (or that it is being measured)."""
+    if live.n_probes == 0 or live.l_phi is None:
+        return ""
+    asked = f"L_phi requested {live.l_phi * 1e6:.3g} µm"
+    if math.isfinite(live.l_phi_realised):
+        err = live.l_phi_realised_err
+        pm = f" ± {err * 1e6:.2g}" if math.isfinite(err) else ""
+        return f"; {asked}, realised {live.l_phi_realised * 1e6:.3g}{pm} µm"
+    if live.l_phi_status.startswith("being measured"):
+        return f"; {asked}, realised: being measured…"
+    return f"; {asked}, realised: not measured"
 
 
 def _table(rows: list[tuple[str, str]], cls: str) -> str:

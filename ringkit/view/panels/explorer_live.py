@@ -38,8 +38,10 @@ the number of energies, the error estimate reached and whether it is below the g
 panel shows them. With the same goal and budget the live line equals ``field_sweep``.
 G per energy is kept over the whole h/e period, so a new field window costs no
 factorization. Dephasing: ``n_probes`` floating Büttiker probes when L_phi is finite, with the
-analytic coupling (the realised L_phi is not measured in the live view; the full computation
-calibrates it on the device and reports it). ``compute(params, cancelled=...)`` stops between
+analytic coupling by default (realised L_phi not measured); ``compute(...,
+calibrate_l_phi=True)`` uses the coupling calibrated on the device as ``field_sweep`` does
+(cached calibrator) and reports the realised L_phi with its error (the panel does this in the
+background after the first frame). ``compute(params, cancelled=...)`` stops between
 energies when newer settings arrive (finished energies stay cached).
 
 API
@@ -123,6 +125,8 @@ class _Thermal(NamedTuple):
     note: str
 
 
+LIVE_L_PHI_PENDING = "being measured… (per-device calibration running in the background)"
+
 LIVE_L_PHI_STATUS = (
     "not measured: analytic probe coupling (its realised L_phi varies 0.7-2.1x between "
     "devices, docs/probes.md); the full computation measures it on the device"
@@ -137,6 +141,19 @@ def _realised(probes) -> tuple[float, float, str]:
     real, err = info["l_phi_realised_m"], info["l_phi_realised_err_m"]
     status = LIVE_L_PHI_STATUS if math.isnan(real) else info["l_phi_status"]
     return float(real), float(err), status
+
+
+def _calibration_ring(ring):
+    """``ring`` with the device's temperature and L_phi set to 0 and None: they do not enter
+    the Hamiltonian, so every live L_phi and temperature shares one cached calibrator
+    (:func:`ringkit.transport.realised_l_phi.ring_fingerprint` hashes the whole device)."""
+    mat = ring.device.material
+    if mat.temperature == 0.0 and mat.l_phi is None:
+        return ring
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # device notes were given when `ring` was built
+        mat = replace(mat, temperature=0.0, l_phi=None)
+        return replace(ring, device=replace(ring.device, material=mat))
 
 
 def single_thread_blas() -> contextlib.AbstractContextManager:
@@ -593,11 +610,15 @@ class LiveLattice:
         timings["model"] += time.perf_counter() - t0
         return model
 
-    def _dephasing(self, ring, params: ExplorerParams, base):
+    def _dephasing(self, ring, params: ExplorerParams, base, calibrate: bool = False,
+                   notes: list | None = None):  # fmt: skip
         """Probes for L_phi (None if coherent): sites and weights cached per E_F and gate.
 
         The zero-field LDOS behind the weights comes from the probe-free model ``base`` (same
-        parameters, flux 0; its MUMPS analysis is then shared with the sweepers).
+        parameters, flux 0; its MUMPS analysis is then shared with the sweepers). With
+        ``calibrate`` the probes are those of :func:`ringkit.transport.sweep.ring_probes`
+        (per-device calibration, cached per process by ring fingerprint, energy, gate and
+        probe count: an L_phi change reuses the calibrator); its warnings go to ``notes``.
         """
         from ringkit.transport.probes import DephasingProbes, attach_probes, coupling_from_l_phi
 
@@ -606,6 +627,16 @@ class LiveLattice:
             return None
         zero = ring.params(flux=0.0)
         e_f = ring.fermi_energy_lattice
+        if calibrate:
+            from ringkit.transport.sweep import ring_probes
+
+            with warnings.catch_warnings(record=True) as rec:
+                warnings.simplefilter("always")
+                probes = ring_probes(_calibration_ring(ring), l_phi, e_f, zero, self.n_probes,
+                                     calibrate=True)  # fmt: skip
+            if notes is not None:
+                notes.extend(f"{w.category.__name__}: {w.message}" for w in rec)
+            return probes
         key = (e_f, tuple(sorted(zero.items())))
 
         def make():
@@ -678,7 +709,8 @@ class LiveLattice:
         return row
 
     # ------------------------------------------------------------------ computation
-    def compute(self, params: ExplorerParams, *, cancelled=None) -> LiveResult:
+    def compute(self, params: ExplorerParams, *, cancelled=None,
+                calibrate_l_phi: bool = False) -> LiveResult:  # fmt: skip
         """Exact lattice G(B) for ``params`` (flux-tube mode), reusing cached pieces.
 
         Parameters
@@ -687,6 +719,11 @@ class LiveLattice:
         cancelled : callable, optional
             ``cancelled() -> bool``, polled before every energy; when it returns True the
             update stops with :class:`LiveCancelled` (finished energies stay cached).
+        calibrate_l_phi : bool
+            False (default, the fast first frame): analytic probe coupling, realised L_phi not
+            measured. True: the coupling calibrated on this device as in
+            ``field_sweep(..., calibrate_l_phi=True)`` (same cached calibrator), so the result
+            carries the realised L_phi and its error.
 
         Raises
         ------
@@ -700,9 +737,11 @@ class LiveLattice:
         if why is not None:
             raise ParameterError("live lattice", params.field_mode, why)
         with single_thread_blas():
-            return self._compute(params, t_start, cancelled or (lambda: False))
+            return self._compute(params, t_start, cancelled or (lambda: False),
+                                 bool(calibrate_l_phi))  # fmt: skip
 
-    def _compute(self, params: ExplorerParams, t_start: float, cancelled) -> LiveResult:
+    def _compute(self, params: ExplorerParams, t_start: float, cancelled,
+                 calibrate: bool = False) -> LiveResult:  # fmt: skip
         timings = dict.fromkeys(("build", "probes", "model", "factorize", "sweep"), 0.0)
         t0 = time.perf_counter()
         ring, rebuilt = self._lattice(params)
@@ -724,7 +763,8 @@ class LiveLattice:
             raise LiveCancelled("superseded before the model")
         base = self._base_model(ring, timings)
         t0 = time.perf_counter()
-        probes = self._dephasing(ring, params, base)
+        cal_notes: list[str] = []
+        probes = self._dephasing(ring, params, base, calibrate, cal_notes)
         timings["probes"] = time.perf_counter() - t0
         pkey = None
         if probes is not None:
@@ -760,7 +800,7 @@ class LiveLattice:
             self.factorizations += made[0]
         if pool.workers > 1:
             timings["workers"] = pool.workers
-        notes = [thermal.note]
+        notes = [thermal.note, *cal_notes]
         if probes is not None:
             notes.append(f"{probes.n} dephasing probes, eta = {float(np.mean(probes.eta)):.3g} t")
         if self._fallbacks:

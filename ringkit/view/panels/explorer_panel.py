@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 import time
+from dataclasses import replace
 from pathlib import Path
 from typing import Any
 
@@ -47,7 +48,12 @@ from ringkit.view.panels.explorer_controls import (
 )
 from ringkit.view.panels.explorer_derived import Derived, derived_quantities
 from ringkit.view.panels.explorer_draw import PREVIEW, ExplorerDrawing
-from ringkit.view.panels.explorer_live import LiveCancelled, LiveLattice, LiveResult
+from ringkit.view.panels.explorer_live import (
+    LIVE_L_PHI_PENDING,
+    LiveCancelled,
+    LiveLattice,
+    LiveResult,
+)
 from ringkit.view.style import new_figure, style_context
 
 __all__ = ["DeviceExplorer"]
@@ -68,6 +74,9 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         The cached live-lattice computation to use (default: a new one).
     background : bool, optional
         Compute the live lattice in a background thread (default: inside a Jupyter kernel).
+    live_calibration : bool
+        With dephasing, follow the analytic-coupling live frame by the device's L_phi
+        calibration and redraw with the calibrated coupling and the realised L_phi (default).
 
     Attributes
     ----------
@@ -108,6 +117,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         live_lattice: bool = True,
         live: LiveLattice | None = None,
         background: bool | None = None,
+        live_calibration: bool = True,
     ) -> None:
         super().__init__()
         p = params or ExplorerParams()
@@ -118,6 +128,7 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         self.live_pending = False
         self.live_stale: LiveResult | None = None
         self.background = in_kernel() if background is None else bool(background)
+        self.live_calibration = bool(live_calibration)
         self._worker = LatestOnly(self._live_compute, self._live_done, self._live_failed)
         self._submitted: dict[int, float] = {}
         self._twin: Any = None
@@ -315,7 +326,24 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
     def _live_compute(self, params: ExplorerParams) -> LiveResult:
         # newer settings cancel this update between energies (LiveCancelled, dropped by
         # _live_failed): the wait is one update, never the sum of queued ones
-        return self.live_view.compute(params, cancelled=lambda: params != self.params)
+        def cancelled() -> bool:
+            return params != self.params
+
+        result = self.live_view.compute(params, cancelled=cancelled)
+        if not self.live_calibration or result.n_probes == 0:
+            return result
+        # dephased: draw the analytic-coupling frame now ("being measured…"), then measure
+        # the realised L_phi on the device (cached calibrator) and redraw with that coupling
+        self._live_frame(params, replace(result, l_phi_status=LIVE_L_PHI_PENDING))
+        return self.live_view.compute(params, cancelled=cancelled, calibrate_l_phi=True)
+
+    def _live_frame(self, params: ExplorerParams, result: LiveResult) -> None:
+        """Draw a first (analytic-coupling) live frame while its calibration runs."""
+        with self.draw_lock:
+            if params != self.params or not self.live_lattice.value:
+                return
+            self.live, self.live_params, self.live_stale = result, params, None
+            self._draw()
 
     def _live_done(self, serial: int, params: ExplorerParams, result: LiveResult) -> None:
         with self.draw_lock:
