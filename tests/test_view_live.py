@@ -273,6 +273,10 @@ def test_live_realised_l_phi_after_background_calibration():
     ex.controls["temperature"].value = 0.5
     assert np.isfinite(ex.live.l_phi_realised)
     assert rl.cache_info()["setups"] == setups
+    # a new disorder seed is another device: one new set-up
+    ex.controls["seed"].value = 4
+    assert np.isfinite(ex.live.l_phi_realised) and ex.live.rebuilt
+    assert rl.cache_info()["setups"] == setups + 1
 
 
 def test_live_thermal_equals_field_sweep_at_same_tolerance():

@@ -335,7 +335,8 @@ class DeviceExplorer(ExplorerDrawing, PanelBase):
         # dephased: draw the analytic-coupling frame now ("being measured…"), then measure
         # the realised L_phi on the device (cached calibrator) and redraw with that coupling
         self._live_frame(params, replace(result, l_phi_status=LIVE_L_PHI_PENDING))
-        return self.live_view.compute(params, cancelled=cancelled, calibrate_l_phi=True)
+        final = self.live_view.compute(params, cancelled=cancelled, calibrate_l_phi=True)
+        return replace(final, rebuilt=result.rebuilt)  # (the first frame built the lattice)
 
     def _live_frame(self, params: ExplorerParams, result: LiveResult) -> None:
         """Draw a first (analytic-coupling) live frame while its calibration runs."""
