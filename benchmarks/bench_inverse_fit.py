@@ -129,7 +129,7 @@ def fit_trial(args) -> dict:
     t0 = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
-        res = fit_device(ms, emu, l_phi_per_temperature=False)
+        res = fit_device(ms, emu, l_phi_per_temperature=False, profile=("l_phi_ref", "p"))
     out = res.to_dict()
     out["fit_time_s"] = time.perf_counter() - t0
     done.write_text(json.dumps(out))

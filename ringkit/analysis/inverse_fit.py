@@ -178,8 +178,12 @@ class _Problem:
         ll = self.emu.logpdf(self.measured, lp, math.exp(x[2]), use=self.use)
         return -ll if math.isfinite(ll) else _BAD
 
-    def minimize(self, z0, fixed: dict | None = None):
-        """Minimize over the free coordinates (``fixed``: index -> scaled value)."""
+    def minimize(self, z0, fixed: dict | None = None, scan: bool = False):
+        """Minimize over the free coordinates (``fixed``: index -> scaled value).
+
+        ``scan``: also start from the best point of a coarse grid over the free coordinates
+        (the likelihood can have several maxima along the L_ref-p ridge).
+        """
         fixed = {**self.fixed, **(fixed or {})}
         free = [k for k in range(3) if k not in fixed]
 
@@ -191,6 +195,13 @@ class _Problem:
             return self.nll(z)
 
         w0 = np.clip(np.asarray(z0, dtype=float)[free], 0, 1)
+        if scan and free:
+            axes = [np.linspace(0.0, 1.0, 7 if k != 2 else 3) for k in free]
+            best = f(w0)
+            for w in np.array(np.meshgrid(*axes, indexing="ij")).reshape(len(free), -1).T:
+                v = f(w)
+                if v < best:
+                    best, w0 = v, w
         r = optimize.minimize(
             f,
             w0,
@@ -235,7 +246,7 @@ def _profile(prob: _Problem, k: int, z_hat: np.ndarray, nll_hat: float, n: int) 
     for order in (range(start, xs.size), range(start, -1, -1)):
         zc = z_hat.copy()
         for i in order:
-            zc, v = prob.minimize(zc, {k: xs[i]})
+            zc, v = prob.minimize(zc, {k: xs[i]}, scan=True)
             prof[i] = (v, zc.copy())
     vals = np.array([prof[i][0] for i in range(xs.size)])
     best = min(nll_hat, float(np.min(vals)))
@@ -251,7 +262,7 @@ def _profile(prob: _Problem, k: int, z_hat: np.ndarray, nll_hat: float, n: int) 
                 za = prof[prev][1]
                 for _ in range(5):
                     m = 0.5 * (a + b)
-                    zm, v = prob.minimize(za, {k: m})
+                    zm, v = prob.minimize(za, {k: m}, scan=True)
                     if 2.0 * (v - best) > level:
                         b = m
                     else:
