@@ -333,6 +333,11 @@ def test_simulated_points_same_on_engine_ensemble():
     for key in ("amplitude_he_rms", "amplitude_h2e_rms", "amplitude_he_rms_err"):
         np.testing.assert_allclose(here[key], pooled[key], rtol=1e-12)
     assert np.all(here["amplitude_he_rms"] > 0) and here["n_samples"][0] == 2
+    # the probes are calibrated on each sample (issue 15 pt 1): realised L_phi with an error,
+    # equal on both paths, and stated in the notes (docs/probes.md, "Realised L_phi")
+    assert np.isfinite(here["l_phi_realised_m"][0]) and here["l_phi_realised_err_m"][0] > 0
+    np.testing.assert_allclose(here["l_phi_realised_m"], pooled["l_phi_realised_m"], rtol=1e-12)
+    assert any("realised L_phi" in n for n in here["notes"])
 
 
 def test_explorer_material_preset_switch():

@@ -147,7 +147,8 @@ def scaling_curves(params: ScalingParams, simulated: Any = None, *, n_modes: int
 
 def _sample(device, seed: int, params: ScalingParams, n_flux: int, n_probes: int,
             max_energies: int) -> np.ndarray:  # fmt: skip
-    """G(flux) over one flux quantum (n_flux points) of one disorder sample, e^2/h."""
+    """G(flux) over one flux quantum (n_flux points) of one disorder sample, e^2/h, and the
+    (realised L_phi, its error) in m of the sample's calibrated probes (NaN without probes)."""
     from ringkit.tightbinding import build_ring
     from ringkit.transport.fastsweep import kron_reduce
     from ringkit.transport.lowrank import FluxTubeSweeper
@@ -158,14 +159,17 @@ def _sample(device, seed: int, params: ScalingParams, n_flux: int, n_probes: int
     fluxes = PHI0 * np.arange(n_flux) / n_flux
     p0 = ring.params(flux=0.0)
     probes_kw: dict[str, Any] = {}
+    realised = (math.nan, math.nan)
     if math.isfinite(params.l_phi):
-        from ringkit.transport.probes import attach_probes
+        from ringkit.transport.sweep import ring_probes
 
-        pr = attach_probes(
-            ring.fsyst, l_phi=params.l_phi, energy=ring.fermi_energy_lattice,
-            n_probes=n_probes, lattice_spacing=ring.lattice_spacing, params=p0,
-        )  # fmt: skip
+        # calibrated on this sample: the probes realise params.l_phi (docs/probes.md)
+        pr = ring_probes(ring, params.l_phi, ring.fermi_energy_lattice, p0, n_probes)
         probes_kw = {"probe_sites": pr.sites, "probe_eta": pr.eta}
+        from ringkit.transport.realised_l_phi import realised_l_phi_info
+
+        info = realised_l_phi_info(pr)
+        realised = (info["l_phi_realised_m"], info["l_phi_realised_err_m"])
     energies, weights, _ = thermal_grid(ring, params.temperature, max_energies)
     g = np.zeros(n_flux)
     for e, w in zip(energies, weights, strict=True):
@@ -174,7 +178,7 @@ def _sample(device, seed: int, params: ScalingParams, n_flux: int, n_probes: int
             g += w * kron_reduce(sw.conductance_matrix(fluxes), 0, 1)
         else:
             g += w * sw.transmission(fluxes)
-    return 2.0 * g  # spin degenerate, e^2/h
+    return 2.0 * g, realised  # G spin degenerate (e^2/h); realised L_phi and error (m)
 
 
 def simulate_points(
@@ -223,7 +227,9 @@ def simulate_points(
     -------
     dict
         ``radius``, ``amplitude_he_rms``, ``amplitude_he_rms_err``, ``amplitude_h2e_rms``,
-        ``amplitude_h2e_rms_err``, ``n_samples`` (arrays) and ``notes`` (tuple of str: warnings
+        ``amplitude_h2e_rms_err``, ``n_samples``, ``l_phi_realised_m`` and
+        ``l_phi_realised_err_m`` (median over the samples of the probes' realised L_phi and of
+        its error, m; NaN without probes) (arrays) and ``notes`` (tuple of str: warnings
         recorded on the way, e.g. low-rank fallbacks or a coarse lattice).
     """
     say = report or (lambda frac, text: None)
@@ -231,17 +237,27 @@ def simulate_points(
         warnings.simplefilter("always")
         res = _simulate(params, radii, seeds, width, lattice_spacing, n_flux, n_probes,
                         max_energies, say, executor)  # fmt: skip
-    res["notes"] = tuple(dict.fromkeys(f"{w.category.__name__}: {w.message}" for w in caught))
+    notes = [f"{w.category.__name__}: {w.message}" for w in caught]
+    for r, lr, le in zip(res["radius"], res["l_phi_realised_m"], res["l_phi_realised_err_m"],
+                         strict=True):  # fmt: skip
+        if np.isfinite(lr):
+            notes.append(
+                f"r = {r * 1e9:.0f} nm: probes calibrated on each sample, realised L_phi "
+                f"{lr * 1e6:.3g} ± {le * 1e6:.2g} um (median; requested "
+                f"{params.l_phi * 1e6:.3g} um)"
+            )
+    res["notes"] = tuple(dict.fromkeys(notes))
     say(1.0, "done")
     return res
 
 
 def _harmonics(device, params: ScalingParams, n_flux: int, n_probes: int, max_energies: int,
                seed: int) -> np.ndarray:  # fmt: skip
-    """rms of the h/e and h/2e harmonics (e^2/h) of one sample (picklable ensemble task)."""
-    g = _sample(device, int(seed), params, int(n_flux), n_probes, max_energies)
+    """rms of the h/e and h/2e harmonics (e^2/h) of one sample, then its realised L_phi and
+    error (m; NaN without probes): a picklable ensemble task."""
+    g, realised = _sample(device, int(seed), params, int(n_flux), n_probes, max_energies)
     c = 2.0 * np.abs(np.fft.rfft(g)) / g.size
-    return c[1:3] / math.sqrt(2.0)
+    return np.concatenate([c[1:3] / math.sqrt(2.0), realised])
 
 
 def _simulate(params, radii, seeds, width, lattice_spacing, n_flux, n_probes, max_energies, say,
@@ -254,7 +270,8 @@ def _simulate(params, radii, seeds, width, lattice_spacing, n_flux, n_probes, ma
     w = 0.25 * min(radii) if width is None else check_positive("width", width, "m")
     mat = params.material_obj()
     out = {k: [] for k in ("amplitude_he_rms", "amplitude_he_rms_err", "amplitude_h2e_rms",
-                           "amplitude_h2e_rms_err")}  # fmt: skip
+                           "amplitude_h2e_rms_err", "l_phi_realised_m",
+                           "l_phi_realised_err_m")}  # fmt: skip
     total = len(radii) * len(seeds)
     done = 0
     for r in radii:
@@ -273,7 +290,13 @@ def _simulate(params, radii, seeds, width, lattice_spacing, n_flux, n_probes, ma
                 say(done / total, f"r = {r * 1e9:.0f} nm, sample {seed}")
                 amps.append(task(int(seed)))
                 done += 1
-        a2 = np.asarray(amps) ** 2  # (samples, 2)
+        amps = np.asarray(amps, dtype=float)
+        lr, lr_err = amps[:, 2], amps[:, 3]
+        out["l_phi_realised_m"].append(float(np.median(lr)) if np.isfinite(lr).all() else np.nan)
+        out["l_phi_realised_err_m"].append(
+            float(np.median(lr_err)) if np.isfinite(lr_err).all() else np.nan
+        )
+        a2 = amps[:, :2] ** 2  # (samples, 2)
         mean = a2.mean(axis=0)
         sem = a2.std(axis=0, ddof=1) / math.sqrt(len(seeds)) if len(seeds) > 1 else 0 * mean
         rms = np.sqrt(mean)
