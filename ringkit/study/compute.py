@@ -15,6 +15,10 @@ What is reused (per worker process, :class:`_RingState`, at most two lattices ke
   FluxTubeModel` (the only evaluation of the Hamiltonian; models with probes are derived from
   it with ``with_probes``) or the uniform-field Peierls model of the first
   :class:`~ringkit.transport.fastsweep.FieldSweeper`;
+* in flux-tube mode, each distinct flux point once: G is h/e-periodic and, for the real
+  (time-reversal symmetric) Hamiltonians of ringkit rings, even in the flux
+  (:func:`ringkit.transport.flux_symmetry.flux_classes`; 201 points over -3..3 h/e are 51
+  distinct points);
 * the L_phi calibration of (lattice, gate, E_F): one
   :class:`~ringkit.transport.probe_calibration.LPhiCalibrator` per process
   (:func:`ringkit.transport.realised_l_phi.realised_ring_probes`, built on the cached
@@ -192,6 +196,10 @@ class UnitEngine:
         self.n_probes = int(task.physics["dephasing"]["probes"])
         self.probes = None if math.isinf(u.l_phi) else self._probes(u.l_phi)
         self.model = self._model() if self.flux else None
+        if self.flux:  # distinct points only (periodicity and reciprocity, exact)
+            from ringkit.transport.flux_symmetry import flux_classes
+
+            self._reps, self._expand = flux_classes(self.model, self.field)
 
     # ------------------------------------------------------------------ reused pieces
     def _base_model(self):
@@ -243,9 +251,10 @@ class UnitEngine:
 
             sw = FluxTubeSweeper(self.model, energy=e_lattice)
             if self.probes is None:
-                g = sw.transmission(self.field)
+                g = sw.transmission(self._reps)
             else:
-                g = kron_reduce(sw.conductance_matrix(self.field))
+                g = kron_reduce(sw.conductance_matrix(self._reps))
+            g = np.asarray(g)[self._expand]
         else:
             model = self.state.models.get(self.gate_key)
             sw = FieldSweeper(

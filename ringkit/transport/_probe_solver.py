@@ -3,7 +3,9 @@
 Used by :mod:`ringkit.transport.probe_calibration` (module docstring there): per energy ONE
 sparse factorization of ``E - H - Sigma_leads`` and the block of its inverse on the cut,
 lead-interface and probe orbitals; probes are folded in by a dense Dyson solve, the flux by the
-Woodbury update of :class:`ringkit.transport.lowrank.FluxTubeSweeper`. Also the realised-L_phi
+Woodbury update of :class:`ringkit.transport.lowrank.FluxTubeSweeper`. The block comes from one
+MUMPS Schur complement onto those orbitals (:mod:`ringkit.transport._lowrank_schur`; pivoting
+LU and selected inverse when that elimination meets a null pivot). Also the realised-L_phi
 measurement (h/e damping with a bootstrap error over the energies).
 """
 
@@ -23,6 +25,7 @@ from ringkit.transport._lowrank_linalg import (
     gamma_factor,
     lead_self_energies,
 )
+from ringkit.transport._lowrank_schur import SchurInverse
 from ringkit.transport.fastsweep import kron_reduce
 
 __all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_l_phi"]
@@ -74,7 +77,9 @@ class ProbeFluxSolver:
         self._kc = (np.searchsorted(keep, cut.rows), np.searchsorted(keep, cut.cols))
         self._kt = [np.searchsorted(keep, o) for o in allt]
         self._lu = Factorization()
+        self._schur = SchurInverse(self._pattern.rows, self._pattern.cols, n, keep)
         self._cache: dict = {}
+        self._classes_of: tuple | None = None  # (fluxes, representatives, inverse)
         self._blocks = [self._factor(e) for e in self.energies]
 
     def _factor(self, energy: float) -> tuple:
@@ -85,11 +90,17 @@ class ProbeFluxSolver:
             ref = c * m.flux_period
             vals = [-m.h0.data, -(m.cut.entries(ref) - zero), np.full(n, float(energy))]
             vals += [-s.ravel() for s in sig]
-            if self._lu.factor(self._pattern.matrix(self._pattern.fill(vals))):
+            data = self._pattern.fill(vals)
+            # the block from one Schur complement onto ``keep``; a null pivot in that
+            # elimination (energy on an eigenvalue of the closed interior) -> pivoting LU
+            g = self._schur.inverse_block(data)
+            if g is not None:
+                break
+            if self._lu.factor(self._pattern.matrix(data)):
+                g = self._lu.inverse_block(self.keep)
                 break
         else:
             raise ParameterError("energies", energy, "E - H - Sigma is singular there")
-        g = self._lu.inverse_block(self.keep)
         return ref, g, [gamma_factor(s) for s in sig]
 
     @property
@@ -126,12 +137,19 @@ class ProbeFluxSolver:
         for kt, x in zip(self._kt, ls, strict=True):
             lmat[kt, c0 : c0 + x.shape[1]] = x
             c0 += x.shape[1]
-        # 1) probes (flux-independent): A_p = A + i eta/2 on the probe orbitals,
-        #    G_p = (1 + G D_p)^-1 G  (one dense solve of the keep block per energy and eta)
+        # 1) probes (flux-independent): A_p = A + E d E^T with d = i eta/2 on the probe
+        #    orbitals E; Woodbury: G_p = G - G E (d^-1 + E^T G E)^-1 E^T G (a solve of the
+        #    probe block only, per energy and eta; probes with eta = 0 change nothing)
         dp = np.zeros(nk, dtype=complex)
         for e, kt in zip(eta, self._kt[len(lead_l) :], strict=True):
             dp[kt] += 0.5j * e
-        gp = np.linalg.solve(np.eye(nk) + g * dp[None, :], g)
+        sel = np.flatnonzero(dp)
+        if sel.size:
+            small = g[np.ix_(sel, sel)]
+            small[np.arange(sel.size), np.arange(sel.size)] += 1.0 / dp[sel]
+            gp = g - g[:, sel] @ np.linalg.solve(small, g[sel, :])
+        else:
+            gp = g
         # 2) flux (Woodbury on the cut entries, as in FluxTubeSweeper): A' = A_p - dH,
         #    L^+ G' L = base + left diag(v) (1 - Q diag(v))^-1 right
         rc, cc = self._kc
@@ -143,10 +161,12 @@ class ProbeFluxSolver:
         y = np.linalg.solve(mat, np.broadcast_to(right, (f.size,) + right.shape))
         z = (v[:, :, None] * y).transpose(1, 0, 2).reshape(rc.size, -1)
         amp = (left @ z).reshape(left.shape[0], f.size, -1).transpose(1, 0, 2) + base[None]
-        t2 = np.abs(amp) ** 2
+        t2 = amp.real**2 + amp.imag**2
         tm = np.zeros((f.size, nt, nt))
         live = np.flatnonzero(np.asarray(nch) > 0)
-        if live.size:
+        if all(x == 1 for x in nch):
+            tm = t2
+        elif live.size:
             st = np.r_[0, np.cumsum(nch)][live]
             tm[:, live[:, None], live[None, :]] = np.add.reduceat(
                 np.add.reduceat(t2, st, axis=1), st, axis=2
@@ -158,10 +178,20 @@ class ProbeFluxSolver:
         return c
 
     def effective_conductance(self, eta, fluxes, *, source: int = 0, drain: int = 1):
-        """Energy-conserving (dephasing-probe) G_eff per energy, shape (n_energies, n_flux)."""
-        cm = self.conductance_matrices(eta, fluxes)
+        """Energy-conserving (dephasing-probe) G_eff per energy, shape (n_energies, n_flux).
+
+        G_eff is h/e-periodic and, for a reciprocal model, even in the flux: each distinct
+        point is computed once (:func:`ringkit.transport.flux_symmetry.flux_classes`).
+        """
+        from ringkit.transport.flux_symmetry import flux_classes
+
+        f = np.atleast_1d(np.asarray(fluxes, dtype=float))
+        if self._classes_of is None or not np.array_equal(self._classes_of[0], f):
+            self._classes_of = (f.copy(), *flux_classes(self.model, f))
+        _, reps, inverse = self._classes_of
+        cm = self.conductance_matrices(eta, reps)
         with _one_blas_thread():
-            return kron_reduce(cm, source, drain)
+            return kron_reduce(cm, source, drain)[:, inverse]
 
 
 def he_amplitudes(solver: ProbeFluxSolver, eta, n_flux: int = 16) -> np.ndarray:

@@ -70,6 +70,7 @@ from ringkit.transport._lowrank_linalg import (
     gamma_factor,
     lead_self_energies,
 )
+from ringkit.transport._lowrank_schur import SchurInverse
 from ringkit.units import PHI0
 
 __all__ = [
@@ -187,6 +188,7 @@ class FluxTubeModel:
         # one MUMPS context per model: energies share the symbolic analysis (same pattern).
         # A sweeper uses it only while it is being built, so sweepers may coexist (one thread).
         self._lu = Factorization()
+        self._schur: SchurInverse | None = None  # probe models: Schur path (``_inverse_block``)
 
     def with_probes(
         self,
@@ -242,6 +244,24 @@ class FluxTubeModel:
             )
         psi = self._lu.solve(rhs)
         return (np.abs(psi) ** 2).sum(axis=1) / (2.0 * np.pi)
+
+    def _inverse_block(self, data: np.ndarray, keep: np.ndarray) -> np.ndarray:
+        """``(A^-1)[keep][:, keep]`` for the values ``data`` of ``A`` (NaN if singular).
+
+        With probes the block is large (one orbital per probe) and one MUMPS Schur complement
+        onto ``keep`` gives it at the cost of a factorization alone
+        (:class:`ringkit.transport._lowrank_schur.SchurInverse`); without probes, or when the
+        Schur elimination meets a null pivot, the pivoting LU and MUMPS's selected inverse.
+        """
+        if self.probe_sites.size:
+            if self._schur is None or not np.array_equal(self._schur.keep, keep):
+                pat = self._pattern
+                self._schur = SchurInverse(pat.rows, pat.cols, self.h0.shape[0], keep)
+            g = self._schur.inverse_block(data)
+            if g is not None:
+                return g
+        self._lu.factor(self._pattern.matrix(data))
+        return self._lu.inverse_block(keep)
 
     def _assemble(self, energy: float, sigmas: list[np.ndarray], ref: float) -> np.ndarray:
         """Data of ``A = E - H(ref) - Sigma`` in the fixed pattern."""
@@ -415,8 +435,7 @@ class FluxTubeSweeper:
             r0 += f.shape[0]
         self._i_orbs, self._lmat = i_orbs, lmat
         keep = np.unique(np.concatenate([cut.rows, cut.cols, i_orbs]))
-        m._lu.factor(m._pattern.matrix(self._data_ref))
-        g_kk = m._lu.inverse_block(keep)
+        g_kk = m._inverse_block(self._data_ref, keep)
         # lower bound on cond(A) (max-norm of A^-1 on the block times the inf-norm of A)
         a_norm = np.bincount(m._pattern.rows, np.abs(self._data_ref), n).max()
         g_max = np.abs(g_kk).max() if np.all(np.isfinite(g_kk)) else np.inf
@@ -474,6 +493,46 @@ class FluxTubeSweeper:
                 res[k] = self._direct_amplitudes(float(fluxes[k]))[np.ix_(out_ch, in_ch)]
             self.n_fallback += len(bad_all)
         return res
+
+    def _channel_t2(self, fluxes: np.ndarray) -> np.ndarray:
+        """``|L^dagger G L|^2`` between all channels, shape ``(n_flux, n_ch, n_ch)``.
+
+        The all-channel case of :meth:`_amplitudes` (conductance matrices, dephasing probes),
+        organised for many channels: the Woodbury correction of every flux of a chunk is one
+        matrix product, and each point is checked a posteriori against the unitarity of the
+        scattering matrix, ``sum_i |a_ij|^2 + 2 Im a_jj = 0`` for every channel ``j``
+        (``a = L^dagger G L``; from ``G - G^dagger = -i G Gamma G^dagger`` with ``Gamma`` of
+        all terminals, Fisher and Lee 1981). A point failing either that check or the
+        rounding-error bound of :meth:`_amplitudes` by more than ``tol`` is solved directly.
+        """
+        nf, nch, ne = fluxes.size, int(self._chan_off[-1]), self._negq.shape[0]
+        out = np.empty((nf, nch, nch))
+        lnorm = np.linalg.norm(self._left)
+        eps = np.finfo(float).eps
+        diag = np.arange(nch)
+        bad_all: list[int] = []
+        chunk = max(1, min(512, _CHUNK_ENTRIES // max(1, self._negq.size, nch * nch)))
+        for s in range(0, nf, chunk):
+            f = fluxes[s : s + chunk]
+            v = self._delta_v(f)
+            y, kappa = batched_update_solve(self._negq, self._qcol2, v, self._right, self._probes)
+            z = (v[:, :, None] * y).transpose(1, 0, 2).reshape(ne, f.size * nch)
+            amp = (self._left @ z).reshape(nch, f.size, nch).transpose(1, 0, 2) + self._base
+            t2 = amp.real**2 + amp.imag**2
+            out[s : s + f.size] = t2
+            ynorm = np.sqrt((np.abs(y) ** 2).sum(axis=(1, 2)))
+            err = eps * kappa * lnorm * np.abs(v).max(axis=1, initial=0.0) * ynorm
+            unitarity = np.abs(t2.sum(axis=1) + 2.0 * amp[:, diag, diag].imag).max(
+                axis=1, initial=0.0
+            )
+            good = (err <= self.tol) & (unitarity <= self.tol) & np.isfinite(unitarity)
+            bad_all.extend((s + np.flatnonzero(~good)).tolist())
+        if bad_all:
+            self._warn(len(bad_all), nf)
+            for k in bad_all:
+                out[k] = np.abs(self._direct_amplitudes(float(fluxes[k]))) ** 2
+            self.n_fallback += len(bad_all)
+        return out
 
     def _direct_amplitudes(self, flux: float) -> np.ndarray:
         """All channel amplitudes at one flux from a fresh sparse solve (fallback path)."""
@@ -543,16 +602,21 @@ class FluxTubeSweeper:
         linear-response matrix.
         """
         f = np.asarray(fluxes, dtype=float)
-        nch = int(self._chan_off[-1])
-        allc = np.arange(nch)
-        t2 = np.abs(self._amplitudes(f.ravel(), allc, allc)) ** 2
+        t2 = self._channel_t2(f.ravel())
         n = self.model.n_terminals
-        tm = np.zeros((f.size, n, n))
-        nonempty = np.flatnonzero(np.asarray(self.n_channels) > 0)
-        if nonempty.size:
-            starts = self._chan_off[nonempty]
-            blocks = np.add.reduceat(np.add.reduceat(t2, starts, axis=1), starts, axis=2)
-            tm[:, nonempty[:, None], nonempty[None, :]] = blocks
+        sizes = np.asarray(self.n_channels)
+        if np.all(sizes == 1):
+            tm = t2
+        else:
+            tm = np.zeros((f.size, n, n))
+            nonempty = np.flatnonzero(sizes > 0)
+            if nonempty.size:
+                starts = self._chan_off[nonempty]
+                blocks = np.add.reduceat(np.add.reduceat(t2, starts, axis=1), starts, axis=2)
+                if nonempty.size == n:
+                    tm = blocks
+                else:
+                    tm[:, nonempty[:, None], nonempty[None, :]] = blocks
         idx = np.arange(n)
         tm[:, idx, idx] = 0.0
         return tm.reshape(f.shape + (n, n))
