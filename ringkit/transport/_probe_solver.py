@@ -25,7 +25,11 @@ from ringkit.transport._lowrank_linalg import (
     gamma_factor,
     lead_self_energies,
 )
-from ringkit.transport._lowrank_schur import SchurInverse
+from ringkit.transport._lowrank_schur import (
+    MAX_UNITARITY_RESIDUAL,
+    SchurInverse,
+    unitarity_residual,
+)
 from ringkit.transport.fastsweep import kron_reduce
 
 __all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_l_phi"]
@@ -85,23 +89,35 @@ class ProbeFluxSolver:
     def _factor(self, energy: float) -> tuple:
         m, n = self.model, self.model.h0.shape[0]
         sig = lead_self_energies(m.fsyst.leads, m.params, float(energy), self._cache)
+        factors = [gamma_factor(s) for s in sig]
         zero = m.cut.entries(0.0)
         for c in (0.2113, 0.4367, 0.0791):
             ref = c * m.flux_period
             vals = [-m.h0.data, -(m.cut.entries(ref) - zero), np.full(n, float(energy))]
             vals += [-s.ravel() for s in sig]
             data = self._pattern.fill(vals)
-            # the block from one Schur complement onto ``keep``; a null pivot in that
-            # elimination (energy on an eigenvalue of the closed interior) -> pivoting LU
+            # the block from one Schur complement onto ``keep``, unless a guard of
+            # _lowrank_schur fires (energy on an eigenvalue of the closed interior): then LU
             g = self._schur.inverse_block(data)
-            if g is not None:
+            if g is not None and self._unitarity(g, factors) <= MAX_UNITARITY_RESIDUAL:
                 break
             if self._lu.factor(self._pattern.matrix(data)):
                 g = self._lu.inverse_block(self.keep)
                 break
         else:
             raise ParameterError("energies", energy, "E - H - Sigma is singular there")
-        return ref, g, [gamma_factor(s) for s in sig]
+        return ref, g, factors
+
+    def _unitarity(self, g: np.ndarray, factors: list[np.ndarray]) -> float:
+        """:func:`unitarity_residual` of the lead-channel amplitudes of the block ``g`` (no
+        probes attached here, so the leads are every terminal)."""
+        rows = np.concatenate(self._kt[: len(factors)])
+        lmat = np.zeros((rows.size, sum(f.shape[1] for f in factors)), dtype=complex)
+        r0 = c0 = 0
+        for f in factors:
+            lmat[r0 : r0 + f.shape[0], c0 : c0 + f.shape[1]] = f
+            r0, c0 = r0 + f.shape[0], c0 + f.shape[1]
+        return float(unitarity_residual(lmat.conj().T @ g[np.ix_(rows, rows)] @ lmat))
 
     @property
     def n_terminals(self) -> int:

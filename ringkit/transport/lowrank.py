@@ -70,7 +70,11 @@ from ringkit.transport._lowrank_linalg import (
     gamma_factor,
     lead_self_energies,
 )
-from ringkit.transport._lowrank_schur import SchurInverse
+from ringkit.transport._lowrank_schur import (
+    MAX_UNITARITY_RESIDUAL,
+    SchurInverse,
+    unitarity_residual,
+)
 from ringkit.units import PHI0
 
 __all__ = [
@@ -245,23 +249,27 @@ class FluxTubeModel:
         psi = self._lu.solve(rhs)
         return (np.abs(psi) ** 2).sum(axis=1) / (2.0 * np.pi)
 
-    def _inverse_block(self, data: np.ndarray, keep: np.ndarray) -> np.ndarray:
-        """``(A^-1)[keep][:, keep]`` for the values ``data`` of ``A`` (NaN if singular).
+    def _inverse_block(
+        self, data: np.ndarray, keep: np.ndarray, schur: bool = True
+    ) -> tuple[np.ndarray, bool]:
+        """``(A^-1)[keep][:, keep]`` for the values ``data`` of ``A`` (NaN if singular), and
+        whether it came from the Schur path.
 
         With probes the block is large (one orbital per probe) and one MUMPS Schur complement
         onto ``keep`` gives it at the cost of a factorization alone
-        (:class:`ringkit.transport._lowrank_schur.SchurInverse`); without probes, or when the
-        Schur elimination meets a null pivot, the pivoting LU and MUMPS's selected inverse.
+        (:class:`ringkit.transport._lowrank_schur.SchurInverse`, with its guards); without
+        probes, with ``schur=False``, or when a guard fires, the pivoting LU and MUMPS's
+        selected inverse.
         """
-        if self.probe_sites.size:
+        if schur and self.probe_sites.size:
             if self._schur is None or not np.array_equal(self._schur.keep, keep):
                 pat = self._pattern
                 self._schur = SchurInverse(pat.rows, pat.cols, self.h0.shape[0], keep)
             g = self._schur.inverse_block(data)
             if g is not None:
-                return g
+                return g, True
         self._lu.factor(self._pattern.matrix(data))
-        return self._lu.inverse_block(keep)
+        return self._lu.inverse_block(keep), False
 
     def _assemble(self, energy: float, sigmas: list[np.ndarray], ref: float) -> np.ndarray:
         """Data of ``A = E - H(ref) - Sigma`` in the fixed pattern."""
@@ -435,7 +443,16 @@ class FluxTubeSweeper:
             r0 += f.shape[0]
         self._i_orbs, self._lmat = i_orbs, lmat
         keep = np.unique(np.concatenate([cut.rows, cut.cols, i_orbs]))
-        g_kk = m._inverse_block(self._data_ref, keep)
+        g_kk, from_schur = m._inverse_block(self._data_ref, keep)
+        self._products(g_kk, keep, lmat, i_orbs, n)
+        if from_schur and not unitarity_residual(self._base) <= MAX_UNITARITY_RESIDUAL:
+            # the Schur block fails the S-matrix unitarity check: the pivoting LU instead
+            g_lu = m._inverse_block(self._data_ref, keep, schur=False)[0]
+            self._products(g_lu, keep, lmat, i_orbs, n)
+
+    def _products(self, g_kk, keep, lmat, i_orbs, n) -> None:
+        """Reference amplitudes and the Woodbury factors from the block ``g_kk``."""
+        m, cut = self.model, self.model.cut
         # lower bound on cond(A) (max-norm of A^-1 on the block times the inf-norm of A)
         a_norm = np.bincount(m._pattern.rows, np.abs(self._data_ref), n).max()
         g_max = np.abs(g_kk).max() if np.all(np.isfinite(g_kk)) else np.inf
@@ -509,7 +526,6 @@ class FluxTubeSweeper:
         out = np.empty((nf, nch, nch))
         lnorm = np.linalg.norm(self._left)
         eps = np.finfo(float).eps
-        diag = np.arange(nch)
         bad_all: list[int] = []
         chunk = max(1, min(512, _CHUNK_ENTRIES // max(1, self._negq.size, nch * nch)))
         for s in range(0, nf, chunk):
@@ -522,9 +538,7 @@ class FluxTubeSweeper:
             out[s : s + f.size] = t2
             ynorm = np.sqrt((np.abs(y) ** 2).sum(axis=(1, 2)))
             err = eps * kappa * lnorm * np.abs(v).max(axis=1, initial=0.0) * ynorm
-            unitarity = np.abs(t2.sum(axis=1) + 2.0 * amp[:, diag, diag].imag).max(
-                axis=1, initial=0.0
-            )
+            unitarity = unitarity_residual(amp)
             good = (err <= self.tol) & (unitarity <= self.tol) & np.isfinite(unitarity)
             bad_all.extend((s + np.flatnonzero(~good)).tolist())
         if bad_all:
