@@ -31,13 +31,17 @@ linearly in ``ln l``. tests/test_inverse_fit.py checks both at held-out nodes.
 Likelihood
 ----------
 For measured amplitudes at temperatures ``T_j`` and ``L_phi(T_j)``: ``y = (sqrt r_he, sqrt r_h2e,
-G)`` at every ``T_j`` (one vector, the temperatures of one ring are correlated). Model
-realizations get the measurement noise floor added in power (``r = sqrt(a^2 + n^2)``); the
-ensemble mean and covariance of y (Schafer-Strimmer shrinkage of the correlations, times
-``1 + 1/n`` for the estimated mean) plus the measurement variances give the predictive
-density of a new draw: a multivariate Student t with ``max(n - p, 3)`` degrees of freedom
-(n realizations, p = dimension of y), which accounts for the estimated covariance.
-The square root makes a Rayleigh amplitude nearly symmetric (Weibull of shape 4).
+G)`` at every ``T_j``. Model realizations get the measurement noise floor added in power
+(``r = sqrt(a^2 + n^2)``). The temperatures of one ring are one realization and nearly
+perfectly correlated, so the likelihood uses the summary ``z = Q^T y`` per quantity, Q the
+orthonormal polynomials of degree < 2 in ln T (level and slope; 6 numbers instead of 18):
+its sample mean and covariance over the n realizations give the predictive density of a new
+draw, a multivariate Student t with ``max(n - p, 3)`` degrees of freedom, plus the
+measurement variances and the emulator's interpolation variance (leave-one-node-out).
+Why, and what this calibrates: :mod:`ringkit.analysis._emulator_likelihood` and
+docs/inverse-fit.md. The square root makes a Rayleigh amplitude nearly symmetric (Weibull of
+shape 4). :meth:`AmplitudeEmulator.summary` still gives the full y mean and (shrunk)
+covariance, for draws and plots.
 
 Public API
 ----------
@@ -54,9 +58,10 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy.interpolate import PchipInterpolator
-from scipy.special import gammaln
 
 from ringkit._validation import ParameterError
+from ringkit.analysis import _emulator_likelihood as _lik
+from ringkit.analysis._emulator_likelihood import shrunk_covariance
 from ringkit.conventions import L_PHI_CONVENTION, L_PHI_CONVENTION_KEY
 
 __all__ = ["AmplitudeEmulator", "EmulatorGrid", "EMULATOR_FORMAT", "QUANTITIES"]
@@ -110,27 +115,6 @@ def _diff(a: dict, b: dict, prefix: str = "") -> str:
     return ""
 
 
-def shrunk_covariance(y: np.ndarray) -> np.ndarray:
-    """Covariance of the rows of ``y`` with the correlations shrunk towards 0.
-
-    Schafer and Strimmer, Stat. Appl. Genet. Mol. Biol. 4, 32 (2005), target "D" (diagonal,
-    unequal variances): ``lambda = sum Var(r_ij) / sum r_ij^2`` over i != j, clipped to [0, 1].
-    """
-    n, p = y.shape
-    sd = y.std(axis=0, ddof=1)
-    sd = np.where(sd > 0, sd, 1e-300)
-    x = (y - y.mean(axis=0)) / sd
-    w = x[:, :, None] * x[:, None, :]
-    r = w.mean(axis=0) * n / (n - 1)
-    var_r = w.var(axis=0, ddof=1) * n / (n - 1) ** 2
-    off = ~np.eye(p, dtype=bool)
-    den = float(np.sum(r[off] ** 2))
-    lam = 1.0 if den == 0 else min(1.0, max(0.0, float(np.sum(var_r[off])) / den))
-    rs = (1.0 - lam) * r
-    rs[np.diag_indices(p)] = 1.0
-    return rs * sd[:, None] * sd[None, :]
-
-
 class AmplitudeEmulator:
     """Ensemble amplitude statistics of one device over (mean free path, L_phi, T).
 
@@ -176,6 +160,20 @@ class AmplitudeEmulator:
         self._u += 1e-12 * np.arange(i)[None, :] * np.max(self._u)  # strictly increasing
         self._lt = np.log(self.temperatures)
         self._la = np.sqrt(np.maximum(self.amplitudes[..., :2], 0.0))
+
+    def subset(self, seed_index) -> AmplitudeEmulator:
+        """The emulator on a subset of its realizations (e.g. leave-one-seed-out checks)."""
+        keep = np.asarray(seed_index, dtype=int)
+        return AmplitudeEmulator(
+            device=self.device_dict,
+            grid=dataclasses.replace(self.grid, seeds=tuple(int(x) for x in self.seeds[keep])),
+            etas=self.etas,
+            amplitudes=self.amplitudes[:, keep],
+            thermal_errors=self.thermal_errors[:, keep],
+            traces=self.traces[:, keep],
+            cal_he=self.cal_he[:, keep],
+            info=self.info,
+        )
 
     # ------------------------------------------------------------------ realised L_phi axis
     def _realised(self, n_boot: int = 400) -> tuple[np.ndarray, np.ndarray]:
@@ -300,9 +298,11 @@ class AmplitudeEmulator:
         return out
 
     def summary(self, l_phi, temperature, mean_free_path: float, noise_rms=None, use=(0, 1, 2)):
-        """Mean and covariance of ``y = (sqrt r_he, sqrt r_h2e, G)`` (module docstring).
+        """Mean and covariance of ``y = (sqrt r_he, sqrt r_h2e, G)`` over all temperatures.
 
-        Returns ``(mean (J*len(use)), cov)`` ordered temperature-major.
+        Correlations shrunk (Schafer-Strimmer), times ``1 + 1/n``; for draws and plots (the
+        likelihood uses :meth:`projected`). Returns ``(mean (J*len(use)), cov)`` ordered
+        temperature-major.
         """
         use = list(use)
         mean, cov = 0.0, 0.0
@@ -317,51 +317,66 @@ class AmplitudeEmulator:
             cov = cov + w * shrunk_covariance(y) * (1.0 + 1.0 / n)
         return mean, cov
 
+    def interpolation_variance(self, d: int, l_phi, temperature) -> np.ndarray:
+        """Variance (J, 3) of y from the emulator's interpolation at node ``d`` (see
+        :mod:`ringkit.analysis._emulator_likelihood`, leave-one-node-out)."""
+        cache = self.__dict__.setdefault("_ivar", {})
+        if d not in cache:
+            vals = np.concatenate([self._la[d], self.amplitudes[d][..., 2:]], axis=-1)
+            cache[d] = _lik.interpolation_variance_tables(self._u[d], self._lt, vals)
+        lp = np.asarray(l_phi, dtype=float)
+        u = np.where(np.isfinite(lp), 1.0 / lp, 0.0)
+        return _lik.variance_at(cache[d], self._u[d], self._lt, u, np.log(temperature))
+
+    def projected(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2), n_basis=None):
+        """Measured summary ``z``, model mean and covariance of ``z``, n and extra variance.
+
+        ``z = Q^T y`` per quantity, Q the orthonormal polynomials of degree < ``n_basis``
+        (default :data:`~ringkit.analysis._emulator_likelihood.N_BASIS`) in ln T over the
+        measured temperatures (module docstring of ``_emulator_likelihood``). The extra
+        variance holds the measurement variances and the interpolation variance.
+        """
+        use = list(use)
+        temps = np.array([m.temperature for m in measured])
+        noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in measured])
+        q = _lik.temperature_basis(temps, _lik.N_BASIS if n_basis is None else n_basis)
+        y, var = measured_vector(measured, use)
+        y, var = y.reshape(temps.size, len(use)), var.reshape(temps.size, len(use))
+        amp = [k for k, u in enumerate(use) if u < 2]
+        mean, cov, ivar = 0.0, 0.0, 0.0
+        for d, w in self._nodes(mean_free_path):
+            v = self._with_noise(self.node_values(d, l_phi, temps), noise)[..., use].copy()
+            v[..., amp] = np.sqrt(np.maximum(v[..., amp], 0.0))
+            zs = _lik.project(v, q)
+            mean = mean + w * zs.mean(axis=0)
+            cov = cov + w * _lik.sample_covariance(zs, shrunk_covariance)
+            ivar = ivar + w * self.interpolation_variance(d, l_phi, temps)[:, use]
+        extra = _lik.project_measurement_cov(var + ivar, q)
+        return _lik.project(y, q), mean, cov, self.seeds.size, extra
+
     def logpdf(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)) -> float:
         """Log-likelihood of measured amplitudes (list of ``MeasuredAmplitudes``).
 
-        ``l_phi`` gives L_phi (m) at each measured temperature. Measurement errors
-        (``*_err``) enter as variances of ``y``; noise floors (``*_noise_rms``) are added to the
-        model in power. The density is the predictive one of a new draw given ``n``
-        realizations: multivariate Student t with ``nu = max(n - p, 3)`` degrees of freedom and
-        scale ``S (1 + 1/n)(n - 1)/nu`` (normal model with unknown mean and covariance,
-        Jeffreys prior; S the shrunk sample covariance, p the dimension of y), plus the
-        measurement variances.
+        ``l_phi`` gives L_phi (m) at each measured temperature. The density is that of the
+        summary ``z`` (level and slope in ln T of ``y`` per quantity, :meth:`projected`):
+        the predictive density of a new draw given ``n`` realizations, a multivariate
+        Student t with ``nu = max(n - p, 3)`` degrees of freedom and scale
+        ``S (1 + 1/n)(n - 1)/nu`` (normal model with unknown mean and covariance, Jeffreys
+        prior; S the sample covariance, p the dimension of z), plus the measurement
+        variances (``*_err``) and the interpolation variance. Noise floors
+        (``*_noise_rms``) are added to the model in power.
         """
-        temps = [m.temperature for m in measured]
-        noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in measured])
-        mean, cov = self.summary(l_phi, temps, mean_free_path, noise, use)
-        y, var = measured_vector(measured, use)
-        n, p = self.seeds.size, y.size
-        nu = max(n - p, 3)
-        c = cov * (n - 1) / nu + np.diag(var)
-        try:
-            ch = np.linalg.cholesky(c)
-        except np.linalg.LinAlgError:
-            return -math.inf
-        z = np.linalg.solve(ch, y - mean)
-        logdet = np.sum(np.log(np.diag(ch)))
-        return float(
-            gammaln(0.5 * (nu + p))
-            - gammaln(0.5 * nu)
-            - 0.5 * p * math.log(nu * math.pi)
-            - logdet
-            - 0.5 * (nu + p) * math.log1p(float(z @ z) / nu)
-        )
+        z, mean, cov, n, extra = self.projected(measured, l_phi, mean_free_path, use)
+        return _lik.t_logpdf(z, mean, cov, n, extra)
 
     def mahalanobis(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)):
-        """Squared distance of the measured vector in the scale of :meth:`logpdf`, and nu.
+        """Squared distance of the measured summary in the scale of :meth:`logpdf`, nu, p.
 
         For the predictive t, ``d^2/p`` follows F(p, nu) (goodness of fit).
         """
-        temps = [m.temperature for m in measured]
-        noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in measured])
-        mean, cov = self.summary(l_phi, temps, mean_free_path, noise, use)
-        y, var = measured_vector(measured, use)
-        n, p = self.seeds.size, y.size
-        nu = max(n - p, 3)
-        r = y - mean
-        return float(r @ np.linalg.solve(cov * (n - 1) / nu + np.diag(var), r)), nu
+        z, mean, cov, n, extra = self.projected(measured, l_phi, mean_free_path, use)
+        d2, nu = _lik.t_distance(z, mean, cov, n, extra)
+        return d2, nu, z.size
 
     # ------------------------------------------------------------------------------- I/O
     def content_hash(self) -> str:

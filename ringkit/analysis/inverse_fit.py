@@ -3,9 +3,9 @@
 The measured amplitudes (h/e rms, h/2e rms, mean G at each temperature,
 :class:`~ringkit.analysis.inverse_fit_data.MeasuredAmplitudes`) are compared with the MODEL'S
 ENSEMBLE DISTRIBUTION over disorder realizations
-(:class:`~ringkit.analysis.emulator.AmplitudeEmulator`,
-Gaussian log-likelihood of ``y = (sqrt r_he, sqrt r_h2e, G)`` over all temperatures jointly),
-not with one realization. No kwant import. docs/inverse-fit.md.
+(:class:`~ringkit.analysis.emulator.AmplitudeEmulator`: predictive Student-t density of the
+level and slope in ln T of ``y = (sqrt r_he, sqrt r_h2e, G)``, all temperatures of the ring
+jointly), not with one realization. No kwant import. docs/inverse-fit.md.
 
 Parameters: ``l_phi_ref`` (m, at ``t_ref``, default the geometric mean of the measured
 temperatures), ``p`` (L_phi proportional to T^-p) and ``mean_free_path`` (m, the disorder).
@@ -18,7 +18,7 @@ and ``3.841`` (95 %), the chi-square(1) quantiles; crossings are bisected. A par
 profile stays below the 68 % level across the whole emulator range is reported as
 unconstrained (no value) with an :class:`UnconstrainedWarning` naming it; an interval that
 reaches the edge of the range is open on that side. Goodness of fit: the squared distance d2
-of the measured vector at the MLE in the scale of the predictive t; ``d2/dof`` is referred to
+of the measured summary at the MLE in the scale of the predictive t; ``d2/dof`` is referred to
 F(dof, nu) with ``dof = n_data - n_params`` (an approximation: parameters fitted).
 Overlay: measured values against the model quantiles (16/50/84 %) at the MLE, per temperature.
 
@@ -418,10 +418,11 @@ def fit_device(
     lp_hat = prob.l_phi(x_hat)
     lp_hat = np.where(lp_hat > prob.l_top, np.inf, lp_hat)
     mfp = math.exp(x_hat[2])
-    d2, nu = emulator.mahalanobis(ms, lp_hat, mfp, use=use)
-    dof = len(use) * len(ms) - n_free
+    d2, nu, n_data = emulator.mahalanobis(ms, lp_hat, mfp, use=use)
+    dof = n_data - n_free
     goodness = {
-        "statistic": "squared distance d2 of the measured vector at the MLE (predictive-t scale)",
+        "statistic": "squared distance d2 of the measured summary (level and slope in ln T) "
+        "at the MLE (predictive-t scale)",
         "value": d2,
         "dof": dof,
         "t_dof": nu,
