@@ -20,7 +20,8 @@ shared, so the CPU ratio is the robust figure), the engine set-up (calibration o
 L_phi, model) and the per-energy part, peak RSS (``getrusage``), and the breakdown of the CPU
 time by stage (model builds, calibration, factorization + inverse block, channel amplitudes,
 Kron reduction). Thread settings (threadpoolctl inside the unit) and load averages are printed.
-Medians over ``--repeat`` interleaved runs; ``--write`` writes ``benchmarks/RESULTS-study.md``.
+Medians over ``--repeat`` interleaved runs; ``--write`` writes ``benchmarks/RESULTS-study.md``
+(a ``--policy`` run is appended to it).
 
 Run from the repository root::
 
@@ -272,8 +273,11 @@ def main() -> None:
             lines.append(f"max |G - G@{args.rev}| over the field, {name}: {d:.1e} e^2/h.")
     text = "\n".join(lines) + "\n"
     print(text)
-    if args.write:
-        (ROOT / "benchmarks" / "RESULTS-study.md").write_text(text)
+    if args.write:  # a --policy run is appended to the fixed-energy results
+        out = ROOT / "benchmarks" / "RESULTS-study.md"
+        if args.policy and out.exists():
+            text = out.read_text() + "\n" + text.replace("# ", "## ", 1)
+        out.write_text(text)
 
 
 if __name__ == "__main__":

@@ -80,6 +80,7 @@ class ProbeFluxSolver:
         self.keep = keep
         self._kc = (np.searchsorted(keep, cut.rows), np.searchsorted(keep, cut.cols))
         self._kt = [np.searchsorted(keep, o) for o in allt]
+        self._terminal_rows = np.unique(np.concatenate(self._kt))
         self._lu = Factorization()
         self._schur = SchurInverse(self._pattern.rows, self._pattern.cols, n, keep)
         self._cache: dict = {}
@@ -170,9 +171,11 @@ class ProbeFluxSolver:
         #    L^+ G' L = base + left diag(v) (1 - Q diag(v))^-1 right
         rc, cc = self._kc
         v = self.model.cut.entries(f) - self.model.cut.entries(ref)
-        lh = lmat.conj().T
-        base = lh @ gp @ lmat
-        left, right, q = lh @ gp[:, rc], gp[cc, :] @ lmat, gp[np.ix_(cc, rc)]
+        tr = self._terminal_rows  # the only nonzero rows of lmat
+        lt = lmat[tr]
+        lh = lt.conj().T
+        base = lh @ gp[np.ix_(tr, tr)] @ lt
+        left, right, q = lh @ gp[np.ix_(tr, rc)], gp[np.ix_(cc, tr)] @ lt, gp[np.ix_(cc, rc)]
         mat = np.eye(rc.size)[None] - q[None] * v[:, None, :]
         y = np.linalg.solve(mat, np.broadcast_to(right, (f.size,) + right.shape))
         z = (v[:, :, None] * y).transpose(1, 0, 2).reshape(rc.size, -1)
