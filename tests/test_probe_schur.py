@@ -181,3 +181,71 @@ def test_a_system_without_reciprocity_is_not_folded():
     assert abs(ref[0] - ref[1]) > 1e-3  # G(-Phi) != G(Phi) here: folding would be wrong
     got = FluxTubeSweeper(model, energy=1.1).transmission(reps)[inverse]
     np.testing.assert_allclose(got, ref, atol=TOL, rtol=0)
+
+
+# A ~300-site GaAs ring in flux-tube mode with 8 probes (invented test scenario, as in
+# tests/test_study_l_phi.py): the study engine over a symmetric grid of 48 points (24 distinct).
+TINY_STUDY = """
+[material]
+preset = "GaAs"
+fermi_energy = "5.5 meV"
+mean_free_path = "250 nm"
+[geometry]
+r_in = "70 nm"
+r_out = "98 nm"
+[lattice]
+spacing = "7 nm"
+[field]
+mode = "flux_tube"
+start = "-2 h/e"
+stop = "2 h/e"
+points = 48
+[sweep]
+temperature = "0 K"
+l_phi = ["300 nm"]
+[dephasing]
+probes = 8
+"""
+
+
+def _dense_kron(fsyst, params, energy, sites, etas):
+    """Two-terminal G (per spin) with floating probes from a dense inverse: Fisher-Lee T_pq,
+    C = -T (off-diagonal), C_jj = sum_i T_ij, floating probe voltages solved with numpy."""
+    h = fsyst.hamiltonian_submatrix(params=params)
+    a = energy * np.eye(h.shape[0]) - h
+    blocks = [
+        (np.asarray(i), lead.selfenergy(energy, params=params))
+        for i, lead in zip(fsyst.lead_interfaces, fsyst.leads, strict=True)
+    ]
+    blocks += [(np.array([s]), np.array([[-0.5j * e]])) for s, e in zip(sites, etas, strict=True)]
+    for idx, sig in blocks:
+        a[np.ix_(idx, idx)] -= sig
+    g = np.linalg.inv(a)
+    n = len(blocks)
+    c = np.zeros((n, n))
+    for p, (ip, sp_) in enumerate(blocks):
+        for q, (iq, sq) in enumerate(blocks):
+            if p != q:
+                gpq = g[np.ix_(ip, iq)]
+                gp, gq = 1j * (sp_ - sp_.conj().T), 1j * (sq - sq.conj().T)
+                c[p, q] = -np.trace(gp @ gpq @ gq @ gpq.conj().T).real
+    c[np.arange(n), np.arange(n)] = -c.sum(axis=0)
+    v = np.linalg.solve(c[2:, 2:], -c[2:, 0])  # source 0 at V = 1, drain 1 grounded
+    return -(c[1, 0] + c[1, 2:] @ v)  # current into the drain
+
+
+def test_study_engine_with_probes_equals_dense_kron_reduction():
+    from ringkit.study import compute, make_plan, parse_config
+
+    plan = make_plan(parse_config(TINY_STUDY))
+    task = compute.make_tasks(plan, [plan.units[0]])[0]
+    engine = compute.UnitEngine(compute.state_for(task), task)
+    assert engine._flux_points()[0].size == 24  # 48 points, +-Phi pairs
+    ring = engine.ring
+    e = ring.fermi_energy_lattice
+    g = engine.conductance(e)
+    sites, etas = engine.probes.sites, np.broadcast_to(engine.probes.eta, (engine.probes.n,))
+    for k in (0, 5, 23, 30, 47):
+        params = ring.params(flux=float(engine.field[k]))
+        ref = 2.0 * _dense_kron(ring.fsyst, params, e, sites, etas)  # spin degeneracy
+        assert abs(g[k] - ref) < TOL, (k, g[k], ref)

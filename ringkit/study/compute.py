@@ -196,10 +196,7 @@ class UnitEngine:
         self.n_probes = int(task.physics["dephasing"]["probes"])
         self.probes = None if math.isinf(u.l_phi) else self._probes(u.l_phi)
         self.model = self._model() if self.flux else None
-        if self.flux:  # distinct points only (periodicity and reciprocity, exact)
-            from ringkit.transport.flux_symmetry import flux_classes
-
-            self._reps, self._expand = flux_classes(self.model, self.field)
+        self._classes: tuple | None = None  # (field, representatives, inverse)
 
     # ------------------------------------------------------------------ reused pieces
     def _base_model(self):
@@ -241,6 +238,17 @@ class UnitEngine:
         base = self._base_model()
         return base if self.probes is None else base.with_probes(self.probes)
 
+    def _flux_points(self) -> tuple[np.ndarray, np.ndarray]:
+        """Distinct flux points of ``self.field`` and the map back onto it (exact: h/e
+        periodicity and, for reciprocal models, G(-Phi) = G(Phi);
+        :func:`ringkit.transport.flux_symmetry.flux_classes`)."""
+        from ringkit.transport.flux_symmetry import flux_classes
+
+        f = np.asarray(self.field, float)
+        if self._classes is None or not np.array_equal(self._classes[0], f):
+            self._classes = (f.copy(), *flux_classes(self.model, f))
+        return self._classes[1], self._classes[2]
+
     # ------------------------------------------------------------------ one energy
     def conductance(self, e_lattice: float) -> np.ndarray:
         """Spin-degenerate G (e^2/h) over the field grid at ``e_lattice`` (units of t)."""
@@ -249,12 +257,13 @@ class UnitEngine:
         if self.flux:
             from ringkit.transport.lowrank import FluxTubeSweeper
 
+            reps, expand = self._flux_points()
             sw = FluxTubeSweeper(self.model, energy=e_lattice)
             if self.probes is None:
-                g = sw.transmission(self._reps)
+                g = sw.transmission(reps)
             else:
-                g = kron_reduce(sw.conductance_matrix(self._reps))
-            g = np.asarray(g)[self._expand]
+                g = kron_reduce(sw.conductance_matrix(reps))
+            g = np.asarray(g)[expand]
         else:
             model = self.state.models.get(self.gate_key)
             sw = FieldSweeper(
