@@ -38,7 +38,7 @@ MFPS = (0.2e-6, 0.4e-6, 0.8e-6)
 NOISE = 3e-3  # e^2/h per point (white), invented measurement noise
 N_PERIODS, N_FLUX = 6, 24
 TARGET = "60-76 %, >= 90 % (issue 13)"
-FIT_VERSION = "v2"  # likelihood on the ln-T projection (docs/inverse-fit.md); v1 fits kept
+FIT_VERSION = "v3"  # level/slope summary, Hartlap-Percival Gaussian (docs/inverse-fit.md); v2: t
 
 
 def small_device():
@@ -202,7 +202,9 @@ def combined_p(fits) -> tuple[float, float, float, float]:
 
 def inside(iv, x) -> bool:
     lo, hi = (math.inf if v == "inf" else (math.nan if v is None else v) for v in iv)
-    return bool(lo <= x <= hi)
+    # 1e-9 relative: truths on the emulator's range edge (mean free path nodes 0.2, 0.8 um)
+    # against an open interval ending at exp(ln edge) (rounding only)
+    return bool(lo * (1 - 1e-9) <= x <= hi * (1 + 1e-9))
 
 
 def cost_big(n_energy_sample: int = 3) -> dict:
@@ -244,6 +246,7 @@ def main() -> None:
     ap.add_argument("--trials", type=int, default=60)
     ap.add_argument("--seeds", type=int, default=32)
     ap.add_argument("--skip-cost", action="store_true")
+    ap.add_argument("--new-cost", action="store_true", help="re-measure section C")
     ap.add_argument("--workers", type=int, default=2)
     opt = ap.parse_args()
     CACHE.mkdir(exist_ok=True)
@@ -410,11 +413,25 @@ def main() -> None:
         f"## Verdict: coverage target {'MET' if met else 'NOT met'} for L_phi(T_ref) on held-out "
         f"lattice seeds ({hits['l_ref'][0] / n:.0%} / {hits['l_ref'][1] / n:.0%}; target {TARGET})",
     ]
+    lines += [
+        "",
+        "History: the former likelihood v1 (all 18 values y(T_j), shrunk correlations, "
+        "predictive t; run of 2026-12-04 19:22 UTC, same trials) covered L_phi(T_ref) in "
+        "12 % / 52 %, p in 17 % / 53 %, with fitted p median 0.66; v2 (level and slope in "
+        "ln T, predictive t) covered 58 % / 95 % (L_phi(T_ref)) and 56 % / 98 % (p) on the "
+        "first 43 trials (run stopped for v3). docs/inverse-fit.md explains the change.",
+    ]
     diag = CACHE / "diagnosis.md"
     if diag.exists():
         lines += ["", diag.read_text().rstrip()]
-    if not opt.skip_cost:
+    cost_path = CACHE / "cost.json"
+    if not opt.skip_cost and (opt.new_cost or not cost_path.exists()):
         c = cost_big()
+        c["load"] = load_avg()
+        c["when"] = time.strftime("%Y-%m-%d %H:%M UTC", time.gmtime())
+        cost_path.write_text(json.dumps(c))
+    if not opt.skip_cost:
+        c = json.loads(cost_path.read_text())
         units = 3 * 32
         total = units * c["n_energies"] * c["per_energy_s"] / 1.3  # 2 workers ~ 1.3x one
         lines += [
@@ -424,7 +441,8 @@ def main() -> None:
             f"Device: GaAs preset, 3e11 cm^-2, mean radius 0.5 um, 120 nm arms, default lattice, "
             f"{c['n_sites']} sites, {c['n_modes']} lead modes, 100 probes, {c['n_eta']} couplings. "
             f"Measured unit cost per energy (factorization + selected inverse + "
-            f"{c['n_eta']} couplings x 24 fluxes): {c['per_energy_s']:.2f} s (load {load_avg()}). "
+            f"{c['n_eta']} couplings x 24 fluxes): {c['per_energy_s']:.2f} s (measured "
+            f"{c['when']}, load {c['load']}). "
             f"Energies for T = 0.3-4 K at thermal tol 2e-3 e^2/h: {c['n_energies']}. "
             f"Extrapolated build (3 mean free paths x 32 seeds, 2 workers at 1.3x one): "
             f"{total / 60:.0f} min -- NOT measured end to end.",

@@ -17,14 +17,17 @@ the measured temperatures (K = 2: level and slope), so ``p = K x n_quantities`` 
 small against n. This is the exact likelihood of a linear summary of the data (information
 in the curvature over T is discarded, which widens the intervals honestly).
 
-Predictive density
-------------------
-For a normal model with mean and covariance estimated from n realizations (Jeffreys prior),
-the density of a new draw is a multivariate Student t with ``nu = n - p`` degrees of freedom
-and scale ``S (1 + 1/n)(n - 1)/nu`` (standard Bayesian predictive result, from memory;
-``tests/test_inverse_fit_likelihood.py`` checks the implementation against
-``scipy.stats.multivariate_t``). Measurement and interpolation variances are added to the
-scale.
+Density and the finite-ensemble corrections
+-------------------------------------------
+The model mean and covariance of z come from the n realizations. A Gaussian with the plain
+sample covariance S gives intervals that are too narrow: the inverse of S is biased high by
+``(n - 1)/(n - p - 2)`` and its noise adds scatter to the fitted parameters. With n >= p + 5
+the density is Gaussian with covariance ``S (1 + 1/n) m1/alpha`` plus the measurement and
+interpolation variances (:func:`covariance_factor`: Hartlap et al. 2007, Percival et al.
+2014). On a correlated Gaussian toy with a known truth this covers 66-68 % / 93-94 % at
+n = 16-64 (tests/test_inverse_fit_likelihood.py); the predictive Student t alone (the
+density of a new draw, Jeffreys prior) covered 54 % / 86 % at n = 16 and 63 % / 91 % at
+n = 32. With fewer realizations the t is used (shrunk covariance; not calibrated).
 
 Interpolation error
 -------------------
@@ -36,8 +39,8 @@ is the interpolation variance. Between nodes the larger neighbour is used (conse
 
 Public API (package-internal)
 -----------------------------
-temperature_basis, project_measurement_cov, sample_covariance, shrunk_covariance, t_logpdf,
-t_distance,
+temperature_basis, project_measurement_cov, sample_covariance, shrunk_covariance,
+covariance_factor, predictive_scale, logpdf, distance,
 interpolation_variance_tables
 """
 
@@ -56,8 +59,10 @@ __all__ = [
     "project_measurement_cov",
     "sample_covariance",
     "shrunk_covariance",
-    "t_logpdf",
-    "t_distance",
+    "covariance_factor",
+    "predictive_scale",
+    "logpdf",
+    "distance",
     "interpolation_variance_tables",
 ]
 
@@ -124,26 +129,57 @@ def shrunk_covariance(y: np.ndarray) -> np.ndarray:
 
 
 def sample_covariance(z: np.ndarray, shrink) -> np.ndarray:
-    """Unbiased sample covariance of the rows of ``z``; ``shrink(z)`` if n < p + 4.
+    """Unbiased sample covariance of the rows of ``z``; ``shrink(z)`` if n < p + 5.
 
-    With fewer realizations the sample covariance is singular or the t has < 3 degrees of
-    freedom; the correlations are then shrunk (``shrink`` = Schafer-Strimmer).
+    With fewer realizations the sample covariance is singular or the corrections of
+    :func:`covariance_factor` do not exist; the correlations are then shrunk (``shrink`` =
+    Schafer-Strimmer) and the density is the predictive t (not calibrated: too few
+    realizations).
     """
     n, p = z.shape
-    if n < p + 4:
+    if n < p + 5:
         return shrink(z)
     return np.atleast_2d(np.cov(z, rowvar=False))
 
 
-def _scale(cov: np.ndarray, n: int, extra: np.ndarray) -> tuple[np.ndarray, float]:
+def covariance_factor(n: int, p: int, n_theta: int) -> float | None:
+    """Factor on the sample covariance for parameter intervals from n realizations.
+
+    ``m1 / alpha``: alpha = (n - p - 2)/(n - 1) debiases the inverse of the sample covariance
+    (Hartlap, Simon and Schneider, Astron. Astrophys. 464, 399 (2007)); m1 =
+    (1 + B (p - n_theta)) / (1 + A + B (n_theta + 1)), A = 2/((n - p - 1)(n - p - 4)),
+    B = (n - p - 2)/((n - p - 1)(n - p - 4)), adds the scatter of the fitted parameters caused
+    by the noise of the estimate (Percival et al., Mon. Not. R. Astron. Soc. 439, 2531
+    (2014), from memory; Dodelson and Schneider, Phys. Rev. D 88, 063537 (2013)). None when
+    n < p + 5 (undefined).
+    """
+    if n < p + 5:
+        return None
+    a = 2.0 / ((n - p - 1) * (n - p - 4))
+    b = (n - p - 2) / ((n - p - 1) * (n - p - 4))
+    m1 = (1.0 + b * (p - n_theta)) / (1.0 + a + b * (n_theta + 1))
+    return m1 * (n - 1) / (n - p - 2)
+
+
+def predictive_scale(cov: np.ndarray, n: int, extra, n_theta: int) -> tuple[np.ndarray, float]:
+    """Covariance (or t scale) of the measured summary, and nu (inf: Gaussian).
+
+    n >= p + 5: Gaussian with ``S (1 + 1/n) m1/alpha + extra`` (:func:`covariance_factor`;
+    ``1 + 1/n`` for the estimated mean). Fewer realizations: the predictive Student t of a
+    new draw (normal model, unknown mean and covariance, Jeffreys prior; from memory) with
+    ``nu = max(n - p, 3)`` and scale ``S (1 + 1/n)(n - 1)/nu + extra``.
+    """
     p = cov.shape[0]
+    f = covariance_factor(n, p, n_theta)
+    if f is not None:
+        return cov * (1.0 + 1.0 / n) * f + extra, math.inf
     nu = float(max(n - p, 3))
     return cov * (1.0 + 1.0 / n) * (n - 1) / nu + extra, nu
 
 
-def t_logpdf(x: np.ndarray, mean: np.ndarray, cov: np.ndarray, n: int, extra) -> float:
-    """Predictive log density of ``x`` given mean/covariance from n realizations (+ extra)."""
-    c, nu = _scale(cov, n, extra)
+def logpdf(x: np.ndarray, mean: np.ndarray, cov, n: int, extra, n_theta: int = 3) -> float:
+    """Log density of the measured summary ``x`` (:func:`predictive_scale`)."""
+    c, nu = predictive_scale(cov, n, extra, n_theta)
     p = x.size
     try:
         ch = np.linalg.cholesky(c)
@@ -151,21 +187,25 @@ def t_logpdf(x: np.ndarray, mean: np.ndarray, cov: np.ndarray, n: int, extra) ->
         return -math.inf
     r = np.linalg.solve(ch, x - mean)
     d2 = float(r @ r)
+    logdet = float(np.sum(np.log(np.diag(ch))))
+    if math.isinf(nu):
+        return -0.5 * d2 - logdet - 0.5 * p * math.log(2.0 * math.pi)
     return float(
         gammaln(0.5 * (nu + p))
         - gammaln(0.5 * nu)
         - 0.5 * p * math.log(nu * math.pi)
-        - np.sum(np.log(np.diag(ch)))
+        - logdet
         - 0.5 * (nu + p) * math.log1p(d2 / nu)
     )
 
 
-def t_distance(x, mean, cov, n: int, extra) -> tuple[float, float]:
-    """Squared distance of ``x`` in the scale of :func:`t_logpdf`, and its nu.
+def distance(x, mean, cov, n: int, extra, n_theta: int = 3) -> tuple[float, float]:
+    """Squared distance of ``x`` in the scale of :func:`logpdf`, and nu.
 
-    For the predictive t, ``d2/p`` follows F(p, nu) (closed form).
+    Gaussian (nu = inf): ``d2`` follows chi-square(p) at the truth; t: ``d2/p`` follows
+    F(p, nu) (closed forms).
     """
-    c, nu = _scale(cov, n, extra)
+    c, nu = predictive_scale(cov, n, extra, n_theta)
     r = x - mean
     return float(r @ np.linalg.solve(c, r)), nu
 

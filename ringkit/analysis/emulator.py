@@ -35,8 +35,8 @@ G)`` at every ``T_j``. Model realizations get the measurement noise floor added 
 (``r = sqrt(a^2 + n^2)``). The temperatures of one ring are one realization and nearly
 perfectly correlated, so the likelihood uses the summary ``z = Q^T y`` per quantity, Q the
 orthonormal polynomials of degree < 2 in ln T (level and slope; 6 numbers instead of 18):
-its sample mean and covariance over the n realizations give the predictive density of a new
-draw, a multivariate Student t with ``max(n - p, 3)`` degrees of freedom, plus the
+its sample mean and covariance over the n realizations, with the finite-ensemble
+corrections of Hartlap et al. and Percival et al., give a Gaussian density, plus the
 measurement variances and the emulator's interpolation variance (leave-one-node-out).
 Why, and what this calibrates: :mod:`ringkit.analysis._emulator_likelihood` and
 docs/inverse-fit.md. The square root makes a Rayleigh amplitude nearly symmetric (Weibull of
@@ -354,28 +354,30 @@ class AmplitudeEmulator:
         extra = _lik.project_measurement_cov(var + ivar, q)
         return _lik.project(y, q), mean, cov, self.seeds.size, extra
 
-    def logpdf(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)) -> float:
+    def logpdf(
+        self, measured, l_phi, mean_free_path: float, use=(0, 1, 2), n_theta: int = 3
+    ) -> float:
         """Log-likelihood of measured amplitudes (list of ``MeasuredAmplitudes``).
 
-        ``l_phi`` gives L_phi (m) at each measured temperature. The density is that of the
+        ``l_phi`` gives L_phi (m) at each measured temperature; ``n_theta`` is the number of
+        fitted parameters (enters the finite-ensemble correction). The density is that of the
         summary ``z`` (level and slope in ln T of ``y`` per quantity, :meth:`projected`):
-        the predictive density of a new draw given ``n`` realizations, a multivariate
-        Student t with ``nu = max(n - p, 3)`` degrees of freedom and scale
-        ``S (1 + 1/n)(n - 1)/nu`` (normal model with unknown mean and covariance, Jeffreys
-        prior; S the sample covariance, p the dimension of z), plus the measurement
-        variances (``*_err``) and the interpolation variance. Noise floors
-        (``*_noise_rms``) are added to the model in power.
+        Gaussian with the sample covariance of the n realizations times
+        ``(1 + 1/n) m1/alpha`` (Hartlap and Percival corrections,
+        :func:`~ringkit.analysis._emulator_likelihood.covariance_factor`), plus the
+        measurement variances (``*_err``) and the interpolation variance; with n < p + 5 a
+        predictive Student t. Noise floors (``*_noise_rms``) are added to the model in power.
         """
         z, mean, cov, n, extra = self.projected(measured, l_phi, mean_free_path, use)
-        return _lik.t_logpdf(z, mean, cov, n, extra)
+        return _lik.logpdf(z, mean, cov, n, extra, n_theta)
 
-    def mahalanobis(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2)):
+    def mahalanobis(self, measured, l_phi, mean_free_path: float, use=(0, 1, 2), n_theta=3):
         """Squared distance of the measured summary in the scale of :meth:`logpdf`, nu, p.
 
-        For the predictive t, ``d^2/p`` follows F(p, nu) (goodness of fit).
+        Gaussian (nu = inf): d^2 ~ chi-square(p) at the truth; t: ``d^2/p`` ~ F(p, nu).
         """
         z, mean, cov, n, extra = self.projected(measured, l_phi, mean_free_path, use)
-        d2, nu = _lik.t_distance(z, mean, cov, n, extra)
+        d2, nu = _lik.distance(z, mean, cov, n, extra, n_theta)
         return d2, nu, z.size
 
     # ------------------------------------------------------------------------------- I/O

@@ -3,9 +3,9 @@
 The measured amplitudes (h/e rms, h/2e rms, mean G at each temperature,
 :class:`~ringkit.analysis.inverse_fit_data.MeasuredAmplitudes`) are compared with the MODEL'S
 ENSEMBLE DISTRIBUTION over disorder realizations
-(:class:`~ringkit.analysis.emulator.AmplitudeEmulator`: predictive Student-t density of the
-level and slope in ln T of ``y = (sqrt r_he, sqrt r_h2e, G)``, all temperatures of the ring
-jointly), not with one realization. No kwant import. docs/inverse-fit.md.
+(:class:`~ringkit.analysis.emulator.AmplitudeEmulator`: Gaussian density, with finite-ensemble
+corrections, of the level and slope in ln T of ``y = (sqrt r_he, sqrt r_h2e, G)``, all
+temperatures of the ring jointly), not with one realization. No kwant import. docs/inverse-fit.md.
 
 Parameters: ``l_phi_ref`` (m, at ``t_ref``, default the geometric mean of the measured
 temperatures), ``p`` (L_phi proportional to T^-p) and ``mean_free_path`` (m, the disorder).
@@ -18,8 +18,9 @@ and ``3.841`` (95 %), the chi-square(1) quantiles; crossings are bisected. A par
 profile stays below the 68 % level across the whole emulator range is reported as
 unconstrained (no value) with an :class:`UnconstrainedWarning` naming it; an interval that
 reaches the edge of the range is open on that side. Goodness of fit: the squared distance d2
-of the measured summary at the MLE in the scale of the predictive t; ``d2/dof`` is referred to
-F(dof, nu) with ``dof = n_data - n_params`` (an approximation: parameters fitted).
+of the measured summary at the MLE in the scale of the likelihood, referred to
+chi-square(dof) with ``dof = n_data - n_params`` (an approximation: parameters fitted; F for
+the t used with very few realizations).
 Overlay: measured values against the model quantiles (16/50/84 %) at the MLE, per temperature.
 
 Public API
@@ -155,6 +156,7 @@ class _Problem:
         self.lo = np.array([math.log(self.l_min), p_bounds[0], math.log(lo_l)])
         self.hi = np.array([math.log(self.l_top), p_bounds[1], math.log(hi_l)])
         self.n_eval = 0
+        self.n_theta = 3 if self.temps.size > 1 else 2
         self.fixed: dict = {}  # scaled coordinates held fixed in every minimization
 
     def phys(self, z):
@@ -175,7 +177,7 @@ class _Problem:
             return _BAD * (1 + float(np.max(np.log(self.l_min / lp))))
         lp = np.where(lp > self.l_top, np.inf, lp)
         self.n_eval += 1
-        ll = self.emu.logpdf(self.measured, lp, math.exp(x[2]), use=self.use)
+        ll = self.emu.logpdf(self.measured, lp, math.exp(x[2]), self.use, self.n_theta)
         return -ll if math.isfinite(ll) else _BAD
 
     def minimize(self, z0, fixed: dict | None = None, scan: bool = False):
@@ -418,16 +420,22 @@ def fit_device(
     lp_hat = prob.l_phi(x_hat)
     lp_hat = np.where(lp_hat > prob.l_top, np.inf, lp_hat)
     mfp = math.exp(x_hat[2])
-    d2, nu, n_data = emulator.mahalanobis(ms, lp_hat, mfp, use=use)
+    d2, nu, n_data = emulator.mahalanobis(ms, lp_hat, mfp, use, n_free)
     dof = n_data - n_free
+    if math.isinf(nu):
+        p_value = float(stats.chi2.sf(d2, dof)) if dof > 0 else math.nan
+        reference = "d2 ~ chi-square(dof), dof = n_data - n_params (approximation)"
+    else:
+        p_value = float(stats.f.sf(d2 / dof, dof, nu)) if dof > 0 else math.nan
+        reference = "d2/dof ~ F(dof, t_dof), dof = n_data - n_params (approximation)"
     goodness = {
         "statistic": "squared distance d2 of the measured summary (level and slope in ln T) "
         "at the MLE (predictive-t scale)",
         "value": d2,
         "dof": dof,
-        "t_dof": nu,
-        "p_value": float(stats.f.sf(d2 / dof, dof, nu)) if dof > 0 else math.nan,
-        "reference": "d2/dof ~ F(dof, t_dof), dof = n_data - n_params (approximation)",
+        "t_dof": nu,  # inf: Gaussian
+        "p_value": p_value,
+        "reference": reference,
     }
     noise = np.array([[m.he_noise_rms, m.h2e_noise_rms] for m in ms])
     q = (0.16, 0.5, 0.84)
