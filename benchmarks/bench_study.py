@@ -3,7 +3,8 @@
 Target: the dephased unit costs at most 2x the coherent unit at the same energies, with flat
 memory (peak <= 1 GB per worker). Device: the issue's ring (GaAs preset, density 3e11 cm^-2,
 mean radius 0.5 um, 120 nm arms, default lattice: 28 626 sites), flux-tube mode, 201 flux points
-over 6 h/e, 100 probes, L_phi = 1 um. Cases, each in a fresh process (so the per-process L_phi
+over -3..3 h/e (``--start``/``--stop`` for another window, e.g. one without repeated phases),
+100 probes, L_phi = 1 um. Cases, each in a fresh process (so the per-process L_phi
 calibration is paid, as in the first unit of a lattice):
 
 * ``coherent``: the current ``ringkit.study.compute`` without probes (reference of the target);
@@ -53,8 +54,8 @@ radius = "500 nm"
 width = "120 nm"
 [field]
 mode = "flux_tube"
-start = "-3 h/e"
-stop = "3 h/e"
+start = "{start} h/e"
+stop = "{stop} h/e"
 points = 201
 [sweep]
 temperature = "0.3 K"
@@ -155,12 +156,12 @@ print(json.dumps({"wall": wall, "cpu": cpu, "setup_cpu": setup["cpu"],
 """
 
 
-def run_case(l_phi: str, n_e: int, pythonpath: str | None) -> dict:
+def run_case(l_phi: str, n_e: int, pythonpath: str | None, study: str = STUDY) -> dict:
     env = dict(os.environ)
     if pythonpath:
         env["PYTHONPATH"] = pythonpath
     p = subprocess.run(  # cwd outside the repository: "import ringkit" is the chosen package
-        [sys.executable, "-c", CHILD, l_phi, str(n_e), STUDY],
+        [sys.executable, "-c", CHILD, l_phi, str(n_e), study],
         capture_output=True,
         text=True,
         env=env,
@@ -184,8 +185,11 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--rev", default=BEFORE_REV, help="git revision of the 'before' cases")
     ap.add_argument("--no-before", action="store_true", help="skip the @REV cases")
+    ap.add_argument("--start", default="-3", help="flux window start, h/e (default -3)")
+    ap.add_argument("--stop", default="3", help="flux window stop, h/e (default 3)")
     ap.add_argument("--write", action="store_true")
     args = ap.parse_args()
+    study = STUDY.replace("{start}", args.start).replace("{stop}", args.stop)
     n_e = 0 if args.policy else args.energies
     tmp = tempfile.TemporaryDirectory(prefix="ringkit_before_")
     cases = [("coherent", "inf", None), ("dephased", "1 um", None)]
@@ -202,7 +206,7 @@ def main() -> None:
     res: dict[str, list[dict]] = {name: [] for name, _, _ in cases}
     for _ in range(args.repeat):
         for name, l_phi, path in cases:
-            r = run_case(l_phi, n_e, path)
+            r = run_case(l_phi, n_e, path, study)
             res[name].append(r)
             print(
                 f"{name:18s} wall {r['wall']:6.1f} s  CPU {r['cpu']:6.1f} s  set-up CPU "
@@ -239,7 +243,8 @@ def main() -> None:
         f"`benchmarks/bench_study.py{' --policy' if args.policy else ''}`, "
         f"{time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}; ring of {sites:,} sites "
         "(GaAs, 3e11 cm^-2, r = 0.5 um, 120 nm arms), flux-tube mode, 201 flux points over "
-        f"6 h/e, {energies}, 100 probes, L_phi = 1 um (realised-L_phi calibration included: "
+        f"{args.start}..{args.stop} h/e, {energies}, 100 probes, L_phi = 1 um "
+        "(realised-L_phi calibration included: "
         "every case runs in a fresh process). BLAS threads inside the unit (threadpoolctl): "
         f"{thread_text}; {env_text}; MUMPS sequential. Median of {args.repeat} interleaved "
         f"run(s); load average {load_before[0]:.1f}/{load_before[1]:.1f} (1/5 min) before, "

@@ -87,6 +87,7 @@ __all__ = [
 
 _QUANTITIES = ("transmission", "conductance_matrix", "transmission_matrix")
 _CHUNK_ENTRIES = 4_000_000  # complex entries of the small matrices held at once (64 MB)
+_T2_CHUNK_ENTRIES = 400_000  # the same for all-channel amplitudes (6.4 MB per array)
 _COND_MAX = 1.0e11  # retry another reference flux above this (automatic reference only)
 
 
@@ -527,7 +528,9 @@ class FluxTubeSweeper:
         lnorm = np.linalg.norm(self._left)
         eps = np.finfo(float).eps
         bad_all: list[int] = []
-        chunk = max(1, min(512, _CHUNK_ENTRIES // max(1, self._negq.size, nch * nch)))
+        # small chunks keep the per-chunk arrays in cache (measured ~10 % faster than one
+        # chunk of 201 points at 110 channels) and the memory low
+        chunk = max(1, min(512, _T2_CHUNK_ENTRIES // max(1, self._negq.size, nch * nch)))
         for s in range(0, nf, chunk):
             f = fluxes[s : s + chunk]
             v = self._delta_v(f)
@@ -619,8 +622,18 @@ class FluxTubeSweeper:
         t2 = self._channel_t2(f.ravel())
         n = self.model.n_terminals
         sizes = np.asarray(self.n_channels)
+        nl = self.model.n_leads
         if np.all(sizes == 1):
             tm = t2
+        elif np.all(sizes[:nl] > 0) and np.all(sizes[nl:] == 1):
+            # one-channel probes after the leads: only the lead rows and columns are summed
+            k, starts = int(self._chan_off[nl]), self._chan_off[:nl]
+            tm = np.empty((f.size, n, n))
+            tm[:, nl:, nl:] = t2[:, k:, k:]
+            rows = np.add.reduceat(t2[:, :k, :], starts, axis=1)
+            tm[:, :nl, :nl] = np.add.reduceat(rows[:, :, :k], starts, axis=2)
+            tm[:, :nl, nl:] = rows[:, :, k:]
+            tm[:, nl:, :nl] = np.add.reduceat(t2[:, k:, :k], starts, axis=2)
         else:
             tm = np.zeros((f.size, n, n))
             nonempty = np.flatnonzero(sizes > 0)
