@@ -170,6 +170,34 @@ def loo_trial(args) -> dict:
     return out
 
 
+def time_fits(path, sims) -> tuple[float, str, str]:
+    """Median wall time of fresh serial fits (not cached) and the load before/after."""
+    from ringkit.analysis.inverse_fit import fit_device, measured_amplitudes_from_traces
+    from ringkit.units import PHI0
+
+    emu = _emulator(path)
+    dev = small_device()
+    r = dev.geometry.mean_radius
+    field = np.arange(N_PERIODS * N_FLUX) * PHI0 / N_FLUX / (math.pi * r * r)
+    from ringkit.transport._engine_threads import blas_limit
+
+    la0, times = load_avg(), []
+    for s in sims:
+        with warnings.catch_warnings(), blas_limit():
+            warnings.simplefilter("ignore")
+            ms = measured_amplitudes_from_traces(
+                [(field, row) for row in s["g"]],
+                list(TEMPS),
+                device=dev,
+                background="none",
+                band_radii=(0.95 * r, 1.05 * r),
+            )
+            t0 = time.perf_counter()
+            fit_device(ms, emu)
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times)), la0, load_avg()
+
+
 def frac(k: int, n: int) -> str:
     """Fraction with its binomial standard error."""
     f = k / max(n, 1)
@@ -308,6 +336,7 @@ def main() -> None:
         ]
         loos = list(ex.map(loo_trial, loo_jobs))
     print(f"trials simulated in {t_sim:.0f} s, fitted in {t_fit:.0f} s", flush=True)
+    quiet = time_fits(path, sims[1:6])
     n = len(fits)
     hits = {key: [0, 0] for key in ("l_ref", "p", "mfp", "loo_l_ref", "loo_p")}
     per_t = np.zeros((len(TEMPS), 2), dtype=int)
@@ -367,9 +396,12 @@ def main() -> None:
         f"{n} trials (held-out seeds 10000..{10000 + n - 1}, never in the emulator; true p = 1, "
         f"L_ref at T_ref = {t_ref:.3g} K drawn log-uniform in 0.22-0.45 um, l one of the "
         f"nodes; noise {NOISE} e^2/h per point, {N_PERIODS} periods x {N_FLUX} points). "
-        f"Lattice traces simulated once ({t_sim:.0f} s here, cached). Fits: all three "
-        f"parameters profiled and L_phi(T_j) at each T; {t_fit:.0f} s for {n} fits on 2 "
-        f"workers, median {np.median(fit_times):.1f} s (max {np.max(fit_times):.1f} s) per fit.",
+        f"Lattice traces simulated once (cached; {t_sim:.0f} s in this run). Fits: all three "
+        f"parameters profiled and L_phi(T_j) at each T (cached per trial; {t_fit:.0f} s in this "
+        f"run): stored wall times median {np.median(fit_times):.1f} s, max "
+        f"{np.max(fit_times):.1f} s per fit, measured while the fits ran 2 at a time next to "
+        f"other helpers' benchmarks. Serial re-timing of trials 1-5 in this run (load "
+        f"{quiet[1]} -> {quiet[2]}, one BLAS thread): median {quiet[0]:.1f} s.",
         "",
         "| parameter | in 68 % interval | in 95 % interval | target |",
         "|---|---|---|---|",
@@ -407,11 +439,26 @@ def main() -> None:
         f"profiles of p, each ring with its own L_ref and l): p = {pc[0]:.2f} "
         f"(2 Delta lnL <= 1: {pc[1]:.2f}-{pc[2]:.2f}); 2 Delta lnL at p = 1: {pc[3]:.1f}.",
     ]
-    met = 0.60 <= hits["l_ref"][0] / n <= 0.76 and hits["l_ref"][1] / n >= 0.90
+    f68, f95 = hits["l_ref"][0] / n, hits["l_ref"][1] / n
+    met = 0.60 <= f68 <= 0.76 and f95 >= 0.90
+    m = min(n, 60)
+    first = [
+        sum(
+            inside(f["parameters"]["l_phi_ref"][c], tr["l_ref"])
+            for tr, f in zip(truths[:m], fits[:m], strict=True)
+        )
+        for c in ("ci68", "ci95")
+    ]
     lines += [
         "",
-        f"## Verdict: coverage target {'MET' if met else 'NOT met'} for L_phi(T_ref) on held-out "
-        f"lattice seeds ({hits['l_ref'][0] / n:.0%} / {hits['l_ref'][1] / n:.0%}; target {TARGET})",
+        f"## Verdict: L_phi(T_ref) coverage {f68:.0%} ± {math.sqrt(f68 * (1 - f68) / n):.0%} / "
+        f"{f95:.0%} ± {math.sqrt(f95 * (1 - f95) / n):.0%} on {n} held-out lattice trials: "
+        f"{'inside' if met else 'OUTSIDE'} the target {TARGET}",
+        "",
+        f"The first {m} trials alone: {first[0] / m:.0%} / {first[1] / m:.0%}. "
+        "The 68 % coverage sits at the lower edge of the target: within its binomial error it "
+        "is compatible with 68 % and with a mild under-coverage; the low temperatures "
+        "(L_phi(0.3 K), L_phi(0.5 K)) and the exponent p are under-covered at 68 % (table).",
     ]
     lines += [
         "",

@@ -6,12 +6,13 @@ docs/inverse-fit.md, "Statistical model" and "Why the projection".
 Projection on smooth functions of ln T
 --------------------------------------
 The transformed amplitudes ``y_q(T_j)`` of one ring (q = sqrt h/e rms, sqrt h/2e rms, G) are
-nearly perfectly correlated between neighbouring temperatures (0.99 on the benchmark
-emulator), so their covariance over J temperatures is close to singular. Estimated from n
-realizations, the inverse of a p-dimensional sample covariance is biased high by
-``(n - 1)/(n - p - 2)`` (Hartlap, Simon and Schneider, Astron. Astrophys. 464, 399 (2007)):
-with p = 18 and n = 32 the likelihood was ~2.4x too sharp; shrinking the correlations instead
-biased L_phi low. The likelihood therefore uses the summary
+strongly correlated between neighbouring temperatures (0.91 on average on the benchmark
+emulator, 0.99-1.00 at the lowest), so their covariance over J temperatures is close to
+singular. Estimated from n realizations, the inverse of a p-dimensional sample covariance is
+biased high by ``(n - 1)/(n - p - 2)`` (Hartlap, Simon and Schneider, Astron. Astrophys. 464,
+399 (2007)): with p = 18 and n = 32 the likelihood was ~2.6x too sharp; shrinking the
+correlations instead biased L_phi low, and the fine structure over T is not modelled well
+enough to carry weight. The likelihood therefore uses the summary
 ``z_q = Q^T y_q`` with ``Q`` (J x K) the orthonormal polynomials of degree < K in ln T over
 the measured temperatures (K = 2: level and slope), so ``p = K x n_quantities`` (6) is
 small against n. This is the exact likelihood of a linear summary of the data (information
