@@ -264,6 +264,7 @@ def field_sweep(
     thermal_tol: float = 1e-4,
     thermal_method: str = "adaptive",
     calibrate_l_phi: bool = True,
+    thermal_engine: str = "auto",
 ) -> xr.Dataset:
     """Conductance versus field: coordinate ``B`` [T] (uniform) or ``flux`` [Wb] (flux tube).
 
@@ -310,6 +311,11 @@ def field_sweep(
         Default True: calibrate the probe coupling on the device (cached per process; see
         :func:`ringkit.transport.sweep.fast_field_conductance`). False: analytic coupling,
         faster, and the attrs say the realised L_phi is "not measured".
+    thermal_engine : {"auto", "spectral", "direct"}
+        Finite-temperature engine (see :func:`ringkit.transport.sweep.fast_field_conductance`):
+        "auto" uses the spectral engine (one factorization per field point for all energies,
+        :mod:`ringkit.transport.spectral`) for uniform-field sweeps without probes. The attrs
+        hold ``n_factorizations``.
 
     Warns once for the largest |B| (see :func:`conductance`).
     """
@@ -348,6 +354,7 @@ def field_sweep(
             thermal_tol=thermal_tol,
             thermal_method=thermal_method,
             calibrate_l_phi=calibrate_l_phi,
+            thermal_engine=thermal_engine,
         )
         info = dict(res.info)
         attrs.update(

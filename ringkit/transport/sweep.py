@@ -38,12 +38,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ringkit._validation import ParameterError, check_positive
+from ringkit._validation import ParameterError, check_choice, check_positive
 from ringkit.thermal_policy import DEFAULT_TOL, thermal_window
 from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes
 from ringkit.transport.realised_l_phi import STATUS_NOT_MEASURED, realised_l_phi_info
+from ringkit.transport.spectral import spectral_eligible, spectral_thermal_transmission
 from ringkit.transport.thermal import thermal_conductance
 from ringkit.units import HBAR, K_B, PHI0
 
@@ -171,6 +172,7 @@ def fast_field_conductance(
     thermal_tol: float = DEFAULT_TOL,
     thermal_method: str = "adaptive",
     calibrate_l_phi: bool = True,
+    thermal_engine: str = "auto",
 ) -> FastSweepResult:
     """Two-terminal conductance over a field sweep with the fast solvers.
 
@@ -200,6 +202,13 @@ def fast_field_conductance(
         cached per process and device, docs/probes.md "Realised L_phi"), and ``info`` holds
         ``l_phi_realised_m`` and ``l_phi_realised_err_m`` (m). False (faster): the analytic
         coupling; both are NaN and ``l_phi_status`` says "not measured".
+    thermal_engine : {"auto", "spectral", "direct"}
+        How the energies of a finite-temperature sweep are computed. ``"spectral"``: one
+        factorization per field point serves every energy of the window
+        (:mod:`ringkit.transport.spectral`, uniform field, no probes); ``"direct"``: one
+        factorization per (energy, field) point in uniform field, or the low-rank flux-tube
+        update per energy. ``"auto"`` (default) takes the spectral engine for uniform-field
+        sweeps without probes at T > 0, and the direct path otherwise.
 
     Returns
     -------
@@ -212,29 +221,59 @@ def fast_field_conductance(
     params = ring.params(gate=gate)
     l_phi = check_l_phi(l_phi, ring.lattice_spacing)
     probes = ring_probes(ring, l_phi, e_t, params, n_probes, calibrate=calibrate_l_phi)
-    if name == "flux":
-        sweeper = FluxTubeSweeper(ring.fsyst, energy=e_t, params=params, probes=probes)
-        solver = "low-rank flux-tube update (ringkit.transport.lowrank)"
-    else:
-        sweeper = FieldSweeper(
-            ring.fsyst, field_param=name, params=params, energy=e_t, probes=probes
-        )
-        solver = "fixed-pattern MUMPS sweep (ringkit.transport.fastsweep)"
+
+    def make_sweeper():
+        if name == "flux":
+            sw = FluxTubeSweeper(ring.fsyst, energy=e_t, params=params, probes=probes)
+            return sw, "low-rank flux-tube update (ringkit.transport.lowrank)"
+        sw = FieldSweeper(ring.fsyst, field_param=name, params=params, energy=e_t, probes=probes)
+        return sw, "fixed-pattern MUMPS sweep (ringkit.transport.fastsweep)"
+
     thermal = {"thermal_error_estimate": 0.0, "thermal_error_he": 0.0, "thermal_error_h2e": 0.0}
+    check_choice("thermal_engine", thermal_engine, ("auto", "spectral", "direct"))
+    use_spectral = False
+    if temperature > 0 and thermal_engine != "direct":
+        why = "flux-tube rings use the low-rank update" if name == "flux" else None
+        why = why or spectral_eligible(ring.fsyst, name, params, probes)
+        if why is not None and thermal_engine == "spectral":
+            raise ParameterError("thermal_engine", "spectral", f"not available here: {why}")
+        use_spectral = why is None
     if temperature > 0:
         bands = _band_projector(ring, values)
+        bound = transmission_bound(ring, e_t, temperature, thermal_tol, params)
         # per spin: G = 2 T, so the tolerance of T is half the tolerance of G
-        res = thermal_conductance(
-            sweeper,
-            values,
-            temperature,
-            energy_unit=ring.hopping,
-            tol=0.5 * thermal_tol,
-            method=thermal_method,
-            bound=transmission_bound(ring, e_t, temperature, thermal_tol, params),
-            functionals=bands,
-        )
+        if use_spectral:
+            res, spec = spectral_thermal_transmission(
+                ring.fsyst,
+                values,
+                field_param=name,
+                params=params,
+                mu=e_t,
+                kt=K_B * temperature / ring.hopping,
+                tol=0.5 * thermal_tol,
+                method=thermal_method,
+                bound=bound,
+                functionals=bands,
+            )
+            solver = "spectral engine: one factorization per field point (transport.spectral)"
+            thermal["n_factorizations"] = int(values.size)
+            thermal["spectral_model_error"] = 2.0 * spec.model_error
+            thermal["lanczos_steps_median"] = float(np.median(spec.steps))
+        else:
+            sweeper, solver = make_sweeper()
+            res = thermal_conductance(
+                sweeper,
+                values,
+                temperature,
+                energy_unit=ring.hopping,
+                tol=0.5 * thermal_tol,
+                method=thermal_method,
+                bound=bound,
+                functionals=bands,
+            )
         g_spin, n_e = np.asarray(res.value), res.n_energies
+        if not use_spectral:
+            thermal["n_factorizations"] = int(n_e * (values.size if name != "flux" else 1))
         thermal["thermal_error_estimate"] = 2.0 * float(np.max(res.errors))
         if res.extra_errors is not None:
             he, h2e = np.split(2.0 * res.extra_errors, 2)
@@ -243,7 +282,10 @@ def fast_field_conductance(
         else:
             thermal["thermal_error_he"] = thermal["thermal_error_h2e"] = -1.0
     else:
+        sweeper, solver = make_sweeper()
         g_spin, n_e = np.asarray(sweeper.conductance(values)), 1
+        thermal["n_factorizations"] = 1 if name == "flux" else int(values.size)
+    sweeper = None if use_spectral else sweeper
     fallbacks = int(getattr(sweeper, "n_fallbacks", getattr(sweeper, "n_fallback", 0)))
     info = {
         "solver": solver,

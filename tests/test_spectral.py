@@ -1,0 +1,194 @@
+"""The spectral energy engine (ringkit.transport.spectral) against independent references.
+
+References, each named beside its check:
+* kwant 1.5.0's own scattering solver (``kwant.smatrix``) on the same finalized system, and
+  ``lead.selfenergy`` for the closed-form self-energies of the clean leads;
+* scipy.integrate.quad of the exact T(E) (kwant.smatrix per energy) times -df/dE for a thermal
+  average;
+* the direct path of ringkit (one factorization per energy and field), itself checked against
+  kwant in tests/test_fastsweep.py;
+* Onsager: G(B) = G(-B) for a two-terminal conductor (M. Buttiker, Phys. Rev. Lett. 57, 1761
+  (1986)).
+The derivation and error budget are in docs/engine.md section 7.
+"""
+
+from __future__ import annotations
+
+import math
+
+import kwant
+import numpy as np
+import pytest
+from engine_systems import square_ring
+from scipy import constants, integrate
+
+from ringkit._validation import ParameterError
+from ringkit.device import ArmGate, Material, RingDevice, RingGeometry
+from ringkit.tightbinding import build_ring
+from ringkit.transport import field_sweep
+from ringkit.transport._spectral_leads import chain_sigma, mode_lead
+from ringkit.transport.spectral import SpectralSweeper
+from ringkit.units import PHI0
+
+A = 10e-9
+T_A = constants.hbar**2 / (2 * 0.067 * constants.m_e * A**2)
+K_B = constants.k
+
+
+def _ring(mode="uniform", seed=3, fermi=1.3):
+    mat = Material(0.067, fermi_energy=fermi * T_A, disorder_strength=0.6 * T_A, name="test")
+    geo = RingGeometry.circular(45e-9, 85e-9, width_lower=30e-9, lead_angles=(math.pi + 0.2, 0.25))
+    dev = RingDevice(
+        mat, geo, lattice_spacing=A, field_mode=mode, gate=ArmGate("upper", 0.02 * T_A), max_kfa=1.2
+    )
+    return build_ring(dev, seed=seed)
+
+
+def test_mode_self_energy_matches_kwant_lead_selfenergy():
+    # reference: kwant's lead.selfenergy (its own mode solver); propagating, evanescent and
+    # near-threshold energies of a 7-wide lead
+    fsyst = square_ring(14, 9, 7, field_param="B", lattice_spacing=5e-9)
+    lead = fsyst.leads[0]
+    ml = mode_lead(lead, {"B": 0.0}, 0.7, 0.05, name="lead")
+    thresholds = ml.eps - 2.0
+    for e in (0.05, 0.7, 1.9, float(thresholds[2]) + 1e-9, float(thresholds[3]) - 1e-9, 3.3):
+        mine = (ml.modes * chain_sigma(e, ml.eps, ml.hop)) @ ml.modes.conj().T
+        ref = lead.selfenergy(e, params={"B": 0.0})
+        assert np.abs(mine - ref).max() < 1e-10  # kwant: ~3e-12 within 1e-9 of a threshold
+    assert ml.n_active >= ml.n_open(0.7)  # every open mode stays an energy-dependent terminal
+
+
+@pytest.mark.parametrize("which", ["ringkit-ring", "independent-square-ring"])
+def test_transmission_matches_kwant_smatrix(which):
+    # reference: kwant.smatrix on the same finalized system, energies and fields spread over
+    # the window (disordered, gated ring; a ring built without ringkit)
+    if which == "ringkit-ring":
+        ring = _ring()
+        fsyst, name, mu = ring.fsyst, "B", ring.fermi_energy_lattice
+        params = ring.params()
+        fields = np.array([-0.31, 0.05, 0.77]) * PHI0 / ring.loop_area
+    else:
+        fsyst = square_ring(14, 9, 5, disorder=1.5, seed=2, field_param="B", lattice_spacing=5e-9)
+        name, mu, params, fields = "B", 0.7, {}, np.array([-2.0, 0.4, 3.0])
+    half = 0.05
+    sw = SpectralSweeper(fsyst, field_param=name, params=params, mu=mu, half_width=half)
+    sw.models(fields)
+    energies = mu + half * np.array([-0.97, -0.41, 0.0, 0.23, 0.88])
+    t = sw.transmission(energies)
+    for i, e in enumerate(energies):
+        for j, b in enumerate(fields):
+            ref = kwant.smatrix(fsyst, e, params={**params, name: b}).transmission(1, 0)
+            assert abs(t[i, j] - ref) < 1e-9, (which, e, b)
+    assert sw.model_error <= 1e-9
+
+
+def _dense_fisher_lee(fsyst, params):
+    """Exact T(E) by the dense Fisher-Lee formula T = Tr(Gamma_R G Gamma_L G^dagger),
+    G = (E - H - Sigma_L - Sigma_R)^-1 (D. S. Fisher and P. A. Lee, Phys. Rev. B 23, 6851
+    (1981)), with kwant's Hamiltonian and lead self-energies (no Lanczos, no lead chunks).
+    The closed region's resolvent is taken on the lead interfaces from a full eigendecomposition
+    (numpy eigh), and the leads are attached by the exact Dyson equation on the interfaces."""
+    h = fsyst.hamiltonian_submatrix(params=params)
+    assert np.allclose(h, h.conj().T)
+    lam, vec = np.linalg.eigh(h)
+    iface = [np.asarray(i) for i in fsyst.lead_interfaces]
+    both = np.concatenate(iface)
+    v = vec[both]  # interface rows of the eigenvectors
+    n0 = len(iface[0])
+
+    def t_of(e):
+        sig = [lead.selfenergy(e, params=params) for lead in fsyst.leads]
+        sig_all = np.zeros((len(both), len(both)), complex)
+        sig_all[:n0, :n0], sig_all[n0:, n0:] = sig
+        g0 = (v / (e - lam)) @ v.conj().T  # (E - H)^-1 on the interfaces
+        g = np.linalg.solve(np.eye(len(both)) - g0 @ sig_all, g0)
+        gam = [1j * (s - s.conj().T) for s in sig]
+        grl = g[n0:, :n0]
+        return float(np.trace(gam[1] @ grl @ gam[0] @ grl.conj().T).real)
+
+    return t_of
+
+
+def test_thermal_average_matches_quadrature_of_exact_T_and_onsager():
+    # reference: scipy.integrate.quad of 2 T(E) (-df/dE) with the exact dense Fisher-Lee T(E)
+    ring = _ring()
+    temp = 1.0
+    kt = K_B * temp / ring.hopping
+    mu = ring.fermi_energy_lattice
+    b0 = 0.6 * PHI0 / ring.loop_area
+    ds = field_sweep(ring, fields=[-b0, b0], temperature=temp, thermal_tol=1e-6)
+    assert ds.attrs["n_factorizations"] == 2
+    assert "spectral" in ds.attrs["solver"]
+    exact = _dense_fisher_lee(ring.fsyst, ring.params(B=b0))
+    e_chk = mu + 3.1 * kt  # the dense reference itself against kwant.smatrix
+    assert (
+        abs(
+            exact(e_chk)
+            - kwant.smatrix(ring.fsyst, e_chk, params=ring.params(B=b0)).transmission(1, 0)
+        )
+        < 1e-10
+    )
+
+    def f(e):
+        return 2.0 * exact(e) / (4.0 * kt * math.cosh((e - mu) / (2.0 * kt)) ** 2)
+
+    ref, qerr = integrate.quad(f, mu - 22 * kt, mu + 22 * kt, epsabs=1e-7, limit=400)
+    g = ds["G"].values
+    # tails beyond 22 kT: 2 N e^-22 < 1e-8
+    assert abs(g[1] - ref) <= ds.attrs["thermal_error_estimate"] + qerr + 2e-8
+    assert abs(g[1] - ref) < 2e-6
+    assert ds.attrs["thermal_error_estimate"] <= 1e-6
+    assert abs(g[0] - g[1]) < 1e-9  # Onsager, two-terminal
+
+
+@pytest.mark.filterwarnings("ignore::ringkit.thermal_policy.ThermalToleranceWarning")
+def test_spectral_equals_direct_path_with_thresholds_in_the_window():
+    # the issue-11 crash case (GaAs, r_in 110 nm, r_out 150 nm, E_F 5 meV, a = 6 nm, 4.2 K):
+    # subband thresholds inside the thermal window; reference: the direct path (kwant-checked)
+    mat = Material.preset("GaAs")
+    dev = RingDevice(
+        Material(mat.effective_mass, fermi_energy=5e-3 * constants.e, name="GaAs 5 meV"),
+        RingGeometry.circular(110e-9, 150e-9),
+        lattice_spacing=6e-9,
+        max_kfa=0.6,  # kF a = 0.563 here, as in the issue
+    )
+    ring = build_ring(dev, seed=1)
+    fields = np.linspace(0.0, 0.12, 4)
+    # the same dense grid for both paths (the adaptive rule needs thousands of energies for the
+    # square-root threshold singularities at 1e-5; the spectral path can afford them, the
+    # direct one not in a unit test)
+    kw = dict(fields=fields, temperature=4.2, thermal_tol=1e-2, thermal_method="grid")
+    spec = field_sweep(ring, thermal_engine="spectral", **kw)
+    direct = field_sweep(ring, thermal_engine="direct", **kw)
+    assert np.all(np.isfinite(spec["G"].values))
+    assert spec.attrs["n_energies"] == direct.attrs["n_energies"]
+    assert np.abs(spec["G"].values - direct["G"].values).max() < 1e-9
+
+
+def test_bad_input_names_the_parameter():
+    ring = _ring()
+    with pytest.raises(ParameterError, match="thermal_engine"):
+        field_sweep(ring, fields=[0.0, 0.1], temperature=1.0, thermal_engine="magic")
+    with pytest.raises(ParameterError, match="thermal_engine.*probes"):
+        field_sweep(
+            ring,
+            fields=[0.0, 0.1],
+            temperature=1.0,
+            l_phi=1e-6,
+            n_probes=6,
+            thermal_engine="spectral",
+            calibrate_l_phi=False,
+        )
+    tube = _ring("flux_tube")
+    with pytest.raises(ParameterError, match="thermal_engine.*flux-tube"):
+        field_sweep(tube, fluxes=[0.0, 1e-16], temperature=1.0, thermal_engine="spectral")
+    mu = ring.fermi_energy_lattice
+    with pytest.raises(ParameterError, match="model_tol"):
+        SpectralSweeper(
+            ring.fsyst, field_param="B", params=ring.params(), mu=mu, half_width=0.01, model_tol=0.5
+        )
+    sw = SpectralSweeper(
+        ring.fsyst, field_param="B", params=ring.params(), mu=mu, half_width=0.01
+    ).models([0.0])
+    with pytest.raises(ParameterError, match="energies"):
+        sw.transmission([mu + 0.02])
