@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 import warnings
+from dataclasses import replace
 
 import kwant
 import numpy as np
@@ -259,7 +260,10 @@ def test_bad_tol_budget_warning_and_thouless_energy():
         thouless_energy(1e-6)
 
 
-def test_explorer_full_computation_uses_the_same_policy():
+@pytest.mark.parametrize("mode", ["flux_tube", "uniform"])
+def test_explorer_full_computation_uses_the_same_policy(mode):
+    # uniform: the explorer runs the spectral engine; the reference is the direct path (one
+    # factorization per energy and field, checked against kwant in tests/test_fastsweep.py)
     from ringkit.view.panels.explorer import ExplorerParams
     from ringkit.view.panels.explorer_full import build_device, explorer_full
 
@@ -268,7 +272,7 @@ def test_explorer_full_computation_uses_the_same_policy():
         width=0.04e-6,
         temperature=2.0,
         l_phi=None,
-        field_mode="flux_tube",
+        field_mode=mode,
         lattice_spacing=8e-9,
         field_min=-0.2,
         field_max=0.2,
@@ -279,7 +283,15 @@ def test_explorer_full_computation_uses_the_same_policy():
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")  # coarse lattice (kF a = 1.1): not the subject here
         ring = build_ring(build_device(params), seed=params.seed)
-    ds = field_sweep(ring, full.field * ring.loop_area, temperature=2.0, thermal_tol=1e-2)
+    if mode == "flux_tube":
+        ds = field_sweep(ring, full.field * ring.loop_area, temperature=2.0, thermal_tol=1e-2)
+    else:
+        assert any("spectral engine" in n for n in full.notes)
+        pick = slice(None, None, max(1, full.field.size // 3))  # a few fields suffice
+        full = replace(full, field=full.field[pick], conductance=full.conductance[pick])
+        ds = field_sweep(
+            ring, full.field, temperature=2.0, thermal_tol=1e-2, thermal_engine="direct"
+        )
     # same device, same policy: the same energies and the same G (values exact to 1e-10)
     assert ds.attrs["n_energies"] == full.energies.size
     np.testing.assert_allclose(ds["G"].values, full.conductance, rtol=0, atol=1e-9)

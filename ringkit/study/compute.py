@@ -5,8 +5,12 @@ ring with :func:`ringkit.tightbinding.build_ring` and sweeps the field with the 
 :class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
 :class:`~ringkit.transport.lowrank.FluxTubeSweeper`). Temperatures are thermal averages on the
 energies of the thermal policy (:func:`ringkit.study.setup.thermal_average`); energies shared
-by several temperatures are computed once. The result of a unit does not depend on which
-process computes it or on what that process computed before (tested bit for bit).
+by several temperatures are computed once. A coherent uniform-field unit at T > 0 runs on the
+spectral engine (:mod:`ringkit.transport.spectral`): one factorization per field point serves
+every energy of the widest window of its temperatures, and the measured model error is added to
+the thermal error (``info["engine"]``, ``info["spectral_model_error_e2h"]``).
+The result of a unit does not depend on which process computes it or on what that process
+computed before (tested bit for bit).
 
 What is reused (per worker process, :class:`_RingState`, at most two lattices kept):
 
@@ -197,6 +201,52 @@ class UnitEngine:
         self.probes = None if math.isinf(u.l_phi) else self._probes(u.l_phi)
         self.model = self._model() if self.flux else None
         self._classes: tuple | None = None  # (field, representatives, inverse)
+        self._spectral = self._spectral_sweeper()
+
+    def _spectral_sweeper(self):
+        """Spectral engine of a coherent uniform-field unit at T > 0, else None.
+
+        One factorization per field point serves every energy of the widest thermal window
+        of the unit's temperatures (:mod:`ringkit.transport.spectral`); computed in this
+        process (units are the parallel work), with the unit's BLAS limit.
+        """
+        from ringkit.study.setup import thermal_bound
+        from ringkit.thermal_policy import DEFAULT_TOL
+        from ringkit.transport.spectral import (
+            MODEL_TOL,
+            SpectralSweeper,
+            policy_half_width,
+            spectral_eligible,
+        )
+        from ringkit.units import K_B
+
+        temps = [float(t) for t in self.task.temperatures if t > 0]
+        ring = self.ring
+        if self.flux or self.probes is not None or not temps:
+            return None
+        if spectral_eligible(ring.fsyst, ring.field_param, self.params) is not None:
+            return None
+        thermal = self.task.physics["thermal"]
+        tol = float(thermal.get("tol", DEFAULT_TOL))
+        method = thermal.get("method", "adaptive")
+        half = max(
+            policy_half_width(K_B * t, tol, thermal_bound(ring, t, tol), method) for t in temps
+        )
+        sw = SpectralSweeper(
+            ring.fsyst,
+            field_param=ring.field_param,
+            params=self.params,
+            mu=ring.fermi_energy_lattice,
+            half_width=half / ring.hopping,
+            model_tol=max(1e-13, min(MODEL_TOL, tol / 200.0)),  # per spin; G is 2 T
+            workers=1,
+        )
+        return sw.models(self.field)
+
+    @property
+    def spectral_model_error(self) -> float:
+        """Measured model error of the spectral engine in e^2/h (0 when it is not used)."""
+        return 0.0 if self._spectral is None else 2.0 * self._spectral.model_error
 
     # ------------------------------------------------------------------ reused pieces
     def _base_model(self):
@@ -254,6 +304,8 @@ class UnitEngine:
         """Spin-degenerate G (e^2/h) over the field grid at ``e_lattice`` (units of t)."""
         from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
 
+        if self._spectral is not None:
+            return 2.0 * self._spectral.transmission([e_lattice])[0]
         if self.flux:
             from ringkit.transport.lowrank import FluxTubeSweeper
 
@@ -325,12 +377,15 @@ def _compute(task: UnitTask) -> UnitResult:
             avg = thermal_average(ring, temp, task.physics["thermal"], g_at)
             out[i] = avg.value
             n_energies.append(int(avg.n_energies))
-            errors.append(float(avg.error))
+            errors.append(float(avg.error) + engine.spectral_model_error)
     info: dict[str, Any] = {
         "n_sites": int(ring.n_sites),
         "n_energies_total": len(cache),
         "thermal_error_e2h": errors,
     }
+    if engine._spectral is not None:
+        info["engine"] = "spectral (one factorization per field point)"
+        info["spectral_model_error_e2h"] = engine.spectral_model_error
     if caught:
         info["warnings"] = sorted({f"{w.category.__name__}: {w.message}" for w in caught})
     if engine.probes is not None:

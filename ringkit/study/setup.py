@@ -451,21 +451,25 @@ def thermal_average(ring, temperature: float, thermal: dict[str, Any], g_at):
         ``value``, ``error``, ``n_energies``, ``energies`` (J).
     """
     from ringkit.thermal_policy import DEFAULT_TOL, energy_average
-    from ringkit.transport.sweep import transmission_bound
     from ringkit.units import K_B
 
     tol = thermal.get("tol", DEFAULT_TOL)
-    bound = (
-        0.0
-        if temperature == 0
-        else 2.0
-        * transmission_bound(ring, ring.fermi_energy_lattice, temperature, tol, ring.params())
-    )
     return energy_average(
         g_at,
         ring.fermi_energy,
         K_B * temperature,
         tol=tol,
         method=thermal.get("method", "adaptive"),
-        bound=max(bound, 1.0),
+        bound=thermal_bound(ring, temperature, tol),
     )
+
+
+def thermal_bound(ring, temperature: float, tol: float) -> float:
+    """Bound of the spin-degenerate G (e^2/h) over the thermal window of ``temperature`` (K),
+    as :func:`thermal_average` passes it to the policy (at least 1)."""
+    from ringkit.transport.sweep import transmission_bound
+
+    if temperature == 0:
+        return 1.0
+    tb = transmission_bound(ring, ring.fermi_energy_lattice, temperature, tol, ring.params())
+    return max(2.0 * tb, 1.0)

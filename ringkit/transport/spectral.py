@@ -34,6 +34,10 @@ SpectralSweeper(fsyst, *, field_param, params, mu, half_width, ...)
     ``.transmission(energies)`` (n_E x n_fields), ``.model_error``.
 spectral_eligible(fsyst, field_param, params, probes) -> str | None
     ``None`` if the spectral path applies, else the reason.
+spectral_thermal_transmission(fsyst, values, *, field_param, params, mu, kt, tol, ...)
+    The thermal average by the one policy on the spectral engine.
+policy_half_width(kt, tol, bound, method, spacing) -> float
+    The energy window the policy can sample (what a sweeper must cover).
 """
 
 from __future__ import annotations
@@ -57,6 +61,7 @@ __all__ = [
     "SpectralModelWarning",
     "spectral_eligible",
     "spectral_thermal_transmission",
+    "policy_half_width",
     "MODEL_TOL",
 ]
 
@@ -323,6 +328,25 @@ class SpectralSweeper:
         return np.stack(cols, axis=1)
 
 
+def policy_half_width(
+    kt: float, tol: float, bound: float = 1.0, method: str = "adaptive", spacing=None
+) -> float:
+    """Half-width of the energies :func:`ringkit.thermal_policy.energy_average` can ask for.
+
+    The window :func:`~ringkit.thermal_policy.thermal_window` ``(kt, tol, bound)``; the grid
+    rule rounds it up to an even number of steps of ``spacing`` (default ``kt/4``). A relative
+    margin of 1e-9 covers rounding. Same units as ``kt``.
+    """
+    from ringkit.thermal_policy import thermal_window
+
+    half = thermal_window(kt, tol, bound)
+    if method == "grid":
+        h = kt / 4.0 if spacing is None else check_positive("spacing", spacing)
+        m = max(1, math.ceil(half / h))
+        half = (m + m % 2) * h
+    return half * (1.0 + 1e-9)
+
+
 def spectral_thermal_transmission(
     fsyst,
     values,
@@ -352,16 +376,11 @@ def spectral_thermal_transmission(
     """
     from dataclasses import replace
 
-    from ringkit.thermal_policy import check_tol, energy_average, thermal_window
+    from ringkit.thermal_policy import check_tol, energy_average
 
     tol = check_tol(tol)
     kt = check_positive("kt", kt)
-    half = thermal_window(kt, tol, bound)
-    if method == "grid":  # the grid rule rounds its half-width up to an even number of steps
-        h = kt / 4.0 if spacing is None else check_positive("spacing", spacing)
-        m = max(1, math.ceil(half / h))
-        half = (m + m % 2) * h
-    half *= 1.0 + 1e-9
+    half = policy_half_width(kt, tol, bound, method, spacing)
     sw = SpectralSweeper(
         fsyst,
         field_param=field_param,

@@ -5,9 +5,10 @@ explorer_full(params, *, report=None) -> FullResult
     sweeps the field with the transport engine: the exact low-rank flux-tube sweeper
     (:class:`ringkit.transport.lowrank.FluxTubeSweeper`) in flux-tube mode, or the
     fixed-pattern MUMPS sweeper (:class:`ringkit.transport.fastsweep.FieldSweeper`) for a
-    uniform field. At T > 0 the transmission is averaged over a few energies with ``-df/dE``
-    weights (one factorization per energy). ``report(fraction, text)`` is called between
-    chunks of work; it raises to cancel.
+    uniform field. At T > 0 the transmission is averaged with ``-df/dE`` by the thermal policy
+    (one factorization per energy; a coherent uniform-field sweep uses the spectral engine,
+    :mod:`ringkit.transport.spectral`, one factorization per field point).
+    ``report(fraction, text)`` is called between chunks of work; it raises to cancel.
 
 In flux-tube mode the x axis is the equivalent field ``B = flux / A_mean`` (A_mean = area
 enclosed by the centre line), so that the h/e period is ``(h/e)/A_mean`` in both modes.
@@ -222,7 +223,11 @@ def _compute(params: ExplorerParams, say, max_energies: int, n_probes: int, tol:
         say(0.1 + 0.88 * count[0] / (count[0] + 20.0), f"energy {count[0]}")
         return out
 
-    total, energies, note = _thermal(ring, params.temperature, sweep_at, tol, max_energies)
+    if params.field_mode == "uniform" and probes is None and params.temperature > 0:
+        say(0.1, f"{ring.n_sites} sites; spectral engine (one factorization per field point)")
+        total, energies, note = _spectral_thermal(ring, params.temperature, field, tol)
+    else:
+        total, energies, note = _thermal(ring, params.temperature, sweep_at, tol, max_energies)
     notes.insert(0, note)
     g = 2.0 * total
     spec = oscillation_spectrum(field, g, window="hann", pad=4)
@@ -270,6 +275,25 @@ def _thermal(ring, temperature: float, sweep_at, tol: float, max_energies: int):
     note = (f"thermal average over {avg.n_energies} energies, estimated error "
             f"{2 * avg.error:.2g} e^2/h (tol {tol:g})")  # fmt: skip
     return avg.value, avg.energies, note
+
+
+def _spectral_thermal(ring, temperature: float, field: np.ndarray, tol: float):
+    """Coherent uniform-field thermal average on the spectral engine (same policy and tol)."""
+    from ringkit.transport.spectral import spectral_thermal_transmission
+    from ringkit.transport.sweep import transmission_bound
+
+    e_t = ring.fermi_energy_lattice
+    params = ring.params(B=0.0)
+    avg, sw = spectral_thermal_transmission(
+        ring.fsyst, field, field_param="B", params=params, mu=e_t,
+        kt=K_B * temperature / ring.hopping, tol=0.5 * tol,
+        bound=transmission_bound(ring, e_t, temperature, tol, params),
+    )  # fmt: skip
+    note = (f"thermal average over {avg.n_energies} energies (spectral engine, "
+            f"{len(field)} factorizations), estimated error {2 * avg.error:.2g} e^2/h "
+            f"(tol {tol:g})")  # fmt: skip
+    energies = np.asarray(avg.energies) * ring.hopping  # lattice units -> J
+    return avg.value, energies, note
 
 
 def _sweeper(params: ExplorerParams, ring, e_t: float, probes, field: np.ndarray, area: float):
