@@ -21,12 +21,14 @@ import numpy as np
 import pytest
 from engine_systems import square_ring
 from scipy import constants, integrate
+from test_probe_schur import _dense_kron
 
 from ringkit._validation import ParameterError
-from ringkit.device import ArmGate, Material, RingDevice, RingGeometry
+from ringkit.device import ArmGate, LeadSpec, Material, RingDevice, RingGeometry
 from ringkit.tightbinding import build_ring
 from ringkit.transport import field_sweep
 from ringkit.transport._spectral_leads import chain_sigma, mode_lead
+from ringkit.transport.probes import DephasingProbes
 from ringkit.transport.spectral import SpectralSweeper
 from ringkit.units import PHI0
 
@@ -117,7 +119,7 @@ def test_thermal_average_matches_quadrature_of_exact_T_and_onsager():
     mu = ring.fermi_energy_lattice
     b0 = 0.6 * PHI0 / ring.loop_area
     ds = field_sweep(ring, fields=[-b0, b0], temperature=temp, thermal_tol=1e-6)
-    assert ds.attrs["n_factorizations"] == 2
+    assert ds.attrs["n_factorizations"] == 1  # -B and B: one point (Onsager folding)
     assert "spectral" in ds.attrs["solver"]
     exact = _dense_fisher_lee(ring.fsyst, ring.params(B=b0))
     e_chk = mu + 3.1 * kt  # the dense reference itself against kwant.smatrix
@@ -138,7 +140,7 @@ def test_thermal_average_matches_quadrature_of_exact_T_and_onsager():
     assert abs(g[1] - ref) <= ds.attrs["thermal_error_estimate"] + qerr + 2e-8
     assert abs(g[1] - ref) < 2e-6
     assert ds.attrs["thermal_error_estimate"] <= 1e-6
-    assert abs(g[0] - g[1]) < 1e-9  # Onsager, two-terminal
+    assert abs(g[0] - g[1]) < 1e-12  # folded: G(-B) = G(B) (the unfolded check is below)
 
 
 @pytest.mark.filterwarnings("ignore::ringkit.thermal_policy.ThermalToleranceWarning")
@@ -169,19 +171,14 @@ def test_bad_input_names_the_parameter():
     ring = _ring()
     with pytest.raises(ParameterError, match="thermal_engine"):
         field_sweep(ring, fields=[0.0, 0.1], temperature=1.0, thermal_engine="magic")
-    with pytest.raises(ParameterError, match="thermal_engine.*probes"):
-        field_sweep(
-            ring,
-            fields=[0.0, 0.1],
-            temperature=1.0,
-            l_phi=1e-6,
-            n_probes=6,
-            thermal_engine="spectral",
-            calibrate_l_phi=False,
+    mat = Material(0.067, fermi_energy=1.3 * T_A, name="test")
+    leads = [LeadSpec(math.pi - 0.3, 30e-9), LeadSpec(0.3), LeadSpec(math.pi + 0.5, 20e-9)]
+    geo = RingGeometry.circular(45e-9, 85e-9, leads=leads)
+    three = build_ring(RingDevice(mat, geo, lattice_spacing=A, max_kfa=1.2), seed=1)
+    with pytest.raises(ParameterError, match="fsyst.*two-terminal"):
+        SpectralSweeper(
+            three.fsyst, field_param="B", params=three.params(), mu=1.3, half_width=0.01
         )
-    tube = _ring("flux_tube")
-    with pytest.raises(ParameterError, match="thermal_engine.*flux-tube"):
-        field_sweep(tube, fluxes=[0.0, 1e-16], temperature=1.0, thermal_engine="spectral")
     mu = ring.fermi_energy_lattice
     with pytest.raises(ParameterError, match="model_tol"):
         SpectralSweeper(
@@ -192,6 +189,79 @@ def test_bad_input_names_the_parameter():
     ).models([0.0])
     with pytest.raises(ParameterError, match="energies"):
         sw.transmission([mu + 0.02])
+
+
+def _probes(fsyst, n=6, seed=4):
+    rng = np.random.default_rng(seed)
+    sites = np.sort(rng.choice(len(fsyst.sites), size=n, replace=False))
+    return DephasingProbes(sites, rng.uniform(0.05, 0.4, size=n))
+
+
+@pytest.mark.parametrize("mode", ["uniform", "flux_tube"])
+def test_probes_and_flux_tube_against_dense_kron_reduction(mode):
+    # reference: dense inverse with kwant's lead self-energies and the probes' -i eta/2,
+    # Fisher-Lee T_pq and the floating-probe (Kron) reduction solved with numpy
+    # (tests/test_probe_schur.py::_dense_kron); flux tube: one reduced model for every flux
+    ring = _ring(mode)
+    name = ring.field_param
+    unit = PHI0 / ring.loop_area if mode == "uniform" else PHI0
+    fields = np.array([-0.37, 0.0, 0.37, 0.5, 1.21]) * unit
+    mu, half = ring.fermi_energy_lattice, 0.04
+    energies = mu + half * np.array([-0.9, -0.2, 0.35, 0.8])
+    pr = _probes(ring.fsyst)
+    for probes in (None, pr):
+        sw = SpectralSweeper(
+            ring.fsyst, field_param=name, params=ring.params(), mu=mu, half_width=half,
+            probes=probes,
+        ).models(fields)  # fmt: skip
+        assert sw.mode == ("per-field" if mode == "uniform" else "cut")
+        assert sw.n_models == (1 if mode == "flux_tube" else 4)  # -0.37 and 0.37: one point
+        g = sw.transmission(energies)
+        for a, e in enumerate(energies):
+            for b, v in enumerate(fields):
+                params = ring.params(**{name: float(v)})
+                if probes is None:
+                    ref = kwant.smatrix(ring.fsyst, e, params=params).transmission(1, 0)
+                else:
+                    ref = _dense_kron(ring.fsyst, params, e, pr.sites, pr.eta)
+                assert abs(g[a, b] - ref) < 1e-9, (mode, probes is None, e, v)
+        assert sw.model_error <= 1e-9
+
+
+def test_folding_is_exact_and_the_unfolded_path_obeys_onsager():
+    # G(B) = G(-B) (Buttiker 1986) on the unfolded spectral path; folding changes nothing
+    ring = _ring(seed=5)
+    b = np.array([-0.8, -0.3, 0.3, 0.8]) * PHI0 / ring.loop_area
+    mu = ring.fermi_energy_lattice
+    kw = dict(field_param="B", params=ring.params(), mu=mu, half_width=0.03, workers=1)
+    e = mu + 0.03 * np.array([-0.5, 0.1, 0.7])
+    plain = SpectralSweeper(ring.fsyst, fold=False, **kw).models(b)
+    folded = SpectralSweeper(ring.fsyst, **kw).models(b)
+    assert plain.n_models == 4 and folded.n_models == 2
+    gp, gf = plain.transmission(e), folded.transmission(e)
+    assert np.abs(gp - gp[:, ::-1]).max() < 1e-9
+    assert np.abs(gp - gf).max() < 1e-9
+
+
+@pytest.mark.parametrize("mode", ["uniform", "flux_tube"])
+def test_thermal_sweep_spectral_equals_the_direct_paths(mode):
+    # reference: the direct paths (uniform: one factorization per energy and field; flux
+    # tube: the low-rank update per energy), both checked against kwant elsewhere; uniform
+    # with dephasing probes
+    ring = _ring(mode)
+    if mode == "uniform":
+        kw = dict(fields=np.linspace(-0.4, 0.7, 5) * PHI0 / ring.loop_area, l_phi=150e-9)
+        kw.update(n_probes=6, calibrate_l_phi=False)
+    else:
+        kw = dict(fluxes=np.linspace(-0.4, 1.3, 7) * PHI0)
+    kw.update(temperature=1.5, thermal_tol=1e-6)
+    spec = field_sweep(ring, thermal_engine="spectral", **kw)
+    direct = field_sweep(ring, thermal_engine="direct", **kw)
+    assert "spectral" in spec.attrs["solver"] and "spectral" not in direct.attrs["solver"]
+    assert np.abs(spec["G"].values - direct["G"].values).max() < 2e-6  # both within tol
+    assert spec.attrs["thermal_error_estimate"] <= 1e-6
+    if mode == "flux_tube":
+        assert spec.attrs["n_factorizations"] == 1
 
 
 STUDY = """

@@ -22,8 +22,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import scipy.linalg
 
 __all__ = ["ReducedResolvent", "BlockLanczos"]
+
+_DEFLATE = 1e-10  # relative size of a new direction below which it is dropped
 
 
 @dataclass(frozen=True)
@@ -56,27 +59,38 @@ class ReducedResolvent:
 
 
 class BlockLanczos:
-    """Three-term block Lanczos on ``A = (H - shift)^-1`` given its solve.
+    """Three-term block Lanczos on ``A = (H - shift)^-1`` given its solve, with deflation.
 
     Parameters
     ----------
     solve : callable
         ``solve(B) -> (H - shift)^-1 B`` for a dense block ``B`` (n x b).
     p : ndarray
-        Starting block (n x b), full column rank.
+        Starting block (n x b), full column rank. Real ``p`` with a real ``solve`` (a real
+        symmetric ``H``) keeps the whole recurrence, and the reduced model, real.
     shift : float
         The shift ``s`` (units of H).
+
+    Notes
+    -----
+    A direction of the new block that is (numerically) already in the Krylov space — an exact
+    invariant direction, common on symmetric lattices — is dropped (rank-revealing QR with
+    column pivoting, relative threshold 1e-10): the blocks shrink and ``T`` is block
+    tridiagonal with rectangular off-diagonal blocks. Keeping such a direction would inject
+    rounding noise as a spurious new direction and bias the projected resolvent.
     """
 
     def __init__(self, solve, p: np.ndarray, shift: float):
         self._solve = solve
         self.shift = float(shift)
-        q, r = np.linalg.qr(np.asarray(p, dtype=complex))
+        p = np.asarray(p)
+        q, r = np.linalg.qr(p if np.isrealobj(p) else p.astype(complex))
         self._r = r
         self._q, self._q_prev, self._b_prev = q, None, None
         self._a: list[np.ndarray] = []
-        self._b: list[np.ndarray] = []
+        self._b: list[np.ndarray] = []  # (b_{j+1} x b_j)
         self.exhausted = False  # an invariant subspace was found: the model is exact
+        self.deflated = 0  # directions dropped so far
 
     @property
     def steps(self) -> int:
@@ -98,25 +112,32 @@ class BlockLanczos:
             if blk is not None:
                 w = w - blk @ (blk.conj().T @ w)
         self._a.append(a)
-        qn, b = np.linalg.qr(w)
+        qn, rn, piv = scipy.linalg.qr(w, mode="economic", pivoting=True)
         scale = max(float(np.abs(a).max(initial=0.0)), 1e-300)
-        if np.min(np.abs(np.diag(b)), initial=np.inf) <= 1e-13 * scale:
-            self.exhausted = True  # (near) invariant subspace: stop with the exact model
+        d = np.abs(np.diag(rn))
+        rank = int(np.sum(d > _DEFLATE * scale))
+        if rank == 0:
+            self.exhausted = True  # invariant subspace: stop with the exact model
             return
+        self.deflated += q.shape[1] - rank
+        b = np.empty((rank, q.shape[1]), dtype=rn.dtype)
+        b[:, piv] = rn[:rank]
         self._b.append(b)
-        self._q_prev, self._b_prev, self._q = q, b, qn
+        self._q_prev, self._b_prev, self._q = q, b, qn[:, :rank]
 
     def model(self) -> ReducedResolvent:
         """The reduced resolvent after the steps taken so far."""
-        m, nb = len(self._a), self._r.shape[1]
-        t = np.zeros((m * nb, m * nb), dtype=complex)
+        sizes = [a.shape[0] for a in self._a]
+        offs = np.concatenate([[0], np.cumsum(sizes)])
+        t = np.zeros((offs[-1], offs[-1]), dtype=self._a[0].dtype)
         for j, a in enumerate(self._a):
-            t[j * nb : (j + 1) * nb, j * nb : (j + 1) * nb] = a
-            if j + 1 < m:
+            t[offs[j] : offs[j + 1], offs[j] : offs[j + 1]] = a
+            if j + 1 < len(self._a):
                 b = self._b[j]
-                t[(j + 1) * nb : (j + 2) * nb, j * nb : (j + 1) * nb] = b
-                t[j * nb : (j + 1) * nb, (j + 1) * nb : (j + 2) * nb] = b.conj().T
+                t[offs[j + 1] : offs[j + 2], offs[j] : offs[j + 1]] = b
+                t[offs[j] : offs[j + 1], offs[j + 1] : offs[j + 2]] = b.conj().T
         theta, u = np.linalg.eigh(t)
+        nb = self._r.shape[1]
         c = self._r.conj().T @ u[:nb, :]
         keep = theta != 0.0
-        return ReducedResolvent(self.shift + 1.0 / theta[keep], c[:, keep], m)
+        return ReducedResolvent(self.shift + 1.0 / theta[keep], c[:, keep], len(self._a))

@@ -313,9 +313,10 @@ def field_sweep(
         faster, and the attrs say the realised L_phi is "not measured".
     thermal_engine : {"auto", "spectral", "direct"}
         Finite-temperature engine (see :func:`ringkit.transport.sweep.fast_field_conductance`):
-        "auto" uses the spectral engine (one factorization per field point for all energies,
-        :mod:`ringkit.transport.spectral`) for uniform-field sweeps without probes. The attrs
-        hold ``n_factorizations``.
+        "auto" uses the spectral engine (:mod:`ringkit.transport.spectral`: one factorization
+        per distinct field point, or one for every flux in flux-tube mode, serves all energies)
+        at T > 0, except for flux-tube sweeps with probes. The attrs hold
+        ``n_factorizations``.
 
     Warns once for the largest |B| (see :func:`conductance`).
     """

@@ -55,6 +55,7 @@ from ringkit.transport._engine_model import build_peierls_model, lead_depends_on
 from ringkit.transport._engine_threads import blas_limit
 from ringkit.transport._spectral_lanczos import BlockLanczos, ReducedResolvent
 from ringkit.transport._spectral_leads import ModeLead, mode_lead
+from ringkit.transport._spectral_terminals import Terminals
 
 __all__ = [
     "SpectralSweeper",
@@ -70,6 +71,10 @@ MODEL_TOL = 1e-9
 _MIN_STEPS = 6
 _CHECK_GROWTH = 0.15  # checks every max(2, 15 %) steps
 _MAX_STEPS = 400
+_MAX_CUT = 600  # cut orbitals beyond which the field counts as spread over the ring
+_CUT_CHECKS = 6  # flux values at which a cut-mode model's convergence is measured
+_MERGE = 1e-13  # |B| values closer than this (relative) are one field point
+_PARALLEL_FLOPS = 2e9  # dense work of one transmission call above which workers share it
 
 _TASK: list = []
 
@@ -79,9 +84,11 @@ class SpectralModelWarning(RuntimeWarning):
 
 
 def spectral_eligible(fsyst, field_param: str, params: dict, probes=None) -> str | None:
-    """Why the spectral engine cannot serve this system (``None``: it can)."""
-    if probes is not None:
-        return "dephasing probes are terminals on the ring (direct path)"
+    """Why the spectral engine cannot serve this system (``None``: it can).
+
+    Needs two clean, field-free leads whose hopping between cells is ``v * identity`` (every
+    ringkit lead), and probes (if any) on one-orbital sites.
+    """
     if len(fsyst.leads) != 2:
         return "two-terminal systems only"
     for i, lead in enumerate(fsyst.leads):
@@ -90,11 +97,15 @@ def spectral_eligible(fsyst, field_param: str, params: dict, probes=None) -> str
         v = np.asarray(lead.inter_cell_hopping(params={**params, field_param: 0.0}))
         if v.shape[0] != v.shape[1] or not np.allclose(v, v[0, 0] * np.eye(len(v)), atol=0):
             return f"lead {i} is not a clean separable lead"
+    if probes is not None:
+        norbs = [fsyst.sites[int(k)].family.norbs or 1 for k in np.atleast_1d(probes.sites)]
+        if any(n != 1 for n in norbs):
+            return "probes on sites with more than one orbital"
     return None
 
 
 class SpectralSweeper:
-    """Two-terminal transmission at all energies of a window, per field value.
+    """Two-terminal conductance at all energies of a window, for a set of field values.
 
     Parameters
     ----------
@@ -109,11 +120,26 @@ class SpectralSweeper:
     half_width : float
         Half-width of the energy window (same units), e.g. the thermal window.
     model_tol : float
-        Bound on the measured change of the transmission between checks (default 1e-9;
-        allowed 1e-13 to 1e-4).
+        Bound on the measured change of the conductance per spin (e^2/h) between checks
+        (default 1e-9; allowed 1e-13 to 1e-4).
     workers : int, optional
         Processes for the field points (default: :func:`ringkit.transport.energy_pool.
         thermal_workers`).
+    probes : DephasingProbes, optional
+        Floating dephasing probes (wide-band ``-i eta/2``; Kron reduction at every energy).
+    fold : bool
+        Compute each physically distinct field once (default True): ``G(-B) = G(B)`` for the
+        two-terminal conductance of a reciprocal system (Onsager-Büttiker), and in flux-tube
+        mode also the h/e periodicity (:mod:`ringkit.transport.flux_symmetry`).
+
+    Notes
+    -----
+    Two modes, chosen from where the field enters (``mode``):
+
+    * ``"per-field"`` (uniform field: phases on most hops): one factorization and one reduced
+      model per distinct field value;
+    * ``"cut"`` (flux tube: phases only on the hops across the branch cut): the cut orbitals
+      join the terminal block and one reduced model at zero field serves every flux.
     """
 
     def __init__(
@@ -126,9 +152,11 @@ class SpectralSweeper:
         half_width: float,
         model_tol: float = MODEL_TOL,
         workers: int | None = None,
+        probes=None,
+        fold: bool = True,
     ):
         params = {k: v for k, v in dict(params or {}).items() if k != field_param}
-        why = spectral_eligible(fsyst, field_param, params)
+        why = spectral_eligible(fsyst, field_param, params, probes)
         if why is not None:
             raise ParameterError("fsyst", "system", f"not for the spectral engine: {why}")
         self.mu = float(mu)
@@ -137,17 +165,26 @@ class SpectralSweeper:
             raise ParameterError("model_tol", model_tol, "must lie in [1e-13, 1e-4]")
         self.model_tol = float(model_tol)
         self.field_param, self.params, self.workers = field_param, params, workers
+        self.fold = bool(fold)
         self.model = build_peierls_model(fsyst, field_param, params)
         p0 = {**params, field_param: 0.0}
         self.leads: list[ModeLead] = [
             mode_lead(lead, p0, self.mu, self.half_width, name=f"fsyst.leads[{i}]")
             for i, lead in enumerate(fsyst.leads)
         ]
+        m = self.model
+        cut = np.unique(np.concatenate([m.rows[m.dep], m.cols[m.dep]]))
+        self.mode = "cut" if 0 < cut.size <= min(_MAX_CUT, 0.1 * m.shape) else "per-field"
+        self._cut = cut if self.mode == "cut" else np.zeros(0, int)
+        self._reciprocal = _reciprocal(fsyst, m, p0)
+        self._probes = probes
         self._assemble(fsyst)
         self.values: np.ndarray | None = None
         self.reduced: list[ReducedResolvent] = []
         self.errors = np.zeros(0)
         self.steps = np.zeros(0, dtype=int)
+        self._reps = np.zeros(0)
+        self._inverse = np.zeros(0, dtype=int)
 
     # ------------------------------------------------------------------ extended system
     def _assemble(self, fsyst) -> None:
@@ -182,15 +219,34 @@ class SpectralSweeper:
             np.concatenate(cols) if cols else np.zeros(0, int),
             np.concatenate(vals) if vals else np.zeros(0, complex),
         )
-        nb = [ld.n_active for ld in self.leads]
-        self.n_terminal = int(sum(nb))
+        probe_orb = np.zeros(0, int)
+        eta = np.zeros(0)
+        if self._probes is not None:
+            sites = np.atleast_1d(np.asarray(self._probes.sites, dtype=int))
+            probe_orb = offs[sites]
+            eta = np.broadcast_to(np.asarray(self._probes.eta, dtype=float), sites.shape)
+        cut = self._cut
+        kw = {}
+        if cut.size:
+            where = {int(o): k for k, o in enumerate(cut)}
+            kw = dict(
+                n_cut=int(cut.size),
+                cut_rows=np.array([where[int(r)] for r in m.rows[m.dep]]),
+                cut_cols=np.array([where[int(c)] for c in m.cols[m.dep]]),
+                cut_base=m.base[m.dep].astype(complex),
+                cut_coef=np.asarray(m.coef, dtype=float),
+            )
+        self.terminals = Terminals(self.leads, eta, **kw)
+        self.n_terminal = self.terminals.size
         p = np.zeros((pos, self.n_terminal), dtype=complex)
         k = 0
         for ld, far in zip(self.leads, blocks, strict=True):
             p[far, k : k + ld.n_active] = ld.modes[:, ld.active]
             k += ld.n_active
+        for orb in (probe_orb, cut):
+            p[orb, k + np.arange(orb.size)] = 1.0
+            k += orb.size
         self._p = p
-        self._split = nb[0]
 
     def hamiltonian(self, value: float) -> sp.csc_matrix:
         """Extended Hamiltonian (ring + lead chunks + frozen far-end modes) at field ``value``."""
@@ -203,7 +259,7 @@ class SpectralSweeper:
         )
         return h.tocsc()
 
-    # ------------------------------------------------------------------ one field point
+    # ------------------------------------------------------------------ one model
     def _check_energies(self, red: ReducedResolvent | None) -> np.ndarray:
         grid = np.linspace(self.mu - self.half_width, self.mu + self.half_width, 97)
         if red is None:
@@ -214,11 +270,20 @@ class SpectralSweeper:
         near = near[np.abs(near - self.mu) <= self.half_width]
         return np.concatenate([grid, near])
 
-    def reduce(self, value: float) -> tuple[ReducedResolvent, float]:
-        """Reduced model at field ``value`` and its measured error (transmission per spin)."""
-        if self.n_terminal == 0:
-            return ReducedResolvent(np.zeros(0), np.zeros((0, 0), complex), 0), 0.0
+    def reduce(self, value: float, check_values=(None,)) -> tuple[ReducedResolvent, float]:
+        """Reduced model at field ``value`` and its measured error (conductance per spin).
+
+        ``check_values``: field values of the cut update at which the convergence is measured
+        (flux-tube mode; ``(None,)`` when the model holds the field itself).
+        """
+        if self.terminals.n_phys == 0 or self.terminals.n_lead[0] * self.terminals.n_lead[1] == 0:
+            return ReducedResolvent(np.zeros(0), np.zeros((self.n_terminal, 0), complex), 0), 0.0
         h = self.hamiltonian(value)
+        p = self._p
+        if not np.any(h.data.imag) and not np.any(p.imag):
+            # real symmetric (e.g. a flux tube at zero flux): real arithmetic throughout,
+            # and the reduced resolvent is real at real energies
+            h, p = h.real.tocsc(), p.real.copy()
         eye = sp.identity(self.n_ext, format="csc")
         lu, shift = None, self.mu
         for frac in (0.0, 0.137, -0.213, 0.311):
@@ -230,7 +295,7 @@ class SpectralSweeper:
                 continue
         if lu is None:
             raise RuntimeError("no usable shift for the spectral engine")
-        lz = BlockLanczos(lambda b: lu.solve(np.asfortranarray(b)), self._p, shift)
+        lz = BlockLanczos(lambda b: lu.solve(np.asfortranarray(b)), p, shift)
         # checks on a geometric schedule (each costs an eigendecomposition of the reduced
         # matrix); the error is the change since the previous check, a conservative measure
         prev, red, err, next_check = None, None, np.inf, _MIN_STEPS
@@ -245,76 +310,125 @@ class SpectralSweeper:
                 break
             if prev is not None:
                 energies = self._check_energies(red)
-                err = float(
-                    np.max(
-                        np.abs(
-                            self.transmission_of(red, energies)
-                            - self.transmission_of(prev, energies)
-                        )
-                    )
-                )
+                now = self.conductance_of(red, energies, check_values)
+                err = float(np.max(np.abs(now - self.conductance_of(prev, energies, check_values))))
                 if err <= self.model_tol:
                     break
             prev = red
         return red, err
 
     # ------------------------------------------------------------------ per energy
-    def transmission_of(self, red: ReducedResolvent, energies) -> np.ndarray:
-        """Transmission lead 0 -> lead 1 (per spin) of one reduced model at ``energies``."""
+    def conductance_of(self, red: ReducedResolvent, energies, values=(None,)) -> np.ndarray:
+        """Conductance per spin (e^2/h) of one reduced model, ``(n_E, len(values))``."""
         energies = np.atleast_1d(np.asarray(energies, dtype=float))
-        if self.n_terminal == 0 or red.weights.shape[0] == 0:
-            return np.zeros(len(energies))
-        g = red.resolvent(energies)  # (n_E, b, b)
-        sig = np.concatenate([ld.sigma(energies) for ld in self.leads], axis=1)  # (n_E, b)
-        b = self.n_terminal
-        lhs = np.eye(b)[None] - g * sig[:, None, :]
-        gfull = np.linalg.solve(lhs, g)
-        gam = -2.0 * sig.imag  # Gamma of each mode: > 0 for open modes only
-        k = self._split
-        blk = gfull[:, k:, :k]
-        return np.einsum("em,en,emn->e", gam[:, k:], gam[:, :k], blk.real**2 + blk.imag**2)
+        out = np.zeros((energies.size, len(values)))
+        if red.weights.shape[1] == 0:
+            return out
+        step = self.terminals.energy_chunk()
+        for a in range(0, energies.size, step):
+            e = energies[a : a + step]
+            out[a : a + step] = self.terminals.conductance(red.resolvent(e), e, values)
+        return out
+
+    def transmission_of(self, red: ReducedResolvent, energies) -> np.ndarray:
+        """Conductance per spin of a per-field model at ``energies`` (``(n_E,)``)."""
+        return self.conductance_of(red, energies)[:, 0]
 
     # ------------------------------------------------------------------ the sweep
+    def _classes(self, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Distinct field values and the map back (exact symmetries; ``fold``)."""
+        if not self.fold:
+            return values.copy(), np.arange(values.size)
+        if self.mode == "cut":
+            from types import SimpleNamespace
+
+            from ringkit.transport.flux_symmetry import flux_classes
+
+            t = self.terminals
+            rates = t.cut_coef[t.cut_coef != 0]
+            if rates.size == 0:
+                return values.copy(), np.arange(values.size)
+            adapter = SimpleNamespace(
+                cut=SimpleNamespace(rates=rates, values=t.cut_base),
+                flux_period=2.0 * np.pi / float(np.min(np.abs(rates))),
+                h0=SimpleNamespace(data=self.model.base),
+                fsyst=None,
+                params={},
+            )
+            if not self._reciprocal:
+                adapter.h0 = SimpleNamespace(data=np.array([1j]))  # no G(-Phi) = G(Phi) claim
+            else:
+                adapter.fsyst = SimpleNamespace(leads=[])  # leads were checked real
+            return flux_classes(adapter, values)
+        if not self._reciprocal:
+            return values.copy(), np.arange(values.size)
+        a = np.abs(values)
+        scale = max(float(np.max(a, initial=0.0)), 1e-300)
+        key = np.round(a / (scale * _MERGE)).astype(np.int64)
+        _, first, inverse = np.unique(key, return_index=True, return_inverse=True)
+        return a[first], inverse.ravel()
+
     def models(self, values) -> SpectralSweeper:
-        """Build the reduced model of every field value (in ``workers`` processes)."""
+        """Build the reduced model(s) for the field ``values`` (per-field mode: in ``workers``
+        processes)."""
         from ringkit.transport.energy_pool import thermal_workers
 
         values = np.atleast_1d(np.asarray(values, dtype=float))
         if not np.all(np.isfinite(values)):
             raise ParameterError("values", values, "must be finite")
-        nw = min(thermal_workers(self.workers), len(values))
-        if nw > 1:
-            _TASK[:] = [self]
-            try:
-                with multiprocessing.get_context("fork").Pool(nw) as pool:
-                    out = pool.map(_reduce_one, list(values), chunksize=1)
-            finally:
-                _TASK.clear()
-        else:
+        reps, inverse = self._classes(values)
+        if self.mode == "cut":
+            idx = np.unique(np.linspace(0, reps.size - 1, min(reps.size, _CUT_CHECKS)).astype(int))
             with blas_limit():
-                out = [self.reduce(v) for v in values]
-        self.values = values
+                out = [self.reduce(0.0, tuple(float(v) for v in reps[idx]))]
+        else:
+            nw = min(thermal_workers(self.workers), len(reps))
+            if nw > 1:
+                _TASK[:] = [self]
+                try:
+                    with multiprocessing.get_context("fork").Pool(nw) as pool:
+                        out = pool.map(_reduce_one, list(reps), chunksize=1)
+                finally:
+                    _TASK.clear()
+            else:
+                with blas_limit():
+                    out = [self.reduce(v) for v in reps]
+        self.values, self._reps, self._inverse = values, reps, inverse
         self.reduced = [o[0] for o in out]
-        self.errors = np.array([o[1] for o in out], dtype=float)
-        self.steps = np.array([o[0].steps for o in out], dtype=int)
-        bad = int(np.sum(~(self.errors <= self.model_tol)))
+        err = np.array([o[1] for o in out], dtype=float)
+        steps = np.array([o[0].steps for o in out], dtype=int)
+        if self.mode == "cut":
+            self.errors = np.full(values.size, err[0])
+            self.steps = np.full(values.size, steps[0])
+        else:
+            self.errors, self.steps = err[inverse], steps[inverse]
+        bad = int(np.sum(~(err <= self.model_tol)))
         if bad:
             warnings.warn(
-                f"{bad} of {len(values)} field points: reduced model above model_tol = "
-                f"{self.model_tol:g} after {_MAX_STEPS} steps (max error "
-                f"{np.max(self.errors):.3g}, stored and added to the error estimate)",
+                f"{bad} of {len(out)} reduced models above model_tol = {self.model_tol:g} "
+                f"after {_MAX_STEPS} steps (max error {np.max(err):.3g}, stored and added "
+                "to the error estimate)",
                 SpectralModelWarning,
                 stacklevel=2,
             )
         return self
 
     @property
+    def n_models(self) -> int:
+        """Factorizations (reduced models) of the last :meth:`models` call."""
+        return len(self.reduced)
+
+    @property
     def model_error(self) -> float:
-        """Largest measured model error over the field points (transmission per spin)."""
+        """Largest measured model error over the field points (conductance per spin)."""
         return float(np.max(self.errors, initial=0.0))
 
     def transmission(self, energies) -> np.ndarray:
-        """Transmission per spin, shape ``(n_E, n_fields)`` (after :meth:`models`)."""
+        """Conductance per spin (e^2/h), shape ``(n_E, n_fields)`` (after :meth:`models`).
+
+        Without probes this is the transmission ``T_10``; with probes the Kron-reduced
+        two-terminal conductance.
+        """
         if self.values is None:
             raise RuntimeError("call models(values) first")
         energies = np.atleast_1d(np.asarray(energies, dtype=float))
@@ -323,9 +437,54 @@ class SpectralSweeper:
             raise ParameterError(
                 "energies", energies[out_of][:3], "must lie inside the window of the models"
             )
-        with blas_limit():
-            cols = [self.transmission_of(red, energies) for red in self.reduced]
-        return np.stack(cols, axis=1)
+        parts = self._parts(energies)
+        if len(parts) > 1:
+            _TASK[:] = [self]
+            try:
+                with multiprocessing.get_context("fork").Pool(len(parts)) as pool:
+                    out = pool.map(_evaluate_part, parts, chunksize=1)
+            finally:
+                _TASK.clear()
+        else:
+            with blas_limit():
+                out = [self._evaluate(*parts[0])]
+        reps = np.concatenate(out, axis=0 if self.mode == "cut" else 1)
+        return reps[:, self._inverse]
+
+    def _parts(self, energies: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+        """Split ``(energies, models)`` over the workers when the dense algebra is large."""
+        from ringkit.transport.energy_pool import thermal_workers
+
+        n_models = len(self.reduced)
+        poles = sum(r.poles.size for r in self.reduced)
+        b = self.n_terminal
+        each = len(self._reps) if self.mode == "cut" else 1
+        flops = energies.size * (poles * b * b + (n_models + each) * b**3)
+        nw = 1 if flops < _PARALLEL_FLOPS else thermal_workers(self.workers)
+        models = np.arange(n_models)
+        if self.mode == "cut":
+            return [(e, models) for e in np.array_split(energies, min(nw, energies.size))]
+        return [(energies, m) for m in np.array_split(models, min(nw, n_models))]
+
+    def _evaluate(self, energies: np.ndarray, models: np.ndarray) -> np.ndarray:
+        """Conductance per spin at ``energies`` of the models ``models`` (one process)."""
+        if self.mode == "cut":
+            vals = tuple(float(v) for v in self._reps)
+            return self.conductance_of(self.reduced[0], energies, vals)
+        cols = [self.transmission_of(self.reduced[k], energies) for k in models]
+        return np.stack(cols, axis=1) if cols else np.zeros((energies.size, 0))
+
+
+def _reciprocal(fsyst, model, p0: dict) -> bool:
+    """Whether H at zero field and the leads are real (then ``G(-B) = G(B)``, two terminals)."""
+    if np.any(np.asarray(model.base).imag):
+        return False
+    for lead in fsyst.leads:
+        h = np.asarray(lead.cell_hamiltonian(params=p0))
+        v = np.asarray(lead.inter_cell_hopping(params=p0))
+        if np.any(h.imag) or np.any(v.imag):
+            return False
+    return True
 
 
 def policy_half_width(
@@ -361,8 +520,13 @@ def spectral_thermal_transmission(
     functionals=None,
     spacing: float | None = None,
     workers: int | None = None,
+    probes=None,
+    fold: bool = True,
 ):
-    """Thermally averaged transmission per spin over ``values`` by the spectral engine.
+    """Thermally averaged conductance per spin over ``values`` by the spectral engine.
+
+    With ``probes`` (floating dephasing probes) the Kron-reduced conductance is averaged at
+    every energy (energy-conserving dephasing probes, as on the direct path).
 
     The energies are chosen by the one policy (:func:`ringkit.thermal_policy.energy_average`,
     same window, same rule, same ``tol``); each costs only small dense algebra here, so the
@@ -389,6 +553,8 @@ def spectral_thermal_transmission(
         half_width=half,
         model_tol=max(1e-13, min(MODEL_TOL, tol / 100.0)),
         workers=workers,
+        probes=probes,
+        fold=fold,
     ).models(values)
     res = energy_average(
         sw.transmission,
@@ -409,3 +575,8 @@ def spectral_thermal_transmission(
 def _reduce_one(value: float):
     with blas_limit():
         return _TASK[0].reduce(value)
+
+
+def _evaluate_part(part: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
+    with blas_limit():
+        return _TASK[0]._evaluate(*part)

@@ -204,11 +204,11 @@ def fast_field_conductance(
         coupling; both are NaN and ``l_phi_status`` says "not measured".
     thermal_engine : {"auto", "spectral", "direct"}
         How the energies of a finite-temperature sweep are computed. ``"spectral"``: one
-        factorization per field point serves every energy of the window
-        (:mod:`ringkit.transport.spectral`, uniform field, no probes); ``"direct"``: one
-        factorization per (energy, field) point in uniform field, or the low-rank flux-tube
-        update per energy. ``"auto"`` (default) takes the spectral engine for uniform-field
-        sweeps without probes at T > 0, and the direct path otherwise.
+        factorization per distinct field point (uniform field) or a single one for every flux
+        (flux tube) serves every energy of the window (:mod:`ringkit.transport.spectral`,
+        with or without probes); ``"direct"``: one factorization per (energy, field) point in
+        uniform field, or the low-rank flux-tube update per energy. ``"auto"`` (default) takes
+        the spectral engine at T > 0 except for flux-tube sweeps with probes.
 
     Returns
     -------
@@ -233,11 +233,13 @@ def fast_field_conductance(
     check_choice("thermal_engine", thermal_engine, ("auto", "spectral", "direct"))
     use_spectral = False
     if temperature > 0 and thermal_engine != "direct":
-        why = "flux-tube rings use the low-rank update" if name == "flux" else None
-        why = why or spectral_eligible(ring.fsyst, name, params, probes)
+        why = spectral_eligible(ring.fsyst, name, params, probes)
         if why is not None and thermal_engine == "spectral":
             raise ParameterError("thermal_engine", "spectral", f"not available here: {why}")
-        use_spectral = why is None
+        # "auto": the low-rank flux-tube update stays the default with probes (the probe
+        # orbitals and the cut together make the spectral terminal block ~150 wide)
+        prefer = thermal_engine == "spectral" or name != "flux" or probes is None
+        use_spectral = why is None and prefer
     if temperature > 0:
         bands = _band_projector(ring, values)
         bound = transmission_bound(ring, e_t, temperature, thermal_tol, params)
@@ -254,9 +256,14 @@ def fast_field_conductance(
                 method=thermal_method,
                 bound=bound,
                 functionals=bands,
+                probes=probes,
             )
-            solver = "spectral engine: one factorization per field point (transport.spectral)"
-            thermal["n_factorizations"] = int(values.size)
+            solver = (
+                "spectral engine: one factorization per distinct field point"
+                if spec.mode == "per-field"
+                else "spectral engine: one factorization for every flux (cut block)"
+            ) + " (transport.spectral)"
+            thermal["n_factorizations"] = spec.n_models
             thermal["spectral_model_error"] = 2.0 * spec.model_error
             thermal["lanczos_steps_median"] = float(np.median(spec.steps))
         else:
