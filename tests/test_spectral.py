@@ -9,7 +9,7 @@ References, each named beside its check:
   kwant in tests/test_fastsweep.py;
 * Onsager: G(B) = G(-B) for a two-terminal conductor (M. Buttiker, Phys. Rev. Lett. 57, 1761
   (1986)).
-The derivation and error budget are in docs/engine.md section 7.
+The derivation and error budget are in docs/engine.md section 9.
 """
 
 from __future__ import annotations

@@ -5,10 +5,11 @@ ring with :func:`ringkit.tightbinding.build_ring` and sweeps the field with the 
 :class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
 :class:`~ringkit.transport.lowrank.FluxTubeSweeper`). Temperatures are thermal averages on the
 energies of the thermal policy (:func:`ringkit.study.setup.thermal_average`); energies shared
-by several temperatures are computed once. A coherent uniform-field unit at T > 0 runs on the
-spectral engine (:mod:`ringkit.transport.spectral`): one factorization per field point serves
-every energy of the widest window of its temperatures, and the measured model error is added to
-the thermal error (``info["engine"]``, ``info["spectral_model_error_e2h"]``).
+by several temperatures are computed once. A unit at T > 0 in a uniform field (with or
+without probes), or in flux-tube mode without probes, runs on the spectral engine
+(:mod:`ringkit.transport.spectral`): one factorization per distinct field point (one for every
+flux) serves every energy of the widest window of its temperatures, and the measured model error
+is added to the thermal error (``info["engine"]``, ``info["spectral_model_error_e2h"]``).
 The result of a unit does not depend on which process computes it or on what that process
 computed before (tested bit for bit).
 
@@ -204,11 +205,12 @@ class UnitEngine:
         self._spectral = self._spectral_sweeper()
 
     def _spectral_sweeper(self):
-        """Spectral engine of a coherent uniform-field unit at T > 0, else None.
+        """Spectral engine of a unit at T > 0 (uniform field, or flux tube without probes).
 
-        One factorization per field point serves every energy of the widest thermal window
-        of the unit's temperatures (:mod:`ringkit.transport.spectral`); computed in this
-        process (units are the parallel work), with the unit's BLAS limit.
+        One factorization per distinct field point (one for every flux in flux-tube mode)
+        serves every energy of the widest thermal window of the unit's temperatures
+        (:mod:`ringkit.transport.spectral`; probes are Kron-reduced at every energy as on the
+        direct path); computed in this process (units are the parallel work).
         """
         from ringkit.study.setup import thermal_bound
         from ringkit.thermal_policy import DEFAULT_TOL
@@ -222,9 +224,9 @@ class UnitEngine:
 
         temps = [float(t) for t in self.task.temperatures if t > 0]
         ring = self.ring
-        if self.flux or self.probes is not None or not temps:
-            return None
-        if spectral_eligible(ring.fsyst, ring.field_param, self.params) is not None:
+        if not temps or (self.flux and self.probes is not None):
+            return None  # flux tube with probes: the low-rank update stays the engine
+        if spectral_eligible(ring.fsyst, ring.field_param, self.params, self.probes) is not None:
             return None
         thermal = self.task.physics["thermal"]
         tol = float(thermal.get("tol", DEFAULT_TOL))
@@ -240,6 +242,7 @@ class UnitEngine:
             half_width=half / ring.hopping,
             model_tol=max(1e-13, min(MODEL_TOL, tol / 200.0)),  # per spin; G is 2 T
             workers=1,
+            probes=self.probes,
         )
         return sw.models(self.field)
 
@@ -384,7 +387,7 @@ def _compute(task: UnitTask) -> UnitResult:
         "thermal_error_e2h": errors,
     }
     if engine._spectral is not None:
-        info["engine"] = "spectral (one factorization per field point)"
+        info["engine"] = f"spectral ({engine._spectral.n_models} factorizations)"
         info["spectral_model_error_e2h"] = engine.spectral_model_error
     if caught:
         info["warnings"] = sorted({f"{w.category.__name__}: {w.message}" for w in caught})

@@ -19,7 +19,7 @@ self-energy at the far end reaches the ring attenuated by ``exp(-2 kappa_n L)``.
 engine therefore keeps only the *active* modes (propagating, or evanescent with
 ``kappa_n < KAPPA_ACTIVE`` somewhere in the energy window) as energy-dependent terminals, and
 freezes the others at their value at the window centre, after ``chunk_cells`` cells: the
-neglected change is below ``exp(-DECAY)`` times ``|d sigma_n| <= 2|v|`` (docs/engine.md §7).
+neglected change is below ``exp(-DECAY)`` times ``|d sigma_n| <= 2|v|`` (docs/engine.md §9).
 """
 
 from __future__ import annotations

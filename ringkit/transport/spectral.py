@@ -2,36 +2,39 @@
 
 The direct path factorizes the scattering system once per (energy, field) point, so a thermal
 average over a window of a few hundred energies costs a few hundred factorizations per field
-point. Here one factorization per field point gives the conductance at *every* energy of the
-window, exactly up to a measured error:
+point. Here one factorization per distinct field point (uniform field), or a single one for
+every flux (flux tube), gives the conductance at *every* energy of the window, exactly up to a
+measured error:
 
 1. The clean leads are written in their transverse-mode basis (:mod:`._spectral_leads`). The
    modes whose self-energy matters across the window (propagating, or slowly decaying
    evanescent) stay energy-dependent terminals; the others are frozen at their window-centre
    value after ``L`` clean lead cells appended to the scattering region, which attenuates the
-   neglected change by ``exp(-36)``. The terminal block is then ~14 vectors for a 5-mode ring
-   instead of the 66 interface orbitals.
-2. The extended region is closed (Hermitian, energy-independent). Block Lanczos on its shifted
+   neglected change by ``exp(-36)``.
+2. The terminal block (:mod:`._spectral_terminals`) holds those modes, one orbital per
+   dephasing probe and, in flux-tube mode, the orbitals of the hops across the branch cut.
+   The extended region is closed (Hermitian, energy-independent). Block Lanczos on its shifted
    inverse, started from the terminal block, gives the projected resolvent
    ``g(E) = X^dag (E - H)^-1 X`` in pole-residue form for all E (:mod:`._spectral_lanczos`).
-3. At each energy, ``G = (1 - g Sigma(E))^-1 g`` on the terminals with the closed-form mode
-   self-energies, and the Fisher-Lee/Landauer transmission ``T = sum_mn Gamma_m Gamma_n |G_mn|^2``
-   between the open modes of the two leads.
+3. At each energy (and flux), the exact Dyson equation on the block attaches the self-energies
+   (and the cut's flux), and the Fisher-Lee transmissions between leads and probes give the
+   two-terminal conductance (floating probes Kron-reduced at every energy).
 
-The number of Lanczos steps is chosen per field point: steps are added until the transmission
-changes by less than ``model_tol`` between successive checks, on a grid of spacing ``k_B T/4``
-across the window plus the model's own poles inside it (where narrow resonances sit). The
-measured change is returned as the model error and added to the thermal error estimate.
+Lanczos steps are added until the conductance changes by less than ``model_tol`` between
+successive checks, on 97 energies across the window plus points next to the model's own poles
+inside it (where narrow resonances sit). The measured change is returned as the model error
+and added to the thermal error estimate. Field points are folded by exact symmetries first
+(``G(-B) = G(B)``; h/e periodicity of a flux tube).
 
-Scope: two-terminal conductance, leads clean and field-free (every ringkit ring in a uniform
-field), no dephasing probes (those are terminals on the ring and stay on the direct path). See
-docs/engine.md §7 for the derivation, the error budget and the measured cost.
+Scope: two-terminal conductance, leads clean and field-free with ``v * identity`` hopping
+between cells (every ringkit ring), probes on one-orbital sites. See docs/engine.md §9 for the
+derivation, the error budget and the measured cost.
 
 Public API
 ----------
-SpectralSweeper(fsyst, *, field_param, params, mu, half_width, ...)
-    ``.models(values)`` (one reduced model per field value, in worker processes),
-    ``.transmission(energies)`` (n_E x n_fields), ``.model_error``.
+SpectralSweeper(fsyst, *, field_param, params, mu, half_width, probes=None, ...)
+    ``.models(values)`` (reduced models, in worker processes), ``.transmission(energies)``
+    (conductance per spin, n_E x n_fields), ``.model_error``, ``.mode``, ``.n_models``.
 spectral_eligible(fsyst, field_param, params, probes) -> str | None
     ``None`` if the spectral path applies, else the reason.
 spectral_thermal_transmission(fsyst, values, *, field_param, params, mu, kt, tol, ...)
