@@ -305,3 +305,16 @@ def test_study_unit_uses_the_spectral_engine_and_equals_kwant():
         sm = kwant.smatrix(ring.fsyst, e, params=ring.params(B=float(engine.field[k])))
         assert abs(g[k] - 2.0 * sm.transmission(1, 0)) < 1e-8  # spin degeneracy
     assert res.info["thermal_error_e2h"][1] <= 1e-5
+
+
+def test_a_large_step_hint_still_measures_the_error():
+    # the first checks go where the previous model converged; a huge hint must not skip the
+    # comparison (the measured error would stay infinite)
+    ring = _ring(seed=2)
+    mu = ring.fermi_energy_lattice
+    sw = SpectralSweeper(
+        ring.fsyst, field_param="B", params=ring.params(), mu=mu, half_width=0.03, workers=1
+    )
+    sw._last_steps = 10_000
+    red, err = sw.reduce(0.1 * PHI0 / ring.loop_area)
+    assert err <= sw.model_tol and red.steps < 400

@@ -202,7 +202,24 @@ class UnitEngine:
         self.probes = None if math.isinf(u.l_phi) else self._probes(u.l_phi)
         self.model = self._model() if self.flux else None
         self._classes: tuple | None = None  # (field, representatives, inverse)
-        self._spectral = self._spectral_sweeper()
+        self._spectral_engine = self._spectral_sweeper()  # models built on first use
+        self._spectral_field: np.ndarray | None = None
+
+    @property
+    def uses_spectral(self) -> bool:
+        """Whether this unit's energies come from the spectral engine."""
+        return self._spectral_engine is not None
+
+    @property
+    def _spectral(self):
+        """The spectral engine with its reduced models for the current field (or None)."""
+        sw = self._spectral_engine
+        if sw is not None and (
+            self._spectral_field is None or not np.array_equal(self._spectral_field, self.field)
+        ):
+            sw.models(self.field)
+            self._spectral_field = np.array(self.field, copy=True)
+        return sw
 
     def _spectral_sweeper(self):
         """Spectral engine of a unit at T > 0 (uniform field, or flux tube without probes).
@@ -234,7 +251,7 @@ class UnitEngine:
         half = max(
             policy_half_width(K_B * t, tol, thermal_bound(ring, t, tol), method) for t in temps
         )
-        sw = SpectralSweeper(
+        return SpectralSweeper(
             ring.fsyst,
             field_param=ring.field_param,
             params=self.params,
@@ -244,12 +261,11 @@ class UnitEngine:
             workers=1,
             probes=self.probes,
         )
-        return sw.models(self.field)
 
     @property
     def spectral_model_error(self) -> float:
         """Measured model error of the spectral engine in e^2/h (0 when it is not used)."""
-        return 0.0 if self._spectral is None else 2.0 * self._spectral.model_error
+        return 2.0 * self._spectral.model_error if self.uses_spectral else 0.0
 
     # ------------------------------------------------------------------ reused pieces
     def _base_model(self):
@@ -302,12 +318,16 @@ class UnitEngine:
             self._classes = (f.copy(), *flux_classes(self.model, f))
         return self._classes[1], self._classes[2]
 
+    def conductance_many(self, e_lattice) -> np.ndarray:
+        """Spin-degenerate G (e^2/h), one row per lattice energy (spectral engine only)."""
+        return 2.0 * self._spectral.transmission(np.asarray(e_lattice, dtype=float))
+
     # ------------------------------------------------------------------ one energy
     def conductance(self, e_lattice: float) -> np.ndarray:
         """Spin-degenerate G (e^2/h) over the field grid at ``e_lattice`` (units of t)."""
         from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
 
-        if self._spectral is not None:
+        if self.uses_spectral:
             return 2.0 * self._spectral.transmission([e_lattice])[0]
         if self.flux:
             from ringkit.transport.lowrank import FluxTubeSweeper
@@ -371,13 +391,24 @@ def _compute(task: UnitTask) -> UnitResult:
             cache[key] = engine.conductance(ring.to_lattice_energy(key))
         return cache[key]
 
+    def g_many(energies: np.ndarray) -> np.ndarray:  # the spectral engine: one call per round
+        new = [float(e) for e in energies if float(e) not in cache]
+        if new:
+            rows = engine.conductance_many([ring.to_lattice_energy(e) for e in new])
+            cache.update(zip(new, rows, strict=True))
+        return np.stack([cache[float(e)] for e in energies])
+
     out = np.empty((len(task.temperatures), np.size(task.field)))
     n_energies, errors = [], []
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         engine = UnitEngine(state, task)  # calibration warnings (range) are recorded too
         for i, temp in enumerate(task.temperatures):
-            avg = thermal_average(ring, temp, task.physics["thermal"], g_at)
+            spectral = engine.uses_spectral
+            avg = thermal_average(
+                ring, temp, task.physics["thermal"], g_many if spectral else g_at,
+                batched=spectral,
+            )  # fmt: skip
             out[i] = avg.value
             n_energies.append(int(avg.n_energies))
             errors.append(float(avg.error) + engine.spectral_model_error)
@@ -386,7 +417,7 @@ def _compute(task: UnitTask) -> UnitResult:
         "n_energies_total": len(cache),
         "thermal_error_e2h": errors,
     }
-    if engine._spectral is not None:
+    if engine.uses_spectral:
         info["engine"] = f"spectral ({engine._spectral.n_models} factorizations)"
         info["spectral_model_error_e2h"] = engine.spectral_model_error
     if caught:

@@ -35,7 +35,7 @@ import time
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 from ringkit._validation import ParameterError
 from ringkit.study.plan import StudyPlan, WorkUnit
@@ -322,9 +322,9 @@ class CostEstimate:
         Sum over the units still to compute (CPU seconds).
     wall_seconds : float
         ``pending_seconds / workers``.
-    per_energy : dict
-        Measured ``(s_0, s_1)`` (seconds per energy, seconds per field point and energy) for
-        ``"coherent"`` and, with dephasing, ``"dephased"``.
+    per_energy : dict of str -> Timing
+        Measured engine cost (:class:`Timing`) for ``"coherent"`` and, with dephasing,
+        ``"dephased"``.
     n_energies : int
         Energy evaluations of the pending units (each one sweep over the field grid).
     timing_seconds : float
@@ -334,13 +334,13 @@ class CostEstimate:
     unit_seconds: dict[str, float]
     pending_seconds: float
     wall_seconds: float
-    per_energy: dict[str, tuple[float, float]]
+    per_energy: dict[str, Timing]
     n_energies: int
     timing_seconds: float
 
 
-def _time_engine(plan: StudyPlan, unit: WorkUnit) -> tuple[float, float]:
-    """``(s_0, s_1)`` of one energy of ``unit``: seconds per energy and per field point.
+def _time_engine(plan: StudyPlan, unit: WorkUnit) -> Timing:
+    """:class:`Timing` of ``unit``: seconds per energy and per field point (direct paths).
 
     A first call at the Fermi energy builds what a worker builds once (field model, probe
     weights) and is not counted; then one energy near E_F is swept over 1 and over 5 field
@@ -358,6 +358,8 @@ def _time_engine(plan: StudyPlan, unit: WorkUnit) -> tuple[float, float]:
         e_lat = ring.fermi_energy_lattice
         field = np.asarray(plan.field, float)
         picks = field[np.linspace(0, field.size - 1, 5).round().astype(int)]
+        if engine.uses_spectral:
+            return _time_spectral(engine, picks, e_lat)
         engine.field = picks[:1]
         engine.conductance(e_lat)  # one-time set-up of the worker
         e_near = e_lat * (1 + 1e-3)  # another energy: nothing cached for it
@@ -370,7 +372,59 @@ def _time_engine(plan: StudyPlan, unit: WorkUnit) -> tuple[float, float]:
                 times[sub.size].append(time.perf_counter() - t0)
     t1, t5 = (float(np.median(times[k])) for k in (1, 5))
     per_point = max(0.0, (t5 - t1) / 4)
-    return max(t1 - per_point, 0.0), per_point
+    return Timing("per-energy", max(t1 - per_point, 0.0), per_point)
+
+
+class Timing(NamedTuple):
+    """Measured cost of one unit's engine.
+
+    ``kind``: ``"per-energy"`` (``s0`` s per energy + ``s1`` s per field point and energy),
+    ``"spectral-field"`` (spectral engine in a uniform field: ``s1`` s per distinct field
+    point, every energy included) or ``"spectral-cut"`` (spectral engine, flux tube: ``s0`` s
+    for the one model + ``s1`` s per flux and energy).
+    """
+
+    kind: str
+    s0: float
+    s1: float
+
+    def unit_seconds(self, n_energies: int, field) -> float:
+        """Estimated seconds of one unit with ``n_energies`` energies over ``field``."""
+        import numpy as np
+
+        if self.kind == "spectral-field":  # one model per distinct |B| (Onsager folding)
+            return self.s1 * np.unique(np.round(np.abs(np.asarray(field, float)), 12)).size
+        if self.kind == "spectral-cut":
+            return self.s0 + n_energies * len(field) * self.s1
+        return n_energies * (self.s0 + len(field) * self.s1)
+
+    def describe(self, n_field: int) -> str:
+        if self.kind == "spectral-field":
+            return f"spectral engine, {self.s1:.3g} s per distinct field point"
+        if self.kind == "spectral-cut":
+            return f"spectral engine, {self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
+        return f"{self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
+
+
+def _time_spectral(engine, picks, e_lat: float) -> Timing:
+    """Cost of a spectral-engine unit: one reduced model (uniform field, timed on one field
+    point), or the one flux-tube model plus its dense work per flux and energy (five fluxes,
+    16 energies)."""
+    import numpy as np
+
+    sw = engine._spectral_engine
+    if sw.mode == "per-field":
+        t0 = time.perf_counter()
+        sw.reduce(float(picks[len(picks) // 2]))
+        return Timing("spectral-field", 0.0, time.perf_counter() - t0)
+    t0 = time.perf_counter()
+    engine.field = picks
+    sw = engine._spectral
+    t_model = time.perf_counter() - t0
+    energies = e_lat + sw.half_width * np.linspace(-0.9, 0.9, 16)
+    t0 = time.perf_counter()
+    sw.transmission(energies)
+    return Timing("spectral-cut", t_model, (time.perf_counter() - t0) / (16 * len(picks)))
 
 
 def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> CostEstimate:
@@ -388,13 +442,12 @@ def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> C
     if any(math.isfinite(d) for d in plan.l_phi_values):
         l_phi = next(d for d in plan.l_phi_values if math.isfinite(d))
         per_energy["dephased"] = _time_engine(plan, _with_l_phi(first, l_phi))
-    n_f = len(plan.field)
     # sweep.contacts: every energy is swept a second time for the conductance matrix of R
     sweeps = 2 if plan.config["sweep"]["contacts"] else 1
     unit_seconds = {}
     for u in plan.units:
-        s0, s1 = per_energy["coherent" if math.isinf(u.l_phi) else "dephased"]
-        unit_seconds[u.uid] = sweeps * counts[u.fermi_energy] * (s0 + n_f * s1)
+        timing = per_energy["coherent" if math.isinf(u.l_phi) else "dephased"]
+        unit_seconds[u.uid] = sweeps * timing.unit_seconds(counts[u.fermi_energy], plan.field)
     pend = sum(unit_seconds[u.uid] for u in pending)
     n_e = sweeps * sum(counts[u.fermi_energy] for u in pending)
     wall = pend / max(1, pre.workers)
@@ -425,10 +478,10 @@ def describe(plan: StudyPlan, pre: Preflight, cost: CostEstimate | None, n_pendi
     ]
     if cost is not None:
         parts = []
-        for kind, (s0, s1) in cost.per_energy.items():
-            parts.append(f"{kind} {s0:.3g} s + {len(plan.field)} x {s1:.3g} s")
+        for kind, timing in cost.per_energy.items():
+            parts.append(f"{kind} {timing.describe(len(plan.field))}")
         lines.append(
-            f"cost: at least {cost.n_energies} energy sweeps ({'; '.join(parts)} per energy, "
+            f"cost: at least {cost.n_energies} energies ({'; '.join(parts)}; "
             f"timed on the first unit) = {human_time(cost.pending_seconds)} of CPU, about "
             f"{human_time(cost.wall_seconds)} on {pre.workers} worker(s) (the adaptive thermal "
             "average may add energies)"

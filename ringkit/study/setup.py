@@ -431,7 +431,9 @@ def thermal_grid(device, temperature: float, thermal: dict[str, Any]):
     return ThermalGrid(energies, weights, mu, temperature, kt, step)
 
 
-def thermal_average(ring, temperature: float, thermal: dict[str, Any], g_at):
+def thermal_average(
+    ring, temperature: float, thermal: dict[str, Any], g_at, *, batched: bool = False
+):
     """G(T) = integral G(E)(-df/dE) dE by the thermal policy (:mod:`ringkit.thermal_policy`).
 
     Parameters
@@ -443,7 +445,8 @@ def thermal_average(ring, temperature: float, thermal: dict[str, Any], g_at):
     thermal : dict
         The ``[thermal]`` section: ``tol`` (e^2/h, default 1e-4), ``method`` ("adaptive").
     g_at : callable
-        ``g_at(E)`` -> spin-degenerate G (e^2/h) over the field at energy E (J).
+        ``g_at(E)`` -> spin-degenerate G (e^2/h) over the field at energy E (J); with
+        ``batched``, ``g_at(energies)`` -> one row per energy.
 
     Returns
     -------
@@ -461,6 +464,7 @@ def thermal_average(ring, temperature: float, thermal: dict[str, Any], g_at):
         tol=tol,
         method=thermal.get("method", "adaptive"),
         bound=thermal_bound(ring, temperature, tol),
+        batched=batched,
     )
 
 

@@ -58,6 +58,7 @@ from ringkit.transport._engine_model import build_peierls_model, lead_depends_on
 from ringkit.transport._engine_threads import blas_limit
 from ringkit.transport._spectral_lanczos import BlockLanczos, ReducedResolvent
 from ringkit.transport._spectral_leads import ModeLead, mode_lead
+from ringkit.transport._spectral_poles import WindowResolvent
 from ringkit.transport._spectral_terminals import Terminals
 
 __all__ = [
@@ -188,6 +189,8 @@ class SpectralSweeper:
         self.steps = np.zeros(0, dtype=int)
         self._reps = np.zeros(0)
         self._inverse = np.zeros(0, dtype=int)
+        self._windows: dict[int, WindowResolvent] = {}  # per reduced model (id)
+        self._last_steps = 0  # steps of this process's previous model: the next one is similar
 
     # ------------------------------------------------------------------ extended system
     def _assemble(self, fsyst) -> None:
@@ -301,7 +304,9 @@ class SpectralSweeper:
         lz = BlockLanczos(lambda b: lu.solve(np.asfortranarray(b)), p, shift)
         # checks on a geometric schedule (each costs an eigendecomposition of the reduced
         # matrix); the error is the change since the previous check, a conservative measure
-        prev, red, err, next_check = None, None, np.inf, _MIN_STEPS
+        # the first checks go where the previous field point converged (fields are similar)
+        prev, red, err = None, None, np.inf
+        next_check = max(_MIN_STEPS, min(self._last_steps - 2, _MAX_STEPS // 2))
         while lz.steps < _MAX_STEPS:
             lz.step()
             if lz.steps < next_check and not lz.exhausted:
@@ -313,25 +318,47 @@ class SpectralSweeper:
                 break
             if prev is not None:
                 energies = self._check_energies(red)
-                now = self.conductance_of(red, energies, check_values)
-                err = float(np.max(np.abs(now - self.conductance_of(prev, energies, check_values))))
+                now = self.conductance_of(red, energies, check_values, keep=False)
+                before = self.conductance_of(prev, energies, check_values, keep=False)
+                err = float(np.max(np.abs(now - before)))
                 if err <= self.model_tol:
                     break
+            if prev is None or lz.steps >= self._last_steps:
+                next_check = min(next_check, lz.steps + 2)  # compare soon: expected converged
             prev = red
+        self._last_steps = lz.steps
         return red, err
 
     # ------------------------------------------------------------------ per energy
-    def conductance_of(self, red: ReducedResolvent, energies, values=(None,)) -> np.ndarray:
-        """Conductance per spin (e^2/h) of one reduced model, ``(n_E, len(values))``."""
+    def conductance_of(
+        self, red: ReducedResolvent, energies, values=(None,), *, keep: bool = True
+    ) -> np.ndarray:
+        """Conductance per spin (e^2/h) of one reduced model, ``(n_E, len(values))``.
+
+        The resolvent is evaluated by :class:`._spectral_poles.WindowResolvent` (far poles by
+        a Chebyshev series with a rigorous bound of 1e-13 of its scale), kept per model when
+        ``keep``.
+        """
         energies = np.atleast_1d(np.asarray(energies, dtype=float))
         out = np.zeros((energies.size, len(values)))
         if red.weights.shape[1] == 0:
             return out
+        win = self._window(red, energies.size, keep)
         step = self.terminals.energy_chunk()
         for a in range(0, energies.size, step):
             e = energies[a : a + step]
-            out[a : a + step] = self.terminals.conductance(red.resolvent(e), e, values)
+            out[a : a + step] = self.terminals.conductance(win(e), e, values)
         return out
+
+    def _window(self, red: ReducedResolvent, n_energies: int, keep: bool) -> WindowResolvent:
+        win = self._windows.get(id(red))
+        if win is None:
+            win = WindowResolvent(
+                red.poles, red.weights, self.mu, self.half_width, n_energies=max(n_energies, 400)
+            )
+            if keep:
+                self._windows[id(red)] = win
+        return win
 
     def transmission_of(self, red: ReducedResolvent, energies) -> np.ndarray:
         """Conductance per spin of a per-field model at ``energies`` (``(n_E,)``)."""
@@ -398,6 +425,7 @@ class SpectralSweeper:
                     out = [self.reduce(v) for v in reps]
         self.values, self._reps, self._inverse = values, reps, inverse
         self.reduced = [o[0] for o in out]
+        self._windows = {}
         err = np.array([o[1] for o in out], dtype=float)
         steps = np.array([o[0].steps for o in out], dtype=int)
         if self.mode == "cut":
@@ -441,7 +469,10 @@ class SpectralSweeper:
                 "energies", energies[out_of][:3], "must lie inside the window of the models"
             )
         parts = self._parts(energies)
-        if len(parts) > 1:
+        if len(parts) > 1:  # built once here, shared by the forked workers
+            for red in self.reduced:
+                if red.weights.shape[1]:
+                    self._window(red, 400, True)
             _TASK[:] = [self]
             try:
                 with multiprocessing.get_context("fork").Pool(len(parts)) as pool:
