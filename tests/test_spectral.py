@@ -318,3 +318,14 @@ def test_a_large_step_hint_still_measures_the_error():
     sw._last_steps = 10_000
     red, err = sw.reduce(0.1 * PHI0 / ring.loop_area)
     assert err <= sw.model_tol and red.steps < 400
+
+
+def test_auto_choice_of_the_engine():
+    # the rule of docs/engine.md section 9.5 (measured in benchmarks/RESULTS-spectral-modes.md)
+    from ringkit.transport.spectral import AUTO_MAX_PROBES, spectral_preferred
+
+    few = DephasingProbes(np.arange(AUTO_MAX_PROBES), 0.1)
+    many = DephasingProbes(np.arange(AUTO_MAX_PROBES + 1), 0.1)
+    assert spectral_preferred(False) and spectral_preferred(True)
+    assert spectral_preferred(False, few) and not spectral_preferred(False, many)
+    assert not spectral_preferred(True, few)

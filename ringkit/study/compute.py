@@ -236,13 +236,14 @@ class UnitEngine:
             SpectralSweeper,
             policy_half_width,
             spectral_eligible,
+            spectral_preferred,
         )
         from ringkit.units import K_B
 
         temps = [float(t) for t in self.task.temperatures if t > 0]
         ring = self.ring
-        if not temps or (self.flux and self.probes is not None):
-            return None  # flux tube with probes: the low-rank update stays the engine
+        if not temps or not spectral_preferred(self.flux, self.probes):
+            return None  # many probes, or a flux tube with probes: the per-energy engines
         if spectral_eligible(ring.fsyst, ring.field_param, self.params, self.probes) is not None:
             return None
         thermal = self.task.physics["thermal"]

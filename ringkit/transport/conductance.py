@@ -315,8 +315,8 @@ def field_sweep(
         Finite-temperature engine (see :func:`ringkit.transport.sweep.fast_field_conductance`):
         "auto" uses the spectral engine (:mod:`ringkit.transport.spectral`: one factorization
         per distinct field point, or one for every flux in flux-tube mode, serves all energies)
-        at T > 0, except for flux-tube sweeps with probes. The attrs hold
-        ``n_factorizations``.
+        at T > 0 without probes, and with at most ``AUTO_MAX_PROBES`` (48) probes in a
+        uniform field. The attrs hold ``n_factorizations``.
 
     Warns once for the largest |B| (see :func:`conductance`).
     """

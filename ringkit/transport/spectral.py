@@ -67,6 +67,8 @@ __all__ = [
     "spectral_eligible",
     "spectral_thermal_transmission",
     "policy_half_width",
+    "spectral_preferred",
+    "AUTO_MAX_PROBES",
     "MODEL_TOL",
 ]
 
@@ -85,6 +87,24 @@ _TASK: list = []
 
 class SpectralModelWarning(RuntimeWarning):
     """A field point whose reduced model did not reach ``model_tol`` (error stored)."""
+
+
+AUTO_MAX_PROBES = 48
+"""Most probes for which ``thermal_engine="auto"`` picks the spectral engine in a uniform field.
+
+Its cost grows with the square of the terminal block (lead modes + probes): measured per
+distinct field point, 32 probes on a 7.7k-site ring cost 1/13 of the direct path, 100 probes
+on the 28.6k-site ring about the same as the direct path (benchmarks/RESULTS-spectral-modes.md,
+docs/engine.md §9.5)."""
+
+
+def spectral_preferred(flux_tube: bool, probes=None) -> bool:
+    """Whether ``"auto"`` takes the spectral engine (given that it is eligible): always without
+    probes; with probes only in a uniform field and up to :data:`AUTO_MAX_PROBES` of them (a
+    flux tube with probes keeps the low-rank update)."""
+    if probes is None:
+        return True
+    return not flux_tube and len(np.atleast_1d(probes.sites)) <= AUTO_MAX_PROBES
 
 
 def spectral_eligible(fsyst, field_param: str, params: dict, probes=None) -> str | None:

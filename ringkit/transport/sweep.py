@@ -44,7 +44,11 @@ from ringkit.transport.fastsweep import FieldSweeper
 from ringkit.transport.lowrank import FluxTubeSweeper
 from ringkit.transport.probes import attach_probes
 from ringkit.transport.realised_l_phi import STATUS_NOT_MEASURED, realised_l_phi_info
-from ringkit.transport.spectral import spectral_eligible, spectral_thermal_transmission
+from ringkit.transport.spectral import (
+    spectral_eligible,
+    spectral_preferred,
+    spectral_thermal_transmission,
+)
 from ringkit.transport.thermal import thermal_conductance
 from ringkit.units import HBAR, K_B, PHI0
 
@@ -208,7 +212,8 @@ def fast_field_conductance(
         (flux tube) serves every energy of the window (:mod:`ringkit.transport.spectral`,
         with or without probes); ``"direct"``: one factorization per (energy, field) point in
         uniform field, or the low-rank flux-tube update per energy. ``"auto"`` (default) takes
-        the spectral engine at T > 0 except for flux-tube sweeps with probes.
+        the spectral engine at T > 0 without probes, and with at most
+        :data:`ringkit.transport.spectral.AUTO_MAX_PROBES` probes in a uniform field.
 
     Returns
     -------
@@ -236,9 +241,9 @@ def fast_field_conductance(
         why = spectral_eligible(ring.fsyst, name, params, probes)
         if why is not None and thermal_engine == "spectral":
             raise ParameterError("thermal_engine", "spectral", f"not available here: {why}")
-        # "auto": the low-rank flux-tube update stays the default with probes (the probe
-        # orbitals and the cut together make the spectral terminal block ~150 wide)
-        prefer = thermal_engine == "spectral" or name != "flux" or probes is None
+        # "auto": see spectral_preferred (the block of lead modes + probes (+ cut) sets the
+        # cost; many probes or a flux tube with probes stay on the per-energy paths)
+        prefer = thermal_engine == "spectral" or spectral_preferred(name == "flux", probes)
         use_spectral = why is None and prefer
     if temperature > 0:
         bands = _band_projector(ring, values)
