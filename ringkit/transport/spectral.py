@@ -370,11 +370,16 @@ class SpectralSweeper:
             out[a : a + step] = self.terminals.conductance(win(e), e, values)
         return out
 
+    def _half_slack(self) -> float:
+        """Half-width accepted for energies: a relative 1e-12 plus a few ulps of ``mu`` (a
+        very narrow window, e.g. at 1e-6 K, is below the float resolution of ``mu``)."""
+        return self.half_width * (1 + 1e-12) + 16 * np.finfo(float).eps * max(1.0, abs(self.mu))
+
     def _window(self, red: ReducedResolvent, n_energies: int, keep: bool) -> WindowResolvent:
         win = self._windows.get(id(red))
         if win is None:
             win = WindowResolvent(
-                red.poles, red.weights, self.mu, self.half_width, n_energies=max(n_energies, 400)
+                red.poles, red.weights, self.mu, self._half_slack(), n_energies=max(n_energies, 400)
             )
             if keep:
                 self._windows[id(red)] = win
@@ -483,7 +488,7 @@ class SpectralSweeper:
         if self.values is None:
             raise RuntimeError("call models(values) first")
         energies = np.atleast_1d(np.asarray(energies, dtype=float))
-        out_of = np.abs(energies - self.mu) > self.half_width * (1 + 1e-12)
+        out_of = np.abs(energies - self.mu) > self._half_slack()
         if np.any(out_of):
             raise ParameterError(
                 "energies", energies[out_of][:3], "must lie inside the window of the models"
