@@ -61,6 +61,7 @@ __all__ = [
     "EnergyAverage",
     "fermi_window",
     "thermal_window",
+    "sampled_half_width",
     "energy_average",
     "budget_grid",
     "check_tol",
@@ -260,9 +261,31 @@ def _adaptive(ev, mu, kt, tol, lo, hi, n_init, max_energies):
     return value, total_err, wmap
 
 
+def _grid_steps(half: float, spacing: float) -> int:
+    """Steps of the grid rule on each side: ``half`` rounded up to an even number (so that
+    every second point is a grid of spacing 2h centred on mu)."""
+    m = max(1, int(math.ceil(half / spacing)))
+    return m + m % 2
+
+
+def sampled_half_width(
+    kt: float, tol: float, bound: float = 1.0, method: str = "adaptive", spacing=None
+) -> float:
+    """Half-width of the energies :func:`energy_average` can ask for (units of ``kt``).
+
+    :func:`thermal_window`; the grid rule rounds it up to an even number of steps of
+    ``spacing`` (default ``kt/4``). A relative margin of 1e-9 covers rounding. What an engine
+    that serves a whole window at once must cover.
+    """
+    half = thermal_window(kt, tol, bound)
+    if method == "grid":
+        h = kt / 4.0 if spacing is None else check_positive("spacing", spacing)
+        half = _grid_steps(half, h) * h
+    return half * (1.0 + 1e-9)
+
+
 def _grid(ev, mu, kt, lo, hi, spacing):
-    m = max(1, int(math.ceil((hi - mu) / spacing)))
-    m += m % 2  # even, so that every second point is a grid of spacing 2h centred on mu
+    m = _grid_steps(hi - mu, spacing)
     energies = mu + spacing * np.arange(-m, m + 1)
     vals = ev(energies)
     w = fermi_window(energies, mu, kt)

@@ -5,13 +5,13 @@ ring with :func:`ringkit.tightbinding.build_ring` and sweeps the field with the 
 :class:`~ringkit.transport.fastsweep.FieldSweeper` (flux-tube mode:
 :class:`~ringkit.transport.lowrank.FluxTubeSweeper`). Temperatures are thermal averages on the
 energies of the thermal policy (:func:`ringkit.study.setup.thermal_average`); energies shared
-by several temperatures are computed once. A unit at T > 0 in a uniform field (with or
-without probes), or in flux-tube mode without probes, runs on the spectral engine
-(:mod:`ringkit.transport.spectral`): one factorization per distinct field point (one for every
-flux) serves every energy of the widest window of its temperatures, and the measured model error
-is added to the thermal error (``info["engine"]``, ``info["spectral_model_error_e2h"]``).
-The result of a unit does not depend on which process computes it or on what that process
-computed before (tested bit for bit).
+by several temperatures are computed once. A unit at T > 0 in a uniform field (without probes
+or with at most ``AUTO_MAX_PROBES``), or in flux-tube mode without probes, runs on the
+spectral engine (:mod:`ringkit.transport.spectral`): one factorization per distinct field
+point (one for every flux) serves every energy of the widest window of its temperatures, and the
+measured model error is added to the thermal error (``info["engine"]``,
+``info["spectral_model_error_e2h"]``). The result of a unit does not depend on which process
+computes it or on what that process computed before (tested bit for bit).
 
 What is reused (per worker process, :class:`_RingState`, at most two lattices kept):
 
@@ -230,11 +230,10 @@ class UnitEngine:
         direct path); computed in this process (units are the parallel work).
         """
         from ringkit.study.setup import thermal_bound
-        from ringkit.thermal_policy import DEFAULT_TOL
+        from ringkit.thermal_policy import DEFAULT_TOL, sampled_half_width
         from ringkit.transport.spectral import (
             MODEL_TOL,
             SpectralSweeper,
-            policy_half_width,
             spectral_eligible,
             spectral_preferred,
         )
@@ -250,7 +249,7 @@ class UnitEngine:
         tol = float(thermal.get("tol", DEFAULT_TOL))
         method = thermal.get("method", "adaptive")
         half = max(
-            policy_half_width(K_B * t, tol, thermal_bound(ring, t, tol), method) for t in temps
+            sampled_half_width(K_B * t, tol, thermal_bound(ring, t, tol), method) for t in temps
         )
         return SpectralSweeper(
             ring.fsyst,
@@ -329,7 +328,7 @@ class UnitEngine:
         from ringkit.transport.fastsweep import FieldSweeper, kron_reduce
 
         if self.uses_spectral:
-            return 2.0 * self._spectral.transmission([e_lattice])[0]
+            return self.conductance_many([e_lattice])[0]
         if self.flux:
             from ringkit.transport.lowrank import FluxTubeSweeper
 
@@ -404,8 +403,8 @@ def _compute(task: UnitTask) -> UnitResult:
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         engine = UnitEngine(state, task)  # calibration warnings (range) are recorded too
+        spectral = engine.uses_spectral
         for i, temp in enumerate(task.temperatures):
-            spectral = engine.uses_spectral
             avg = thermal_average(
                 ring, temp, task.physics["thermal"], g_many if spectral else g_at,
                 batched=spectral,

@@ -26,6 +26,7 @@ two-terminal G (coherent or with floating probes), not ``T_ij`` of a multi-termi
 Public API
 ----------
 flux_classes(model, fluxes) -> (representatives, inverse)
+fold_fluxes(fluxes, period, periodic, reciprocal) -> (representatives, inverse)
 is_reciprocal(model) -> bool
 """
 
@@ -33,7 +34,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["flux_classes", "is_reciprocal", "is_periodic"]
+__all__ = ["flux_classes", "fold_fluxes", "is_reciprocal", "is_periodic"]
 
 _MERGE = 1e-13  # grid values closer than this (in periods) are one class
 
@@ -78,12 +79,22 @@ def flux_classes(model, fluxes) -> tuple[np.ndarray, np.ndarray]:
         ``value[inverse]`` expands values at the representatives back onto ``fluxes``.
         A model that is not periodic returns the grid itself.
     """
-    f = np.asarray(fluxes, dtype=float).ravel()
     if not is_periodic(model):
+        return fold_fluxes(fluxes, 1.0, False, False)
+    return fold_fluxes(fluxes, float(model.flux_period), True, is_reciprocal(model))
+
+
+def fold_fluxes(
+    fluxes, period: float, periodic: bool, reciprocal: bool
+) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`flux_classes` from the facts themselves: the ``period`` of the Hamiltonian in the
+    flux (same unit as ``fluxes``), whether it is exactly periodic, and whether the system is
+    reciprocal (``G(-Phi) = G(Phi)``). Same return values."""
+    f = np.asarray(fluxes, dtype=float).ravel()
+    if not periodic:
         return f.copy(), np.arange(f.size)
-    period = float(model.flux_period)
     r = np.mod(f / period, 1.0)
-    if is_reciprocal(model):
+    if reciprocal:
         r = np.minimum(r, 1.0 - r)
     r[r > 1.0 - _MERGE] = 0.0  # 0.999...9 is the period itself
     key = np.round(r / _MERGE).astype(np.int64)

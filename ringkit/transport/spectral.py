@@ -39,13 +39,10 @@ spectral_eligible(fsyst, field_param, params, probes) -> str | None
     ``None`` if the spectral path applies, else the reason.
 spectral_thermal_transmission(fsyst, values, *, field_param, params, mu, kt, tol, ...)
     The thermal average by the one policy on the spectral engine.
-policy_half_width(kt, tol, bound, method, spacing) -> float
-    The energy window the policy can sample (what a sweeper must cover).
 """
 
 from __future__ import annotations
 
-import math
 import multiprocessing
 import warnings
 
@@ -66,7 +63,6 @@ __all__ = [
     "SpectralModelWarning",
     "spectral_eligible",
     "spectral_thermal_transmission",
-    "policy_half_width",
     "spectral_preferred",
     "AUTO_MAX_PROBES",
     "MODEL_TOL",
@@ -395,26 +391,16 @@ class SpectralSweeper:
         if not self.fold:
             return values.copy(), np.arange(values.size)
         if self.mode == "cut":
-            from types import SimpleNamespace
+            from ringkit.transport.flux_symmetry import fold_fluxes
 
-            from ringkit.transport.flux_symmetry import flux_classes
-
-            t = self.terminals
-            rates = t.cut_coef[t.cut_coef != 0]
+            rates = np.abs(self.terminals.cut_coef)
+            rates = rates[rates != 0]
             if rates.size == 0:
                 return values.copy(), np.arange(values.size)
-            adapter = SimpleNamespace(
-                cut=SimpleNamespace(rates=rates, values=t.cut_base),
-                flux_period=2.0 * np.pi / float(np.min(np.abs(rates))),
-                h0=SimpleNamespace(data=self.model.base),
-                fsyst=None,
-                params={},
-            )
-            if not self._reciprocal:
-                adapter.h0 = SimpleNamespace(data=np.array([1j]))  # no G(-Phi) = G(Phi) claim
-            else:
-                adapter.fsyst = SimpleNamespace(leads=[])  # leads were checked real
-            return flux_classes(adapter, values)
+            period = 2.0 * np.pi / float(np.min(rates))
+            w = rates * period / (2.0 * np.pi)
+            periodic = bool(np.all(np.abs(w - np.round(w)) <= 1e-9))
+            return fold_fluxes(values, period, periodic, self._reciprocal)
         if not self._reciprocal:
             return values.copy(), np.arange(values.size)
         a = np.abs(values)
@@ -546,25 +532,6 @@ def _reciprocal(fsyst, model, p0: dict) -> bool:
     return True
 
 
-def policy_half_width(
-    kt: float, tol: float, bound: float = 1.0, method: str = "adaptive", spacing=None
-) -> float:
-    """Half-width of the energies :func:`ringkit.thermal_policy.energy_average` can ask for.
-
-    The window :func:`~ringkit.thermal_policy.thermal_window` ``(kt, tol, bound)``; the grid
-    rule rounds it up to an even number of steps of ``spacing`` (default ``kt/4``). A relative
-    margin of 1e-9 covers rounding. Same units as ``kt``.
-    """
-    from ringkit.thermal_policy import thermal_window
-
-    half = thermal_window(kt, tol, bound)
-    if method == "grid":
-        h = kt / 4.0 if spacing is None else check_positive("spacing", spacing)
-        m = max(1, math.ceil(half / h))
-        half = (m + m % 2) * h
-    return half * (1.0 + 1e-9)
-
-
 def spectral_thermal_transmission(
     fsyst,
     values,
@@ -599,11 +566,11 @@ def spectral_thermal_transmission(
     """
     from dataclasses import replace
 
-    from ringkit.thermal_policy import check_tol, energy_average
+    from ringkit.thermal_policy import check_tol, energy_average, sampled_half_width
 
     tol = check_tol(tol)
     kt = check_positive("kt", kt)
-    half = policy_half_width(kt, tol, bound, method, spacing)
+    half = sampled_half_width(kt, tol, bound, method, spacing)
     sw = SpectralSweeper(
         fsyst,
         field_param=field_param,
