@@ -688,3 +688,17 @@ def test_demo_folder_matches_readme():
 
     readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
     assert DEFAULT_OUT == "ringkit-demo-output" and DEFAULT_OUT in readme
+
+
+def test_cost_model_counts_set_up_and_folded_spectral_points():
+    """Arithmetic of the per-unit cost model (ringkit.study.cost.Timing): a uniform-field
+    spectral unit pays one model per distinct |B| (G(B) = G(-B), Onsager) plus its energies,
+    and every unit its set-up (probe calibration)."""
+    from ringkit.study.cost import Timing
+
+    field = np.linspace(-2.0, 2.0, 9)  # 9 points, 5 distinct |B|
+    t = Timing("spectral-field", s0=1e-3, s1=0.5, setup=2.0, build=3.0)
+    assert t.unit_seconds(100, field) == pytest.approx(5 * (0.5 + 100 * 1e-3))
+    d = Timing("per-energy", s0=0.1, s1=0.01)
+    assert d.unit_seconds(10, field) == pytest.approx(10 * (0.1 + 9 * 0.01))
+    assert "set-up per unit" in t.describe(9) and "set-up" not in d.describe(9)

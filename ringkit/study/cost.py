@@ -352,14 +352,18 @@ def _time_engine(plan: StudyPlan, unit: WorkUnit) -> Timing:
 
     task = compute.make_tasks(plan, [unit])[0]
     with compute.blas_limit(task.blas_threads):
-        state = compute.state_for(task)
-        engine = compute.UnitEngine(state, task)
+        t0 = time.perf_counter()
+        state = compute.state_for(task)  # the lattice (cached per process: 0 s when reused)
+        t_build = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        engine = compute.UnitEngine(state, task)  # probe calibration, engine set-up
+        t_setup = time.perf_counter() - t0
         ring = state.ring
         e_lat = ring.fermi_energy_lattice
         field = np.asarray(plan.field, float)
         picks = field[np.linspace(0, field.size - 1, 5).round().astype(int)]
         if engine.uses_spectral:
-            return _time_spectral(engine, picks, e_lat)
+            return _time_spectral(engine, picks, e_lat)._replace(setup=t_setup, build=t_build)
         engine.field = picks[:1]
         engine.conductance(e_lat)  # one-time set-up of the worker
         e_near = e_lat * (1 + 1e-3)  # another energy: nothing cached for it
@@ -372,38 +376,52 @@ def _time_engine(plan: StudyPlan, unit: WorkUnit) -> Timing:
                 times[sub.size].append(time.perf_counter() - t0)
     t1, t5 = (float(np.median(times[k])) for k in (1, 5))
     per_point = max(0.0, (t5 - t1) / 4)
-    return Timing("per-energy", max(t1 - per_point, 0.0), per_point)
+    return Timing("per-energy", max(t1 - per_point, 0.0), per_point, t_setup, t_build)
 
 
 class Timing(NamedTuple):
     """Measured cost of one unit's engine.
 
     ``kind``: ``"per-energy"`` (``s0`` s per energy + ``s1`` s per field point and energy),
-    ``"spectral-field"`` (spectral engine in a uniform field: ``s1`` s per distinct field
-    point, every energy included) or ``"spectral-cut"`` (spectral engine, flux tube: ``s0`` s
-    for the one model + ``s1`` s per flux and energy).
+    ``"spectral-field"`` (spectral engine in a uniform field: ``s1`` s for the model of one
+    distinct field point + ``s0`` s per energy and distinct point) or ``"spectral-cut"``
+    (spectral engine, flux tube: ``s0`` s for the one model + ``s1`` s per flux and energy).
+
+    ``setup``: seconds per unit before any energy (the L_phi calibration of the probes and the
+    engine set-up); ``build``: seconds of one lattice, paid once per realization and Fermi
+    energy (a worker keeps the lattice for the other units of that realization).
     """
 
     kind: str
     s0: float
     s1: float
+    setup: float = 0.0
+    build: float = 0.0
 
     def unit_seconds(self, n_energies: int, field) -> float:
         """Estimated seconds of one unit with ``n_energies`` energies over ``field``."""
         import numpy as np
 
         if self.kind == "spectral-field":  # one model per distinct |B| (Onsager folding)
-            return self.s1 * np.unique(np.round(np.abs(np.asarray(field, float)), 12)).size
+            n = np.unique(np.round(np.abs(np.asarray(field, float)), 12)).size
+            return n * (self.s1 + n_energies * self.s0)
         if self.kind == "spectral-cut":
             return self.s0 + n_energies * len(field) * self.s1
         return n_energies * (self.s0 + len(field) * self.s1)
 
     def describe(self, n_field: int) -> str:
         if self.kind == "spectral-field":
-            return f"spectral engine, {self.s1:.3g} s per distinct field point"
-        if self.kind == "spectral-cut":
-            return f"spectral engine, {self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
-        return f"{self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
+            text = (
+                f"spectral engine, {self.s1:.3g} s per distinct field point + "
+                f"{self.s0:.3g} s per energy and point"
+            )
+        elif self.kind == "spectral-cut":
+            text = f"spectral engine, {self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
+        else:
+            text = f"{self.s0:.3g} s + {n_field} x {self.s1:.3g} s per energy"
+        if self.setup >= 0.05:
+            text += f" + {self.setup:.3g} s set-up per unit"
+        return text
 
 
 def _time_spectral(engine, picks, e_lat: float) -> Timing:
@@ -415,8 +433,15 @@ def _time_spectral(engine, picks, e_lat: float) -> Timing:
     sw = engine._spectral_engine
     if sw.mode == "per-field":
         t0 = time.perf_counter()
-        sw.reduce(float(picks[len(picks) // 2]))
-        return Timing("spectral-field", 0.0, time.perf_counter() - t0)
+        # the largest |B| of the grid: complex arithmetic (B = 0 is real and about twice as
+        # cheap, so the middle of a symmetric window would underestimate every other point)
+        red, _ = sw.reduce(float(picks[np.argmax(np.abs(picks))]))
+        sw.transmission_of(red, e_lat + sw.half_width * np.linspace(-0.9, 0.9, 16))
+        t_model = time.perf_counter() - t0  # the model and its windowed resolvent
+        t0 = time.perf_counter()
+        sw.transmission_of(red, e_lat + sw.half_width * np.linspace(-0.95, 0.95, 64))
+        per_energy = (time.perf_counter() - t0) / 64  # Dyson, Fisher-Lee, Kron per energy
+        return Timing("spectral-field", per_energy, t_model)
     t0 = time.perf_counter()
     engine.field = picks
     sw = engine._spectral
@@ -439,15 +464,23 @@ def estimate_cost(plan: StudyPlan, pre: Preflight, pending: list[WorkUnit]) -> C
     counts = unit_energy_counts(plan)
     first = plan.units[0]
     per_energy = {"coherent": _time_engine(plan, _with_l_phi(first, math.inf))}
+    build = per_energy["coherent"].build  # the first timing builds the lattice
     if any(math.isfinite(d) for d in plan.l_phi_values):
         l_phi = next(d for d in plan.l_phi_values if math.isfinite(d))
         per_energy["dephased"] = _time_engine(plan, _with_l_phi(first, l_phi))
     # sweep.contacts: every energy is swept a second time for the conductance matrix of R
     sweeps = 2 if plan.config["sweep"]["contacts"] else 1
     unit_seconds = {}
+    built: set = set()
     for u in plan.units:
         timing = per_energy["coherent" if math.isinf(u.l_phi) else "dephased"]
-        unit_seconds[u.uid] = sweeps * timing.unit_seconds(counts[u.fermi_energy], plan.field)
+        seconds = sweeps * timing.unit_seconds(counts[u.fermi_energy], plan.field)
+        seconds += timing.setup  # probe calibration and engine set-up of this unit
+        lattice = (u.seed, u.fermi_energy)
+        if lattice not in built:  # first unit of its realization and E_F builds the lattice
+            built.add(lattice)
+            seconds += build
+        unit_seconds[u.uid] = seconds
     pend = sum(unit_seconds[u.uid] for u in pending)
     n_e = sweeps * sum(counts[u.fermi_energy] for u in pending)
     wall = pend / max(1, pre.workers)

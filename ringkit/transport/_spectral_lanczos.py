@@ -23,6 +23,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.linalg
+import scipy.linalg.blas
 
 __all__ = ["ReducedResolvent", "BlockLanczos"]
 
@@ -58,6 +59,25 @@ class ReducedResolvent:
         return np.matmul(c[None, :, :] * d[:, None, :], c.conj().T[None, :, :])
 
 
+def _ctm(q: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """``q^H w`` by one BLAS call, without a conjugated copy of the tall ``q``."""
+    if np.iscomplexobj(q) or np.iscomplexobj(w):
+        return scipy.linalg.blas.zgemm(1.0, q, w, trans_a=2)
+    return scipy.linalg.blas.dgemm(1.0, q, w, trans_a=1)
+
+
+def _sub(w: np.ndarray, q: np.ndarray, c: np.ndarray) -> None:
+    """``w -= q @ c`` in place (``w`` Fortran-ordered, of ``q``'s or a wider dtype)."""
+    if np.iscomplexobj(w):
+        gemm = scipy.linalg.blas.zgemm
+        q, c = q.astype(complex, copy=False), c.astype(complex, copy=False)
+    else:
+        gemm = scipy.linalg.blas.dgemm
+    out = gemm(-1.0, q, c, beta=1.0, c=w, overwrite_c=1)
+    if out is not w:  # pragma: no cover - BLAS wrapper had to copy
+        w[...] = out
+
+
 class BlockLanczos:
     """Three-term block Lanczos on ``A = (H - shift)^-1`` given its solve, with deflation.
 
@@ -84,9 +104,9 @@ class BlockLanczos:
         self._solve = solve
         self.shift = float(shift)
         p = np.asarray(p)
-        q, r = np.linalg.qr(p if np.isrealobj(p) else p.astype(complex))
+        q, r = scipy.linalg.qr(p if np.isrealobj(p) else p.astype(complex), mode="economic")
         self._r = r
-        self._q, self._q_prev, self._b_prev = q, None, None
+        self._q, self._q_prev, self._b_prev = np.asfortranarray(q), None, None
         self._a: list[np.ndarray] = []
         self._b: list[np.ndarray] = []  # (b_{j+1} x b_j)
         self.exhausted = False  # an invariant subspace was found: the model is exact
@@ -101,16 +121,16 @@ class BlockLanczos:
         if self.exhausted:
             return
         q = self._q
-        w = self._solve(q)
-        a = q.conj().T @ w
+        w = np.asfortranarray(self._solve(q))
+        a = _ctm(q, w)
         a = 0.5 * (a + a.conj().T)
-        w = w - q @ a
+        _sub(w, q, a)
         if self._q_prev is not None:
-            w = w - self._q_prev @ self._b_prev.conj().T
-        # local re-orthogonalisation against the last two blocks (cheap, keeps T accurate)
+            _sub(w, self._q_prev, self._b_prev.conj().T)
+        # local re-orthogonalisation against the last two blocks (keeps T accurate)
         for blk in (q, self._q_prev):
             if blk is not None:
-                w = w - blk @ (blk.conj().T @ w)
+                _sub(w, blk, _ctm(blk, w))
         self._a.append(a)
         qn, rn, piv = scipy.linalg.qr(w, mode="economic", pivoting=True)
         scale = max(float(np.abs(a).max(initial=0.0)), 1e-300)
@@ -123,7 +143,7 @@ class BlockLanczos:
         b = np.empty((rank, q.shape[1]), dtype=rn.dtype)
         b[:, piv] = rn[:rank]
         self._b.append(b)
-        self._q_prev, self._b_prev, self._q = q, b, qn[:, :rank]
+        self._q_prev, self._b_prev, self._q = q, b, np.asfortranarray(qn[:, :rank])
 
     def model(self) -> ReducedResolvent:
         """The reduced resolvent after the steps taken so far."""
