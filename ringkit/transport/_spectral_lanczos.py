@@ -28,6 +28,8 @@ import scipy.linalg.blas
 __all__ = ["ReducedResolvent", "BlockLanczos"]
 
 _DEFLATE = 1e-10  # relative size of a new direction below which it is dropped
+_GRAM_MIN_COLUMNS = 24  # blocks at least this wide are orthonormalised by CholQR2
+_GRAM_RESOLVED = 1e-6  # singular values the Gram matrix resolves (relative to the largest)
 
 
 @dataclass(frozen=True)
@@ -78,6 +80,42 @@ def _sub(w: np.ndarray, q: np.ndarray, c: np.ndarray) -> None:
         w[...] = out
 
 
+def _orthonormal_basis(w: np.ndarray, threshold: float) -> tuple[np.ndarray, np.ndarray]:
+    """``w ~ Q B`` with orthonormal ``Q`` (n x r, Fortran order) and ``B`` (r x k), dropping
+    the directions of ``w`` with singular value below ``threshold`` (deflation).
+
+    Wide blocks (dephasing probes, cut orbitals) use the Gram matrix: two passes of
+    Cholesky-QR (CholQR2; Y. Yamamoto et al., ETNA 44, 306 (2015)) on the directions whose
+    singular values the Gram matrix resolves, i.e. above 1e-6 of the largest (its relative
+    accuracy is ~1e-8). Whenever the threshold falls where the Gram matrix cannot decide (a
+    direction below 1e-6 of the largest that might lie above ``threshold``), and for narrow
+    blocks where it is not faster, the rank-revealing QR with column pivoting decides.
+    """
+    k = w.shape[1]
+    if k >= _GRAM_MIN_COLUMNS:
+        g = _ctm(w, w)
+        lam, v = np.linalg.eigh(0.5 * (g + g.conj().T))
+        sig = np.sqrt(np.clip(lam, 0.0, None))
+        top = float(sig[-1]) if sig.size else 0.0
+        resolved = sig > _GRAM_RESOLVED * top
+        keep = resolved & (sig > threshold)
+        if top > 0 and (np.all(resolved) or threshold >= _GRAM_RESOLVED * top):
+            m = v[:, keep] / sig[keep]
+            b = sig[keep, None] * v[:, keep].conj().T
+            q = np.asfortranarray(w @ m)
+            # second pass: orthonormal to rounding (cond of q is ~1 after the first)
+            g = _ctm(q, q)
+            r = scipy.linalg.cholesky(0.5 * (g + g.conj().T), lower=False)
+            trsm = scipy.linalg.blas.ztrsm if np.iscomplexobj(q) else scipy.linalg.blas.dtrsm
+            q = trsm(1.0, r, q, side=1, lower=0, overwrite_b=1)  # q r^-1
+            return np.asfortranarray(q), r @ b
+    qn, rn, piv = scipy.linalg.qr(w, mode="economic", pivoting=True)
+    rank = int(np.sum(np.abs(np.diag(rn)) > threshold))
+    b = np.empty((rank, k), dtype=rn.dtype)
+    b[:, piv] = rn[:rank]
+    return np.asfortranarray(qn[:, :rank]), b
+
+
 class BlockLanczos:
     """Three-term block Lanczos on ``A = (H - shift)^-1`` given its solve, with deflation.
 
@@ -104,9 +142,11 @@ class BlockLanczos:
         self._solve = solve
         self.shift = float(shift)
         p = np.asarray(p)
-        q, r = scipy.linalg.qr(p if np.isrealobj(p) else p.astype(complex), mode="economic")
-        self._r = r
-        self._q, self._q_prev, self._b_prev = np.asfortranarray(q), None, None
+        p = np.asfortranarray(p if np.isrealobj(p) else p.astype(complex))
+        # dependent terminal vectors (e.g. a probe on a cut orbital) give one direction
+        q, r = _orthonormal_basis(p, _DEFLATE * float(np.max(np.linalg.norm(p, axis=0))))
+        self._r = r  # p = q r, r of shape (rank x b)
+        self._q, self._q_prev, self._b_prev = q, None, None
         self._a: list[np.ndarray] = []
         self._b: list[np.ndarray] = []  # (b_{j+1} x b_j)
         self.exhausted = False  # an invariant subspace was found: the model is exact
@@ -132,18 +172,15 @@ class BlockLanczos:
             if blk is not None:
                 _sub(w, blk, _ctm(blk, w))
         self._a.append(a)
-        qn, rn, piv = scipy.linalg.qr(w, mode="economic", pivoting=True)
         scale = max(float(np.abs(a).max(initial=0.0)), 1e-300)
-        d = np.abs(np.diag(rn))
-        rank = int(np.sum(d > _DEFLATE * scale))
+        qn, b = _orthonormal_basis(w, _DEFLATE * scale)
+        rank = b.shape[0]
         if rank == 0:
             self.exhausted = True  # invariant subspace: stop with the exact model
             return
         self.deflated += q.shape[1] - rank
-        b = np.empty((rank, q.shape[1]), dtype=rn.dtype)
-        b[:, piv] = rn[:rank]
         self._b.append(b)
-        self._q_prev, self._b_prev, self._q = q, b, np.asfortranarray(qn[:, :rank])
+        self._q_prev, self._b_prev, self._q = q, b, qn
 
     def model(self) -> ReducedResolvent:
         """The reduced resolvent after the steps taken so far."""
@@ -157,7 +194,7 @@ class BlockLanczos:
                 t[offs[j + 1] : offs[j + 2], offs[j] : offs[j + 1]] = b
                 t[offs[j] : offs[j + 1], offs[j + 1] : offs[j + 2]] = b.conj().T
         theta, u = np.linalg.eigh(t)
-        nb = self._r.shape[1]
+        nb = self._r.shape[0]
         c = self._r.conj().T @ u[:nb, :]
         keep = theta != 0.0
         return ReducedResolvent(self.shift + 1.0 / theta[keep], c[:, keep], len(self._a))
