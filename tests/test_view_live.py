@@ -219,6 +219,30 @@ def test_live_with_probes_and_temperature_equals_engine():
     assert "requested 0.5 µm; realised: not measured" in table
 
 
+def test_live_at_0p3_kelvin_equals_kwant_thermal_average():
+    """0.3 K with dephasing probes (the live view's default temperature regime): the drawn line
+    equals the thermal average, at the live energies and weights, of the floating-probe
+    conductance from ``kwant.greens_function`` plus the Kron reduction written here (Büttiker,
+    Phys. Rev. Lett. 57, 1761 (1986)) on the Builder-assembled lattice, to 1e-8 e^2/h."""
+    ex = _explorer(live=LiveLattice(n_probes=6), live_calibration=False, temperature=0.3,
+                   l_phi=1.0e-6, gate_potential=0.3 * MEV)  # fmt: skip
+    live = ex.live
+    assert live.n_probes == 6 and 1 < live.n_energies <= LIVE_MAX_ENERGIES
+    assert live.thermal_tol == LIVE_TOL and live.thermal_error > 0
+    # the weights are those of the Fermi window: they sum to 1 (-df/dE is normalised)
+    assert live.weights.sum() == pytest.approx(1.0, abs=1e-12)
+    ref = _reference_fsyst(ex)
+    _, g = _live_line(ex)
+    for i in (3, len(g) // 2 + 11):
+        p = ref.params(flux=float(live.flux[i]), gate=0.3 * MEV)
+        expect = 0.0
+        for e_j, w in zip(live.energies, live.weights, strict=True):
+            if w != 0.0:  # energies of a superseded coarse rule carry no weight
+                expect += w * _floating_probe_g(ref.fsyst, ref.to_lattice_energy(e_j), p,
+                                                live.probe_sites, live.probe_eta)  # fmt: skip
+        assert g[i] == pytest.approx(2 * expect, abs=1e-8)
+
+
 def test_live_realised_l_phi_after_background_calibration():
     """Dephased live view: analytic first frame ("being measured…"), then the calibrated
     redraw (docs/panels.md "Live lattice view"; docs/probes.md "Realised L_phi"). References:

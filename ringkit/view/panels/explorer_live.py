@@ -36,13 +36,17 @@ band projections over the plotted grid as controlled functionals, per-spin toler
 full computation uses) and a budget of ``LIVE_MAX_ENERGIES`` energies. Every result carries
 the number of energies, the error estimate reached and whether it is below the goal; the
 panel shows them. With the same goal and budget the live line equals ``field_sweep``.
-G per energy is kept over the whole h/e period, so a new field window costs no
-factorization. Dephasing: ``n_probes`` floating Büttiker probes when L_phi is finite, with the
-analytic coupling by default (realised L_phi not measured); ``compute(...,
-calibrate_l_phi=True)`` uses the coupling calibrated on the device as ``field_sweep`` does
-(cached calibrator) and reports the realised L_phi with its error (the panel does this in the
-background after the first frame). ``compute(params, cancelled=...)`` stops between
-energies when newer settings arrive (finished energies stay cached).
+G per energy is kept over the whole h/e period, so a new field window costs no factorization.
+The energies stay on the low-rank path (one factorization each): the spectral energy engine
+(:class:`ringkit.transport.spectral.SpectralSweeper`, one reduced model for every flux and
+energy, cut mode with the same probes) gives the same G (< 1e-12 apart at the same energies)
+but cost 2-4x more CPU time per update on the default ring at 0.3 K and 1 K
+(benchmarks/RESULTS-live-preview.md, engine comparison). Dephasing: ``n_probes`` floating
+Büttiker probes when L_phi is finite, with the analytic coupling by default (realised L_phi not
+measured); ``compute(..., calibrate_l_phi=True)`` uses the coupling calibrated on the device as
+``field_sweep`` does (cached calibrator) and reports the realised L_phi with its error (the
+panel does this in the background after the first frame). ``compute(params, cancelled=...)``
+stops between energies when newer settings arrive (finished energies stay cached).
 
 API
 ---
