@@ -9,9 +9,13 @@ Device (issue 11): GaAs preset (3e11 cm^-2), ``RingGeometry.from_mean_radius(0.5
 default lattice, disorder seed 1: 28 626 sites; default thermal tolerance (1e-4 e^2/h) and rule.
 
 1. Flux tube, 201 fluxes over -3..3 h/e, coherent, at 1 K and 0.3 K: ``field_sweep`` end to
-   end with ``thermal_engine="spectral"`` (one reduced model for every flux) and with
-   ``"direct"`` (the exact low-rank flux update per energy), same policy and tolerance; wall,
-   CPU of all processes, energies, factorizations, agreement.
+   end with ``thermal_engine="spectral"`` (one reduced model for every flux; every flux of an
+   energy from one eigendecomposition of the cut pencil), the same with the pencil switched off
+   (one dense cut solve per energy and flux, the previous evaluation), and ``"direct"`` (the
+   exact low-rank flux update per energy), same policy and tolerance; wall, CPU of all
+   processes, energies, factorizations, agreement. Accuracy of the pencil at 1 K: against the
+   per-flux dense solve on 101 energies x every distinct flux (and its fallback count), and
+   against ``kwant.smatrix`` at 3 energies x 3 fluxes.
 2. Uniform field with dephasing probes (L_phi = 1 um, the calibrated default probes), 0.3 K:
    the spectral engine end to end on ``--uniform-points`` fields, and the direct path on one
    field point at the same energies (extrapolated per point, stated as such); agreement.
@@ -41,10 +45,12 @@ import scipy.sparse as sp  # noqa: E402
 import scipy.sparse.linalg as sla  # noqa: E402
 from bench_engine import machine  # noqa: E402
 from bench_uniform import load, thread_settings  # noqa: E402
+from scipy import constants  # noqa: E402
 
 from ringkit.device import Material, RingDevice, RingGeometry  # noqa: E402
+from ringkit.thermal_policy import sampled_half_width  # noqa: E402
 from ringkit.tightbinding import build_ring  # noqa: E402
-from ringkit.transport import field_sweep  # noqa: E402
+from ringkit.transport import _spectral_terminals, field_sweep  # noqa: E402
 from ringkit.transport.spectral import SpectralSweeper  # noqa: E402
 from ringkit.units import PHI0  # noqa: E402
 
@@ -68,27 +74,82 @@ def ring_of(mode: str):
     return build_ring(device, seed=1)
 
 
+ENGINES = (
+    ("spectral", "spectral", "spectral, cut pencil (one eigendecomposition per energy)"),
+    ("per-flux", "spectral", "spectral, one dense cut solve per energy and flux"),
+    ("direct", "direct", "low-rank update per energy"),
+)
+
+
 def flux_tube(ring, n: int, temperature: float) -> dict:
     fluxes = np.linspace(-3.0, 3.0, n) * PHI0
     row = {"T": temperature, "points": n, "load0": load()}
-    for engine in ("spectral", "direct"):
-        ds, wall, cpu = timed(
-            lambda e=engine: field_sweep(
-                ring, fluxes=fluxes, temperature=temperature, thermal_engine=e
+    keep = _spectral_terminals.PENCIL_MIN_VALUES
+    for key, engine, _ in ENGINES:
+        _spectral_terminals.PENCIL_MIN_VALUES = 10**9 if key == "per-flux" else keep
+        try:
+            ds, wall, cpu = timed(
+                lambda e=engine: field_sweep(
+                    ring, fluxes=fluxes, temperature=temperature, thermal_engine=e
+                )
             )
-        )
-        row[engine] = {
+        finally:
+            _spectral_terminals.PENCIL_MIN_VALUES = keep
+        row[key] = {
             "wall": wall,
             "cpu": cpu,
             "G": ds["G"].values,
+            "load": load(),
             **{
                 k: ds.attrs[k] for k in ("n_energies", "n_factorizations", "thermal_error_estimate")
             },
         }
-        print(f"flux tube {temperature} K {engine}: {wall:.1f} s wall, {cpu:.1f} s CPU", flush=True)
+        print(
+            f"flux tube {temperature} K {key}: {wall:.1f} s wall, {cpu:.1f} s CPU, load {load()}",
+            flush=True,
+        )
     row["diff"] = float(np.max(np.abs(row["spectral"]["G"] - row["direct"]["G"])))
+    row["diff_per_flux"] = float(np.max(np.abs(row["spectral"]["G"] - row["per-flux"]["G"])))
     row["load1"] = load()
     return row
+
+
+def pencil_accuracy(ring, n: int, temperature: float) -> dict:
+    """The pencil against the per-flux dense solve (same reduced model) and kwant.smatrix."""
+    fluxes = np.linspace(-3.0, 3.0, n) * PHI0
+    kt = constants.k * temperature / ring.hopping
+    half = sampled_half_width(kt, 1e-4, 1.0, "adaptive", None)
+    mu = ring.fermi_energy_lattice
+    sw = SpectralSweeper(
+        ring.fsyst, field_param=ring.field_param, params=ring.params(), mu=mu,
+        half_width=half, workers=1,
+    ).models(fluxes)  # fmt: skip
+    energies = mu + half * np.linspace(-0.999, 0.999, 101)
+    sw.terminals.pencil_fallbacks = 0
+    g = sw.transmission(energies)
+    fallbacks = sw.terminals.pencil_fallbacks
+    keep = _spectral_terminals.PENCIL_MIN_VALUES
+    _spectral_terminals.PENCIL_MIN_VALUES = 10**9
+    try:
+        g_direct = sw.transmission(energies)
+    finally:
+        _spectral_terminals.PENCIL_MIN_VALUES = keep
+    worst = 0.0
+    for a in (3, 50, 91):
+        for b in (n // 12, n // 2, (13 * n) // 16):
+            params = ring.params(**{ring.field_param: float(fluxes[b])})
+            ref = kwant.smatrix(ring.fsyst, energies[a], params=params).transmission(1, 0)
+            worst = max(worst, abs(g[a, b] - ref))
+    return {
+        "n_E": energies.size,
+        "n_reps": len(sw._reps),
+        "fallbacks": fallbacks,
+        "vs_per_flux": float(np.max(np.abs(g - g_direct))),
+        "vs_kwant": worst,
+        "model_error": sw.model_error,
+        "n_cut": sw.terminals.n_cut,
+        "pencil": sw.terminals.pencil() is not None,
+    }
 
 
 def uniform_probes(ring, n: int, temperature: float) -> dict:
@@ -161,52 +222,71 @@ def write(path: str, r: dict) -> None:
         "",
         "## 1. Flux tube, 201 fluxes over -3..3 h/e, coherent",
         "",
-        "`field_sweep(..., thermal_engine=...)` end to end.",
+        "`field_sweep(..., thermal_engine=...)` end to end (wall includes building the reduced "
+        "model: one factorization, Lanczos steps and their convergence checks).",
         "",
-        "| T | engine | wall (s) | CPU (s) | energies | factorizations | error estimate (e^2/h) |",
-        "|---|---|---|---|---|---|---|",
+        "| T | engine | wall (s) | CPU (s) | load after | energies | factorizations | "
+        "error estimate (e^2/h) |",
+        "|---|---|---|---|---|---|---|---|",
     ]
     for row in r["flux"]:
-        for eng, label in (
-            ("spectral", "spectral (one reduced model)"),
-            ("direct", "low-rank update per energy"),
-        ):
-            x = row[eng]
+        for key, _, label in ENGINES:
+            x = row[key]
             lines.append(
-                f"| {row['T']} K | {label} | {x['wall']:.1f} | {x['cpu']:.1f} | "
+                f"| {row['T']} K | {label} | {x['wall']:.1f} | {x['cpu']:.1f} | {x['load']} | "
                 f"{x['n_energies']} | "
                 f"{x['n_factorizations']} | {x['thermal_error_estimate']:.2g} |"
             )
     lines.append("")
     for row in r["flux"]:
-        s, d = row["spectral"], row["direct"]
+        s, d, f = row["spectral"], row["direct"], row["per-flux"]
         lines.append(
-            f"* {row['T']} K: direct / spectral = {d['wall'] / s['wall']:.1f} (wall), "
-            f"{d['cpu'] / s['cpu']:.1f} (CPU); max |G_spectral - G_direct| = {row['diff']:.2g} "
-            f"e^2/h (both within their error estimates); load {row['load0']} -> {row['load1']}."
+            f"* {row['T']} K: low-rank / spectral = {d['wall'] / s['wall']:.1f} (wall), "
+            f"{d['cpu'] / s['cpu']:.1f} (CPU); per-flux solves / pencil = "
+            f"{f['wall'] / s['wall']:.2f} (wall), {f['cpu'] / s['cpu']:.2f} (CPU); "
+            f"max |G_spectral - G_low-rank| = {row['diff']:.2g} e^2/h (both within their error "
+            f"estimates), max |G_pencil - G_per-flux| = {row['diff_per_flux']:.2g} e^2/h; "
+            f"load {row['load0']} -> {row['load1']}."
         )
-    u = r["uniform"]
-    s, d = u["spectral"], u["direct_one"]
-    per_point = s["wall"] / u["points"]
+    acc = r.get("accuracy")
+    if acc is not None:
+        lines += [
+            "",
+            f"Pencil accuracy at 1 K (same reduced model, model error {acc['model_error']:.2g}; "
+            f"{acc['n_cut']} cut orbitals, pencil applies: {acc['pencil']}): "
+            f"{acc['n_E']} energies across the window x {acc['n_reps']} distinct fluxes, "
+            f"max |G_pencil - G_per-flux solve| = {acc['vs_per_flux']:.2g} e^2/h per spin, "
+            f"{acc['fallbacks']} of {acc['n_E']} energies sent back to the direct solve by the "
+            f"pencil's checks; against kwant.smatrix at 3 energies x 3 fluxes: max "
+            f"|T - T_kwant| = {acc['vs_kwant']:.2g}.",
+        ]
+    if "section2" in r:
+        lines += ["", *r["section2"].rstrip("\n").split("\n"), ""]
+    else:
+        u = r["uniform"]
+        s, d = u["spectral"], u["direct_one"]
+        per_point = s["wall"] / u["points"]
+        lines += [
+            "",
+            f"## 2. Uniform field with dephasing probes (L_phi = 1 um, {s['n_probes']} calibrated "
+            f"probes), {u['T']} K",
+            "",
+            f"Spectral end to end, {u['points']} field points over -3..3 h/e: "
+            f"{s['wall']:.1f} s wall, {s['cpu']:.1f} s CPU, {s['n_energies']} energies, "
+            f"{s['n_factorizations']} factorizations (Onsager folding), error estimate "
+            f"{s['thermal_error_estimate']:.2g} e^2/h. "
+            f"Wall per requested point {per_point:.2f} s.",
+            "",
+            f"Direct path, ONE field point at its own {d['n_energies']} energies: "
+            f"{d['wall']:.1f} s wall, "
+            f"{d['cpu']:.1f} s CPU (per point, so x {u['points']} for the sweep: "
+            f"{d['wall'] * u['points'] / 60:.0f} min, extrapolated, not measured). "
+            f"Ratio direct / spectral per point: {d['wall'] / per_point:.0f}. "
+            f"|G_spectral - G_direct| at that point: {u['diff']:.2g} e^2/h. "
+            f"Load {u['load0']} -> {u['load1']}.",
+            "",
+        ]
     lines += [
-        "",
-        f"## 2. Uniform field with dephasing probes (L_phi = 1 um, {s['n_probes']} calibrated "
-        f"probes), {u['T']} K",
-        "",
-        f"Spectral end to end, {u['points']} field points over -3..3 h/e: {s['wall']:.1f} s wall, "
-        f"{s['cpu']:.1f} s CPU, {s['n_energies']} energies, {s['n_factorizations']} "
-        f"factorizations (Onsager folding), error estimate "
-        f"{s['thermal_error_estimate']:.2g} e^2/h. "
-        f"Wall per requested point {per_point:.2f} s.",
-        "",
-        f"Direct path, ONE field point at its own {d['n_energies']} energies: "
-        f"{d['wall']:.1f} s wall, "
-        f"{d['cpu']:.1f} s CPU (per point, so x {u['points']} for the sweep: "
-        f"{d['wall'] * u['points'] / 60:.0f} min, extrapolated, not measured). "
-        f"Ratio direct / spectral per point: {d['wall'] / per_point:.0f}. "
-        f"|G_spectral - G_direct| at that point: {u['diff']:.2g} e^2/h. "
-        f"Load {u['load0']} -> {u['load1']}.",
-        "",
         "## 3. Reference costs",
         "",
         f"* bare `scipy.sparse.linalg.splu` of the extended matrix: "
@@ -228,10 +308,28 @@ def write(path: str, r: dict) -> None:
     Path(path).write_text("\n".join(lines))
 
 
+def keep_section2(path: str, r: dict) -> None:
+    """Write sections 1 and 3 anew and carry section 2 over from the previous file, marked."""
+    old = Path(path).read_text()
+    a, b = old.index("## 2. "), old.index("## 3. ")
+    carried = old[a:b].rstrip().split("\n")
+    carried.insert(
+        2, "(Carried over unchanged from the previous run of this file; not re-run with "
+        "`--flux-only`.)\n"
+    )  # fmt: skip
+    r["section2"] = "\n".join(carried) + "\n\n"
+    write(path, r)
+    print(f"wrote {path}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="fewer points, 1 K flux tube only")
     ap.add_argument("--uniform-points", type=int, default=61)
+    ap.add_argument(
+        "--flux-only", action="store_true",
+        help="re-run sections 1 and 3 only; section 2 is kept from the existing output file",
+    )  # fmt: skip
     ap.add_argument("--output", default=str(HERE / "RESULTS-spectral-modes.md"))
     args = ap.parse_args()
     r = {"argv": " ".join(sys.argv[1:]), "load_start": load()}
@@ -241,6 +339,12 @@ def main() -> None:
     r["ref"] = references(ring_u, ring_f)
     temps = (1.0,) if args.quick else (1.0, 0.3)
     r["flux"] = [flux_tube(ring_f, 51 if args.quick else 201, t) for t in temps]
+    r["accuracy"] = pencil_accuracy(ring_f, 51 if args.quick else 201, 1.0)
+    print(f"pencil accuracy: {r['accuracy']}", flush=True)
+    if args.flux_only:
+        r["load_end"] = load()
+        keep_section2(args.output, r)
+        return
     r["uniform"] = uniform_probes(ring_u, 11 if args.quick else args.uniform_points, 0.3)
     r["load_end"] = load()
     if not args.quick:

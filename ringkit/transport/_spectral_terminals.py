@@ -34,6 +34,9 @@ from ringkit.transport._spectral_leads import ModeLead
 __all__ = ["Terminals"]
 
 _CHUNK_BYTES = 48 * 2**20  # complex temporaries of one energy chunk
+PENCIL_MIN_VALUES = 24
+"""Field values per energy from which the cut pencil (one eigendecomposition per energy)
+replaces the per-value dense solve (measured crossover, docs/engine.md §9)."""
 
 
 @dataclass
@@ -76,6 +79,7 @@ class Terminals:
         )  # fmt: skip
         self._group = np.zeros((self.n_phys, 2 + self.probe_eta.size))
         self._group[np.arange(self.n_phys), owner] = 1.0
+        self.pencil_fallbacks = 0  # energies the pencil's checks sent to the direct solve
 
     @property
     def n_probes(self) -> int:
@@ -115,31 +119,101 @@ class Terminals:
         from ringkit.transport.probes import effective_conductance
 
         sig = self.sigma(energies)
-        b, t = self.size, self.n_phys
-        lhs = np.eye(b)[None] - g * sig[:, None, :]
-        g1 = np.linalg.solve(lhs, g)  # Green's function with the self-energies
+        t = self.n_phys
+        g1 = _attach(g, sig[:, :t])  # Green's function with the self-energies
         gam = -2.0 * sig[:, :t].imag  # > 0 for open modes and coupled probes only
         out = np.empty((len(energies), len(values)))
-        gtt0 = g1[:, :t, :t]
-        for j, value in enumerate(values):
-            if value is None or self.n_cut == 0:
-                gtt = gtt0
-            else:
-                v = self.cut_matrix(value)
-                k = np.eye(self.n_cut)[None] - _left(v, g1[:, t:, t:])
-                gtt = gtt0 + g1[:, :t, t:] @ np.linalg.solve(k, _left(v, g1[:, t:, :t]))
-            w = gam[:, :, None] * (gtt.real**2 + gtt.imag**2) * gam[:, None, :]
+        k0 = self.n_lead[0]
+        # without probes only the block (lead 1, lead 0) of G_tt enters T_10
+        rows, cols = (slice(k0, t), slice(0, k0)) if self.n_probes == 0 else (slice(0, t),) * 2
+        cut = [j for j, v in enumerate(values) if v is not None and self.n_cut]
+        pencil = self.pencil() if len(cut) >= PENCIL_MIN_VALUES else None
+        n_r, n_m = len(range(*rows.indices(t))), len(range(*cols.indices(t)))
+        per = 16 * n_r * n_m * (len(cut) + 2 * self.n_cut + 2)  # bytes per energy
+        step = max(1, int(_CHUNK_BYTES // per))
+        for a in range(0, len(energies), step):
+            e = slice(a, a + step)
+            gtt = np.empty((g1[e].shape[0], len(values), n_r, n_m), complex)
+            gtt[:] = g1[e, None, rows, cols]  # values None (the model holds the field)
+            if pencil is not None:
+                blocks, bad = pencil.terminal_blocks(g1[e], t, [values[j] for j in cut], rows, cols)
+                gtt[:, cut] = blocks
+                if np.any(bad):  # those energies by the direct dense solve
+                    self.pencil_fallbacks += int(np.sum(bad))
+                    redo = self._direct(g1[e][bad], [values[j] for j in cut], rows, cols)
+                    gtt[np.flatnonzero(bad)[:, None], np.array(cut)[None, :]] = redo
+            elif cut:
+                gtt[:, cut] = self._direct(g1[e], [values[j] for j in cut], rows, cols)
+            gm = gam[e]
+            w = gm[:, None, rows, None] * (gtt.real**2 + gtt.imag**2) * gm[:, None, None, cols]
             if self.n_probes == 0:
-                k0 = self.n_lead[0]
-                out[:, j] = w[:, k0:, :k0].sum(axis=(1, 2))
+                out[e] = w.sum(axis=(2, 3))
             else:
-                tmat = np.einsum("ip,eij,jq->epq", self._group, w, self._group, optimize=True)
-                out[:, j] = effective_conductance(tmat, 0, 1)
+                tmat = np.einsum("ip,evij,jq->evpq", self._group, w, self._group, optimize=True)
+                out[e] = effective_conductance(tmat, 0, 1)
         return out
+
+    def pencil(self):
+        """The cut pencil (:mod:`._spectral_pencil`), or ``None`` if the cut has no single
+        winding."""
+        if not hasattr(self, "_pencil"):
+            from ringkit.transport._spectral_pencil import CutPencil
+
+            self._pencil = None
+            if self.n_cut:
+                self._pencil = CutPencil.build(
+                    self.n_cut, self.cut_rows, self.cut_cols, self.cut_base, self.cut_coef
+                )
+        return self._pencil
 
     def energy_chunk(self) -> int:
         """Energies per chunk so that one ``(n_E, size, size)`` temporary stays small."""
         return max(1, int(_CHUNK_BYTES // (16 * max(1, self.size) ** 2)))
+
+    def _direct(self, g1: np.ndarray, values, rows: slice, cols: slice) -> np.ndarray:
+        """``G_tt[rows, cols]`` at each field value by the dense ``c x c`` Dyson solve of the
+        cut update ``G_tt = G1_tt + G1_tc (1 - V G1_cc)^-1 V G1_ct``; ``(n_E, n_values, r, m)``.
+        """
+        t = self.n_phys
+        r_idx, c_idx = np.arange(t)[rows], np.arange(t)[cols]
+        gcc, gct = g1[:, t:, t:], g1[:, t:][:, :, c_idx]
+        gtc = g1[:, r_idx, t:]
+        base = g1[:, rows, cols]
+        one_per_row = np.array_equal(np.sort(self.cut_rows), np.arange(self.n_cut))
+        if one_per_row:  # V @ X is a row gather and a scaling: gather once for all values
+            order = np.argsort(self.cut_rows)
+            src = self.cut_cols[order]
+            gcc_g, gct_g = gcc[:, src], gct[:, src]
+        eye = np.eye(self.n_cut)[None]
+        out = np.empty((g1.shape[0], len(values), r_idx.size, c_idx.size), complex)
+        for j, value in enumerate(values):
+            vals = self.cut_base * (np.exp(1j * float(value) * self.cut_coef) - 1.0)
+            if one_per_row:
+                vr = vals[order][None, :, None]
+                k, rhs = eye - vr * gcc_g, vr * gct_g
+            else:
+                v = sp.csr_matrix((vals, (self.cut_rows, self.cut_cols)), shape=eye.shape[1:])
+                k, rhs = eye - _left(v, gcc), _left(v, gct)
+            out[:, j] = base + gtc @ np.linalg.solve(k, rhs)
+        return out
+
+
+def _attach(g: np.ndarray, sig: np.ndarray) -> np.ndarray:
+    """``(1 - g Sigma)^-1 g`` with ``Sigma = diag(sig)`` on the first ``t`` columns only.
+
+    Woodbury identity on the rank-``t`` update: ``g + g[:, :t] (1 - S g_tt)^-1 S g[:t]``,
+    ``S = diag(sig)`` (a ``t x t`` solve instead of the ``b x b`` one), used when ``t <= b/2``
+    (a cut block); otherwise the plain ``b x b`` solve.
+    """
+    t, b = sig.shape[1], g.shape[1]
+    if t == 0:
+        return g.astype(complex)
+    if 2 * t > b:  # no gain (e.g. no cut block): the plain b x b solve
+        full = np.concatenate([sig, np.zeros((sig.shape[0], b - t), sig.dtype)], axis=1)
+        return np.linalg.solve(np.eye(b)[None] - g * full[:, None, :], g)
+    k = np.eye(t)[None] - sig[:, :, None] * g[:, :t, :t]
+    y = np.linalg.solve(k, sig[:, :, None] * g[:, :t, :])
+    return g + g[:, :, :t] @ y
 
 
 def _left(v: sp.csr_matrix, x: np.ndarray) -> np.ndarray:

@@ -74,6 +74,7 @@ _MIN_STEPS = 6
 _CHECK_GROWTH = 0.15  # checks every max(2, 15 %) steps
 _MAX_STEPS = 400
 _MAX_CUT = 600  # cut orbitals beyond which the field counts as spread over the ring
+_CHECK_GRID = 97  # energies of the fixed check grid across the window
 _CUT_CHECKS = 6  # flux values at which a cut-mode model's convergence is measured
 _MERGE = 1e-13  # |B| values closer than this (relative) are one field point
 _PARALLEL_FLOPS = 2e9  # dense work of one transmission call above which workers share it
@@ -283,7 +284,7 @@ class SpectralSweeper:
 
     # ------------------------------------------------------------------ one model
     def _check_energies(self, red: ReducedResolvent | None) -> np.ndarray:
-        grid = np.linspace(self.mu - self.half_width, self.mu + self.half_width, 97)
+        grid = np.linspace(self.mu - self.half_width, self.mu + self.half_width, _CHECK_GRID)
         if red is None:
             return grid
         # next to the model's poles inside the window: narrow resonances sit there
@@ -323,6 +324,8 @@ class SpectralSweeper:
         # the first checks go where the previous field point converged (fields are similar)
         prev, red, err = None, None, np.inf
         next_check = max(_MIN_STEPS, min(self._last_steps - 2, _MAX_STEPS // 2))
+        grid_memo: dict = {}  # cut mode: conductance on the check grid per model (id)
+        partial = None  # (red, prev) of the last check if its err is a grid-only lower bound
         while lz.steps < _MAX_STEPS:
             lz.step()
             if lz.steps < next_check and not lz.exhausted:
@@ -330,20 +333,51 @@ class SpectralSweeper:
             next_check = lz.steps + max(2, int(np.ceil(_CHECK_GROWTH * lz.steps)))
             red = lz.model()
             if lz.exhausted:
-                err = 0.0
+                err, partial = 0.0, None
                 break
             if prev is not None:
-                energies = self._check_energies(red)
-                now = self.conductance_of(red, energies, check_values, keep=False)
-                before = self.conductance_of(prev, energies, check_values, keep=False)
-                err = float(np.max(np.abs(now - before)))
+                if self.mode == "cut":
+                    err, lower = self._cut_change(red, prev, check_values, grid_memo)
+                    partial = (red, prev) if lower else None
+                else:
+                    energies = self._check_energies(red)
+                    now = self.conductance_of(red, energies, check_values, keep=False)
+                    before = self.conductance_of(prev, energies, check_values, keep=False)
+                    err = float(np.max(np.abs(now - before)))
                 if err <= self.model_tol:
                     break
             if prev is None or lz.steps >= self._last_steps:
                 next_check = min(next_check, lz.steps + 2)  # compare soon: expected converged
             prev = red
+        if partial is not None:  # stopped at _MAX_STEPS on a grid-only measure: in full
+            err, _ = self._cut_change(*partial, check_values, grid_memo, full=True)
         self._last_steps = lz.steps
         return red, err
+
+    def _cut_change(self, red, prev, check_values, memo: dict, full: bool = False):
+        """Measured change between two cut-mode models, and whether it is only a lower bound.
+
+        The same measure as in per-field mode (all of :meth:`_check_energies`), evaluated in two
+        parts: the fixed grid first (each model's grid values are kept for the next comparison)
+        and, only if the grid change is already within ``model_tol`` (or ``full``), the
+        energies next to the poles. A grid change above ``model_tol`` fails the check either
+        way; it is then returned as a lower bound (``True``) and the steps continue.
+        """
+        energies = self._check_energies(red)
+        grid, near = energies[:_CHECK_GRID], energies[_CHECK_GRID:]
+        for m in (red, prev):  # entries hold their model: an id is never reused meanwhile
+            if id(m) not in memo or memo[id(m)][0] is not m:
+                memo[id(m)] = (m, self.conductance_of(m, grid, check_values, keep=False))
+        err = float(np.max(np.abs(memo[id(red)][1] - memo[id(prev)][1])))
+        for key in [k for k in memo if k not in (id(red), id(prev))]:
+            del memo[key]
+        if err > self.model_tol and not full:
+            return err, True
+        if near.size:
+            now = self.conductance_of(red, near, check_values, keep=False)
+            before = self.conductance_of(prev, near, check_values, keep=False)
+            err = max(err, float(np.max(np.abs(now - before))))
+        return err, False
 
     # ------------------------------------------------------------------ per energy
     def conductance_of(
