@@ -24,7 +24,8 @@ error estimate, and how often the lattice was rebuilt.
 
 Engine comparison (``--compare-temperatures``, default 0.3 and 1 K): the thermal part of one
 update on the default ring (lattice, probes and model already made) by the live path (one
-low-rank factorization per energy) and by the spectral energy engine
+sparse factorization per energy: with probes a block independent of the probe coupling, see
+:mod:`ringkit.view.panels.explorer_live`) and by the spectral energy engine
 (:class:`ringkit.transport.spectral.SpectralSweeper`, cut mode, the same 40 probes) at the
 same policy, tolerance and energies, with its cost split (set-up, the bare sparse
 factorization, Lanczos block steps, convergence checks, energies), the Lanczos steps, the
@@ -236,8 +237,8 @@ def _spectral_rows(sw, period: tuple, k: np.ndarray, energies: np.ndarray) -> np
 
 
 def compare_spectral(temperatures: list[float], model_tols: list[float], repeats: int) -> list[str]:
-    """Thermal part of one live update on the default ring: the live path (one low-rank
-    FluxTubeSweeper factorization per energy, in the energy workers) against the spectral
+    """Thermal part of one live update on the default ring: the live path (one sparse
+    factorization per energy, in the energy workers) against the spectral
     engine in cut mode with the same probes, policy, tolerance and energies.
 
     The lattice, probes and probe-free model are made first (a T = 0 update), so the times
@@ -280,7 +281,7 @@ def compare_spectral(temperatures: list[float], model_tols: list[float], repeats
         probes = next(iter(view._probes.values()))
         f = live.timings["factorize"]
         out.append(
-            f"| {temp:g} | live (low-rank, one factorization per energy, "
+            f"| {temp:g} | live (one factorization per energy, "
             f"{live.timings.get('workers', 1)} workers) | - | {live.n_energies} "
             f"| {statistics.median(live_cpu):.2f} | {statistics.median(live_wall):.2f} "
             f"| energies {f:.2f} (wall) | - | - | 0 (thermal error {live.thermal_error:.2g}) |"

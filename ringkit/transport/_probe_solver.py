@@ -32,17 +32,98 @@ from ringkit.transport._lowrank_schur import (
 )
 from ringkit.transport.fastsweep import kron_reduce
 
-__all__ = ["ProbeFluxSolver", "he_amplitudes", "measure_realised_l_phi"]
+__all__ = ["BlockPool", "ProbeFluxSolver", "he_amplitudes", "measure_realised_l_phi"]
+
+
+_CONTROLLER: list = []  # lazily created threadpoolctl controller (None: not installed)
 
 
 def _one_blas_thread():
     """Small dense blocks: one BLAS thread (threads only contend here); no-op without
-    threadpoolctl."""
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:  # pragma: no cover - optional dependency
+    threadpoolctl. The library scan is done once per process (it costs ~7 ms)."""
+    if not _CONTROLLER:
+        try:
+            from threadpoolctl import ThreadpoolController
+        except ImportError:  # pragma: no cover - optional dependency
+            _CONTROLLER.append(None)
+        else:
+            _CONTROLLER.append(ThreadpoolController())
+    if _CONTROLLER[0] is None:  # pragma: no cover - optional dependency
         return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
+    return _CONTROLLER[0].limit(limits=1, user_api="blas")
+
+
+# (solver, then) a forked block worker evaluates; set by the parent right before the fork
+_TASK: list = []
+
+
+def _block_of(solver, then, energy: float) -> tuple:
+    with _one_blas_thread():
+        block = solver.block(energy)
+        return block, (None if then is None else then(block))
+
+
+def _block_task(energy: float) -> tuple:
+    return _block_of(*_TASK[0], energy)  # in a forked worker
+
+
+class BlockPool:
+    """``pool(energies) -> [(block, then(block)), ...]``: :meth:`ProbeFluxSolver.block` per
+    energy, in forked worker processes when worth it.
+
+    As :class:`ringkit.transport.energy_pool.EnergyPool` (same worker count
+    :func:`~ringkit.transport.energy_pool.thermal_workers`, same rule: workers only when the
+    first energy, evaluated here, took longer than ``MIN_SECONDS_PER_ENERGY``): the workers
+    inherit the solver (pattern, symbolic analysis) by ``fork`` and run the same code with one
+    BLAS thread, so the blocks equal the serial ones. ``then(block)`` (optional) is evaluated
+    with each block where it was computed (e.g. the conductance at the current coupling); the
+    workers keep the ``solver`` and ``then`` of their start for the life of the pool.
+    """
+
+    def __init__(self, solver, then=None, *, workers: int | None = None) -> None:
+        from ringkit.transport.energy_pool import thermal_workers
+
+        self.solver, self.then = solver, then
+        self.workers = thermal_workers(workers)
+        self.used_workers = 1
+        self.seconds_per_energy = float("nan")
+        self._pool = None
+
+    def __enter__(self) -> BlockPool:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def close(self) -> None:
+        """Stop the workers (if any were started)."""
+        if self._pool is not None:
+            self._pool.terminate()
+            self._pool.join()
+            self._pool = None
+            _TASK.clear()
+
+    def __call__(self, energies: Sequence[float]) -> list:
+        import multiprocessing
+        import time
+
+        from ringkit.transport import energy_pool
+
+        energies = [float(e) for e in energies]
+        out = []
+        if energies and self._pool is None and self.seconds_per_energy != self.seconds_per_energy:
+            t0 = time.perf_counter()
+            out.append(_block_of(self.solver, self.then, energies[0]))
+            self.seconds_per_energy = time.perf_counter() - t0
+            energies = energies[1:]
+        fast = not self.seconds_per_energy > energy_pool.MIN_SECONDS_PER_ENERGY
+        if self.workers < 2 or len(energies) < 2 or (fast and self._pool is None):
+            return out + [_block_of(self.solver, self.then, e) for e in energies]
+        if self._pool is None:
+            _TASK[:] = [(self.solver, self.then)]  # inherited by the forked workers
+            self._pool = multiprocessing.get_context("fork").Pool(self.workers)
+            self.used_workers = self.workers
+        return out + self._pool.map(_block_task, energies, chunksize=1)
 
 
 class ProbeFluxSolver:
@@ -54,19 +135,25 @@ class ProbeFluxSolver:
         The device WITHOUT probes (its probes, if any, are ignored).
     probe_sites : sequence of int
         Site indices of the probes (kwant order).
-    energies : sequence of float
-        Energies (Hamiltonian units); one sparse factorization each.
+    energies : sequence of float or None
+        Energies (Hamiltonian units); one sparse factorization each. None: no energy yet (use
+        :meth:`block` per energy, as the explorer's live view does).
+    workers : int, optional
+        Processes for the blocks of ``energies`` (:class:`BlockPool`; default 1: serial,
+        None: :func:`ringkit.transport.energy_pool.thermal_workers`). Same values either way.
 
     Notes
     -----
     Terminals are ordered as in :class:`FluxTubeSweeper`: kwant leads first, then the probes.
     """
 
-    def __init__(self, model, probe_sites: Sequence[int], energies: Sequence[float]) -> None:
+    def __init__(self, model, probe_sites: Sequence[int], energies: Sequence[float] | None,
+                 *, workers: int | None = 1) -> None:  # fmt: skip
         self.model = model
         self.probe_sites = np.asarray(probe_sites, dtype=np.int64)
-        self.energies = np.atleast_1d(np.asarray(energies, dtype=float))
-        if self.energies.ndim != 1 or self.energies.size == 0:
+        lazy = energies is None
+        self.energies = np.atleast_1d(np.asarray([] if lazy else energies, dtype=float))
+        if self.energies.ndim != 1 or (self.energies.size == 0 and not lazy):
             raise ParameterError("energies", energies, "must be a non-empty 1-D sequence")
         h0, cut, off = model.h0, model.cut, model.offsets
         n = h0.shape[0]
@@ -80,12 +167,19 @@ class ProbeFluxSolver:
         self.keep = keep
         self._kc = (np.searchsorted(keep, cut.rows), np.searchsorted(keep, cut.cols))
         self._kt = [np.searchsorted(keep, o) for o in allt]
-        self._terminal_rows = np.unique(np.concatenate(self._kt))
         self._lu = Factorization()
         self._schur = SchurInverse(self._pattern.rows, self._pattern.cols, n, keep)
         self._cache: dict = {}
         self._classes_of: tuple | None = None  # (fluxes, representatives, inverse)
-        self._blocks = [self._factor(e) for e in self.energies]
+        with BlockPool(self, workers=workers) as pool:
+            self._blocks = [b for b, _ in pool(list(self.energies))]
+            self.workers_used = pool.used_workers
+
+    def block(self, energy: float) -> tuple:
+        """The flux- and coupling-independent data of one energy (one sparse factorization):
+        ``(reference flux, G block on the keep orbitals, lead Gamma factors)``; use with
+        :meth:`block_matrices` / :meth:`block_effective`."""
+        return self._factor(energy)
 
     def _factor(self, energy: float) -> tuple:
         m, n = self.model, self.model.h0.shape[0]
@@ -143,22 +237,33 @@ class ProbeFluxSolver:
         return out
 
     def _matrices_at(self, ie: int, eta: np.ndarray, f: np.ndarray) -> np.ndarray:
-        nt, nk = self.n_terminals, self.keep.size
-        ref, g, lead_l = self._blocks[ie]
-        ls = lead_l + [
-            math.sqrt(e) * np.eye(o.size) for e, o in zip(eta, self.probe_orbitals, strict=True)
-        ]
+        return self.block_matrices(self._blocks[ie], eta, f)
+
+    def block_matrices(self, block: tuple, eta, f: np.ndarray, active=None) -> np.ndarray:
+        """Conductance matrices (e^2/h per spin), shape ``(n_flux, n, n)``, of one :meth:`block`.
+
+        ``active`` (indices into ``probe_sites``, default all) selects the probes attached with
+        couplings ``eta`` (one per active probe, energy units); the other probe sites stay plain
+        lattice sites. Terminals: the kwant leads, then the active probes in ``active`` order.
+        """
+        ref, g, lead_l = block
+        nl = len(lead_l)
+        act = np.arange(len(self.probe_sites)) if active is None else np.asarray(active, int)
+        eta = np.broadcast_to(np.asarray(eta, dtype=float), (act.size,))
+        kts = self._kt[:nl] + [self._kt[nl + i] for i in act]
+        nt, nk = nl + act.size, self.keep.size
+        ls = lead_l + [math.sqrt(e) * np.eye(kt.size) for e, kt in zip(eta, kts[nl:], strict=True)]
         nch = [x.shape[1] for x in ls]
         lmat = np.zeros((nk, sum(nch)), dtype=complex)
         c0 = 0
-        for kt, x in zip(self._kt, ls, strict=True):
+        for kt, x in zip(kts, ls, strict=True):
             lmat[kt, c0 : c0 + x.shape[1]] = x
             c0 += x.shape[1]
         # 1) probes (flux-independent): A_p = A + E d E^T with d = i eta/2 on the probe
         #    orbitals E; Woodbury: G_p = G - G E (d^-1 + E^T G E)^-1 E^T G (a solve of the
         #    probe block only, per energy and eta; probes with eta = 0 change nothing)
         dp = np.zeros(nk, dtype=complex)
-        for e, kt in zip(eta, self._kt[len(lead_l) :], strict=True):
+        for e, kt in zip(eta, kts[nl:], strict=True):
             dp[kt] += 0.5j * e
         sel = np.flatnonzero(dp)
         if sel.size:
@@ -171,7 +276,7 @@ class ProbeFluxSolver:
         #    L^+ G' L = base + left diag(v) (1 - Q diag(v))^-1 right
         rc, cc = self._kc
         v = self.model.cut.entries(f) - self.model.cut.entries(ref)
-        tr = self._terminal_rows  # the only nonzero rows of lmat
+        tr = np.unique(np.concatenate(kts))  # the only nonzero rows of lmat
         lt = lmat[tr]
         lh = lt.conj().T
         base = lh @ gp[np.ix_(tr, tr)] @ lt
@@ -196,18 +301,30 @@ class ProbeFluxSolver:
         c[:, idx, idx] = tm.sum(axis=1)
         return c
 
+    def block_effective(self, block: tuple, eta, fluxes, active=None, *, source: int = 0,
+                        drain: int = 1) -> np.ndarray:  # fmt: skip
+        """:meth:`effective_conductance` at one :meth:`block` with the probes ``active``
+        (see :meth:`block_matrices`), shape ``(n_flux,)``, e^2/h per spin."""
+        reps, inverse = self._classes(fluxes)
+        with _one_blas_thread():
+            cm = self.block_matrices(block, eta, reps, active)
+            return kron_reduce(cm, source, drain)[inverse]
+
+    def _classes(self, fluxes) -> tuple[np.ndarray, np.ndarray]:
+        from ringkit.transport.flux_symmetry import flux_classes
+
+        f = np.atleast_1d(np.asarray(fluxes, dtype=float))
+        if self._classes_of is None or not np.array_equal(self._classes_of[0], f):
+            self._classes_of = (f.copy(), *flux_classes(self.model, f))
+        return self._classes_of[1], self._classes_of[2]
+
     def effective_conductance(self, eta, fluxes, *, source: int = 0, drain: int = 1):
         """Energy-conserving (dephasing-probe) G_eff per energy, shape (n_energies, n_flux).
 
         G_eff is h/e-periodic and, for a reciprocal model, even in the flux: each distinct
         point is computed once (:func:`ringkit.transport.flux_symmetry.flux_classes`).
         """
-        from ringkit.transport.flux_symmetry import flux_classes
-
-        f = np.atleast_1d(np.asarray(fluxes, dtype=float))
-        if self._classes_of is None or not np.array_equal(self._classes_of[0], f):
-            self._classes_of = (f.copy(), *flux_classes(self.model, f))
-        _, reps, inverse = self._classes_of
+        reps, inverse = self._classes(fluxes)
         cm = self.conductance_matrices(eta, reps)
         with _one_blas_thread():
             return kron_reduce(cm, source, drain)[:, inverse]

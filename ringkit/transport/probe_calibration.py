@@ -117,6 +117,12 @@ class LPhiCalibrator:
     h/e amplitudes) is done once; every :meth:`probes` call only costs dense solves (secant
     steps). Parameters as in :func:`calibrate_probes`; ``center`` (position units) as in
     :func:`ringkit.transport.probes.ring_probe_sites` (rings with more than two leads).
+    ``workers``: processes for the per-energy factorizations
+    (:class:`ringkit.transport._probe_solver.BlockPool`, forked, used only when one energy costs
+    more than ``MIN_SECONDS_PER_ENERGY``; None: :func:`ringkit.transport.energy_pool.
+    thermal_workers`). Default 1 (serial): forking the explorer's process for the 16 energies
+    of the default ring cost 0.4-0.5 s more CPU than it saved on the shared 2-core machine
+    (benchmarks/RESULTS-live-preview.md). The values do not depend on it.
     """
 
     def __init__(
@@ -131,6 +137,7 @@ class LPhiCalibrator:
         n_flux: int = 16,
         seed: int = 0,
         center: tuple[float, float] | None = None,
+        workers: int | None = 1,
     ) -> None:
         from ringkit.transport.lowrank import FluxTubeModel
 
@@ -153,7 +160,7 @@ class LPhiCalibrator:
             )
         self.energies = np.atleast_1d(np.asarray(energies, dtype=float))
         self.n_flux, self.seed = int(n_flux), int(seed)
-        self.solver = ProbeFluxSolver(model, self.sites, self.energies)
+        self.solver = ProbeFluxSolver(model, self.sites, self.energies, workers=workers)
         self.a0 = he_amplitudes(self.solver, 0.0, self.n_flux)
         lattice = fsyst.graph.num_edges / fsyst.graph.num_nodes >= 2.5
         self._start = ANALYTIC_LATTICE_FACTOR if lattice else 1.0
