@@ -27,8 +27,8 @@ This module is the computation (no widgets); :class:`LiveLattice` keeps what did
   analytic frame's probe sites and the calibrated frame's ``across=True`` sites); the probes
   (any eta), the flux and the Kron reduction of the floating probes follow by exact dense
   algebra (Dyson, Woodbury). A new L_phi and the calibrated frame therefore cost no sparse
-  factorization at the energies already done (~25 ms of dense algebra per energy on the
-  default ring instead of ~75 ms).
+  factorization at the energies already done (7-10 ms of dense algebra per energy on the
+  default ring, 10-26 ms under load, instead of ~80 ms).
 
 Flux grid: the flux-tube conductance is exactly periodic in the hole flux with period h/e
 (gauge invariance, Byers-Yang), so the live line uses a grid commensurate with the period,
