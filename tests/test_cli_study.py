@@ -614,7 +614,7 @@ def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypa
 
     from ringkit.study import compute
     from ringkit.study.plan import make_plan
-    from ringkit.transport import lowrank, probes
+    from ringkit.transport import lowrank, probes, spectral
     from ringkit.transport.realised_l_phi import cache_info
     from ringkit.transport.sweep import fast_field_conductance
 
@@ -642,6 +642,9 @@ def test_dephased_unit_reuses_one_model_and_one_probe_mapping(tmp_path, monkeypa
     monkeypatch.setattr(lowrank.FluxTubeModel, "__init__", init)
     monkeypatch.setattr(probes, "attach_probes", attach)
     monkeypatch.setattr(compute.UnitEngine, "conductance", conductance)
+    # this test pins the per-energy low-rank path; with 8 probes "auto" would take the
+    # spectral engine (spectral.AUTO_MAX_PROBES_FLUX_TUBE, benchmarks/RESULTS-auto-rule.md)
+    monkeypatch.setattr(spectral, "AUTO_MAX_PROBES_FLUX_TUBE", 0)
     compute.clear_cache()
     unit = next(u for u in plan.units if np.isfinite(u.l_phi))
     res = compute.compute_unit(compute.make_tasks(plan, [unit])[0])

@@ -307,6 +307,31 @@ def test_study_unit_uses_the_spectral_engine_and_equals_kwant():
     assert res.info["thermal_error_e2h"][1] <= 1e-5
 
 
+@pytest.mark.filterwarnings("ignore::ringkit.device.DiscretisationWarning")
+def test_flux_tube_study_unit_with_probes_follows_the_auto_rule(monkeypatch):
+    # a flux-tube study unit with 6 probes at T > 0: "auto" takes the spectral engine (cut
+    # mode, benchmarks/RESULTS-auto-rule.md); reference: the same unit on the per-energy
+    # low-rank path (checked against kwant in tests/test_lowrank.py), same calibrated probes
+    from ringkit.study import compute, make_plan, parse_config
+    from ringkit.transport import spectral
+
+    text = STUDY.replace('start = "-0.3 T"', 'mode = "flux_tube"\nstart = "-1 h/e"')
+    text = text.replace('stop = "0.3 T"', 'stop = "1 h/e"').replace('"inf"', '"300 nm"')
+    plan = make_plan(parse_config(text + "[dephasing]\nprobes = 6\n"))
+    task = compute.make_tasks(plan, [plan.units[0]])[0]
+    compute.clear_cache()
+    spec = compute.compute_unit(task)
+    monkeypatch.setattr(spectral, "AUTO_MAX_PROBES_FLUX_TUBE", 5)
+    compute.clear_cache()
+    low = compute.compute_unit(task)
+    compute.clear_cache()
+    assert spec.info["engine"].startswith("spectral")
+    assert "engine" not in low.info  # only spectral units name their engine
+    # T = 0 row: the same energy on both paths; 1.5 K row: both within tol = 1e-5 e^2/h
+    np.testing.assert_allclose(spec.conductance[0], low.conductance[0], rtol=0, atol=1e-9)
+    np.testing.assert_allclose(spec.conductance[1], low.conductance[1], rtol=0, atol=3e-5)
+
+
 def test_a_large_step_hint_still_measures_the_error():
     # the first checks go where the previous model converged; a huge hint must not skip the
     # comparison (the measured error would stay infinite)
@@ -321,11 +346,41 @@ def test_a_large_step_hint_still_measures_the_error():
 
 
 def test_auto_choice_of_the_engine():
-    # the rule of docs/engine.md section 9.5 (measured in benchmarks/RESULTS-spectral-modes.md)
-    from ringkit.transport.spectral import AUTO_MAX_PROBES, spectral_preferred
+    # the rule of docs/engine.md section 9.5; source of the limits: benchmarks/
+    # RESULTS-auto-rule.md (0.5 um GaAs ring, 28.6k sites, spectral vs low-rank/direct path
+    # through the public thermal path, same energies)
+    from ringkit.transport.spectral import (
+        AUTO_MAX_PROBES,
+        AUTO_MAX_PROBES_FLUX_TUBE,
+        spectral_preferred,
+    )
 
-    few = DephasingProbes(np.arange(AUTO_MAX_PROBES), 0.1)
-    many = DephasingProbes(np.arange(AUTO_MAX_PROBES + 1), 0.1)
-    assert spectral_preferred(False) and spectral_preferred(True)
-    assert spectral_preferred(False, few) and not spectral_preferred(False, many)
-    assert not spectral_preferred(True, few)
+    def probes(n):
+        return DephasingProbes(np.arange(n), 0.1)
+
+    assert spectral_preferred(False) and spectral_preferred(True)  # no probes: always
+    for flux_tube, limit in ((False, AUTO_MAX_PROBES), (True, AUTO_MAX_PROBES_FLUX_TUBE)):
+        assert spectral_preferred(flux_tube, probes(1))
+        assert spectral_preferred(flux_tube, probes(limit))
+        assert not spectral_preferred(flux_tube, probes(limit + 1))
+    # the measured decisions: 40 probes spectral in both field modes, 100 probes (the default
+    # of field_sweep and the amplitude statistics) on the per-energy paths
+    assert spectral_preferred(True, probes(40)) and spectral_preferred(False, probes(40))
+    assert not spectral_preferred(True, probes(100)) and not spectral_preferred(False, probes(100))
+
+
+def test_auto_flux_tube_with_probes_follows_the_rule(monkeypatch):
+    # "auto" through field_sweep on a flux tube with probes: spectral up to the limit, the
+    # low-rank update above it; reference: the low-rank path (checked against kwant in
+    # tests/test_lowrank.py); both within their thermal tolerance
+    from ringkit.transport import spectral
+
+    ring = _ring("flux_tube")
+    kw = dict(fluxes=np.linspace(0.0, 1.0, 5) * PHI0, temperature=1.5, thermal_tol=1e-6)
+    kw.update(l_phi=150e-9, n_probes=6, calibrate_l_phi=False)
+    auto = field_sweep(ring, **kw)
+    assert "spectral" in auto.attrs["solver"] and auto.attrs["n_probes"] == 6
+    monkeypatch.setattr(spectral, "AUTO_MAX_PROBES_FLUX_TUBE", 5)
+    low = field_sweep(ring, **kw)
+    assert "low-rank" in low.attrs["solver"]
+    assert np.abs(auto["G"].values - low["G"].values).max() < 2e-6

@@ -65,6 +65,7 @@ __all__ = [
     "spectral_thermal_transmission",
     "spectral_preferred",
     "AUTO_MAX_PROBES",
+    "AUTO_MAX_PROBES_FLUX_TUBE",
     "MODEL_TOL",
 ]
 
@@ -86,22 +87,54 @@ class SpectralModelWarning(RuntimeWarning):
     """A field point whose reduced model did not reach ``model_tol`` (error stored)."""
 
 
-AUTO_MAX_PROBES = 48
+AUTO_MAX_PROBES = 64
 """Most probes for which ``thermal_engine="auto"`` picks the spectral engine in a uniform field.
 
-Its cost grows with the square of the terminal block (lead modes + probes): measured per
-distinct field point, 32 probes on a 7.7k-site ring cost 1/13 of the direct path, 100 probes
-on the 28.6k-site ring about the same as the direct path (benchmarks/RESULTS-spectral-modes.md,
-docs/engine.md §9.5)."""
+The cost of a reduced model grows with the square of the terminal block (lead modes + probes).
+Measured on the 0.5 um GaAs ring (28.6k sites), 0.3 K, 3 field points, the same policy
+energies, direct / spectral (benchmarks/RESULTS-auto-rule.md): 40 probes 2.5-3.2x (wall),
+3.2-3.3x (CPU); 64 probes 1.2x (wall, two free cores) to 2.2x (loaded machine), 2.0x (CPU);
+100 probes 0.89x (wall), 1.1x (CPU). 64 is the largest measured count at which the spectral
+engine is not slower in any of these regimes."""
+
+AUTO_MAX_PROBES_FLUX_TUBE = 40
+"""Most probes for which ``thermal_engine="auto"`` picks the spectral engine on a flux tube.
+
+Cut mode (one reduced model for every flux) against the low-rank update (one factorization
+per energy, which spreads over the energy workers while the reduced model is built in one
+process). Measured on the 0.5 um GaAs ring, 24 fluxes over one period, the same policy
+energies, low-rank / spectral (benchmarks/RESULTS-auto-rule.md): 40 probes 1.2x (0.3 K) and
+1.0x (1 K) in wall time with two free cores, 1.6-2.1x on a loaded machine, 1.8-2.2x in CPU;
+64 probes 0.73-0.75x (wall, two free cores) but 1.3-1.5x (CPU); 100 probes 0.6x (wall),
+1.0-1.1x (CPU). 40 is the largest measured count at which the spectral engine is not slower
+in wall time on an idle machine; between 40 and 64 it still saves CPU (ensembles, whose workers
+run one energy process each) but costs wall time in a single sweep."""
 
 
 def spectral_preferred(flux_tube: bool, probes=None) -> bool:
-    """Whether ``"auto"`` takes the spectral engine (given that it is eligible): always without
-    probes; with probes only in a uniform field and up to :data:`AUTO_MAX_PROBES` of them (a
-    flux tube with probes keeps the low-rank update)."""
+    """Whether ``"auto"`` takes the spectral engine (given that it is eligible).
+
+    Always without probes; with probes up to :data:`AUTO_MAX_PROBES` of them in a uniform
+    field and up to :data:`AUTO_MAX_PROBES_FLUX_TUBE` on a flux tube (cut mode); more probes
+    stay on the per-energy paths (direct factorizations / the low-rank flux update). The
+    limits are measured (benchmarks/RESULTS-auto-rule.md, docs/engine.md §9.5).
+
+    Parameters
+    ----------
+    flux_tube : bool
+        Flux-tube field (True) or uniform field (False).
+    probes : DephasingProbes, optional
+        The floating probes (None: coherent).
+
+    Returns
+    -------
+    bool
+        True for the spectral engine.
+    """
     if probes is None:
         return True
-    return not flux_tube and len(np.atleast_1d(probes.sites)) <= AUTO_MAX_PROBES
+    limit = AUTO_MAX_PROBES_FLUX_TUBE if flux_tube else AUTO_MAX_PROBES
+    return len(np.atleast_1d(probes.sites)) <= limit
 
 
 def spectral_eligible(fsyst, field_param: str, params: dict, probes=None) -> str | None:
